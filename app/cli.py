@@ -1,0 +1,266 @@
+"""The ``gridscore`` command line: score, budget, check, demo, serve, cache.
+
+Exit codes: 0 success; 2 bad input, with one line naming the file, the problem and the
+remedy; 3 an unexpected internal error (one line; set GRIDSCORE_DEBUG=1 for the
+traceback).  Nothing is written half-way: exporters write to a temporary file and
+rename it into place.
+"""
+
+from __future__ import annotations
+
+import argparse
+import contextlib
+import glob
+import os
+import sys
+import warnings
+from collections.abc import Iterator, Sequence
+from pathlib import Path
+
+EXIT_OK, EXIT_INPUT, EXIT_INTERNAL = 0, 2, 3
+
+
+class _Parser(argparse.ArgumentParser):
+    """argparse that reports usage errors as one line and exit 2, like any bad input."""
+
+    def error(self, message: str) -> None:  # type: ignore[override]
+        self.exit(EXIT_INPUT, f"gridscore: {message} — see '{self.prog} --help'\n")
+
+
+def _source_arg(text: str, *, role: str, default_name: str | None = None):
+    from evaluation.errors import InputError
+    from evaluation.scoring import Source
+
+    name, sep, path = text.partition("=")
+    if not sep:
+        if default_name is None:
+            raise InputError(f"'{text}' is not NAME=PATH", remedy="write --model NAME=PATH, e.g. --model run-a='runs/a/*.nc'")
+        name, path = _name_from_path(text), text
+    name, path = name.strip(), path.strip()
+    if not name or not path:
+        raise InputError(f"'{text}' is not NAME=PATH", remedy="write --model NAME=PATH, e.g. --model run-a='runs/a/*.nc'")
+    paths = tuple(p for p in path.split(",") if p) if not glob.has_magic(path) and "," in path else (path,)
+    return Source(name=name, role=role, paths=paths)
+
+
+def _name_from_path(path: str) -> str:
+    """A readable name for an unnamed source: the file stem, or the folder of a glob."""
+    parts = Path(path).parts
+    if glob.has_magic(path):
+        plain = [p for p in parts[:-1] if not glob.has_magic(p)]
+        return plain[-1] if plain else "reference"
+    return Path(path).stem or "reference"
+
+
+@contextlib.contextmanager
+def _progress(enabled: bool) -> Iterator[None]:
+    """dask's progress bar, on an interactive terminal only."""
+    if enabled and sys.stderr.isatty():
+        from dask.diagnostics import ProgressBar
+
+        with ProgressBar(minimum=1.0, out=sys.stderr):
+            yield
+    else:
+        yield
+
+
+def _scheduler(args) -> contextlib.AbstractContextManager:
+    """Connect to a dask.distributed scheduler, start a local cluster, or use threads."""
+    address = getattr(args, "scheduler", None)
+    workers = getattr(args, "workers", None)
+    if not address and not workers:
+        return contextlib.nullcontext()
+    from evaluation.engine import connect
+
+    return connect(address=address, workers=workers)
+
+
+def _cmd_score(args) -> int:
+    from evaluation.export import write_table
+    from evaluation.scoring import Comparison
+
+    reference = _source_arg(args.reference, role="reference", default_name="reference")
+    models = [_source_arg(m, role="model") for m in args.model]
+    if any(m.name == reference.name for m in models):
+        reference = type(reference)(name=f"{reference.name} (reference)", role="reference", paths=reference.paths)
+    regions = args.region or ["global"]
+    seasons = args.season or ["ANN"]
+    with _scheduler(args), _progress(True):
+        cmp = Comparison(reference=reference, models=models, variable=args.variable, period=args.period, regrid=args.regrid)
+        table = cmp.scores(regions=regions, seasons=seasons)
+    provenance = cmp.provenance(regions=regions, seasons=seasons)
+    if args.output:
+        write_table(table, args.output, provenance=provenance)
+        print(f"wrote {len(table)} rows to {args.output}", file=sys.stderr)
+    else:
+        _print_wide(table, title=f"{args.variable} against {reference.name}, {cmp.period} ({cmp.units})")
+    return EXIT_OK
+
+
+def _print_wide(table, *, title: str) -> None:
+    from evaluation.export import wide_table
+
+    wide = wide_table(table)
+    print(title)
+    print(wide.to_markdown(index=False, floatfmt=".4g"))
+
+
+def _cmd_budget(args) -> int:
+    from evaluation.budget import budget_table
+    from evaluation.export import write_table
+
+    import pandas as pd
+
+    models = [_source_arg(m, role="model") for m in args.model]
+    with _scheduler(args), _progress(True):
+        frames = [budget_table(m, period=args.period) for m in models]
+    table = pd.concat(frames, ignore_index=True)
+    if args.output:
+        from evaluation.export import provenance
+
+        prov = provenance(sources=models, variable="toa budget", period=",".join(sorted(set(table["period"]))), seasons=["ANN"], regions={"global": "90°S to 90°N"}, regrid="none")
+        write_table(table, args.output, provenance=prov)
+        print(f"wrote {len(table)} rows to {args.output}", file=sys.stderr)
+    else:
+        wide = table.pivot_table(index=["model", "period"], columns="metric", values="value", sort=False).reset_index()
+        print("Top-of-atmosphere energy budget (W m-2, K; drift per century)")
+        print(wide.to_markdown(index=False, floatfmt=".4g"))
+    return EXIT_OK
+
+
+def _cmd_check(args) -> int:
+    from evaluation.io import check_files
+
+    found, problems = check_files(args.paths)
+    for line in found:
+        print(line)
+    for line in problems:
+        print(f"problem: {line}")
+    if not problems:
+        print("no CF problems found")
+    return EXIT_OK
+
+
+def _cmd_demo(args) -> int:
+    from evaluation.demo import write_demo
+
+    kwargs = {"size": args.size}
+    if args.years:
+        kwargs["years"] = args.years
+    manifest = write_demo(args.directory, **kwargs)
+    print(f"wrote the demo scenario; manifest: {manifest}")
+    return EXIT_OK
+
+
+def _cmd_serve(args) -> int:
+    from app.server import serve
+
+    serve(
+        args.path,
+        port=args.port,
+        address=args.address,
+        allow_websocket_origin=tuple(args.allow_websocket_origin or ()),
+        show=args.show,
+        scheduler=args.scheduler,
+        password=args.password,
+    )
+    return EXIT_OK
+
+
+def _cmd_cache(args) -> int:
+    from evaluation import cache
+
+    store = cache.Cache(args.cache_dir)
+    if args.action == "info":
+        info = store.info()
+        print(f"cache folder: {info['path']}\nentries: {info['entries']}\nsize: {info['size'] / 1e6:.1f} MB of {info['limit'] / 1e6:.0f} MB")
+    else:
+        removed = store.clear()
+        print(f"removed {removed} entries from {store.path}")
+    return EXIT_OK
+
+
+def build_parser() -> argparse.ArgumentParser:
+    from evaluation.grid import REGRID_METHODS
+
+    parser = _Parser(prog="gridscore", description="Score gridded climate model output against reference fields.")
+    sub = parser.add_subparsers(dest="command", required=True, parser_class=_Parser)
+
+    def engine_options(p: argparse.ArgumentParser) -> None:
+        p.add_argument("--scheduler", metavar="ADDRESS", help="address of a running dask.distributed scheduler (tcp://host:8786)")
+        p.add_argument("--workers", type=int, metavar="N", help="start a local dask cluster with N worker processes")
+
+    p = sub.add_parser("score", help="score model runs against a reference", description="Area-weighted scores of runs against a reference.")
+    p.add_argument("--reference", required=True, metavar="PATH", help="reference file, quoted glob, or NAME=PATH")
+    p.add_argument("--model", required=True, action="append", metavar="NAME=PATH", help="a run (repeatable); PATH may be a quoted glob")
+    p.add_argument("--variable", required=True, metavar="VAR", help="variable name or CF standard_name")
+    p.add_argument("--region", action="append", metavar="ID", help="global tropics nh-extratropics sh-extratropics arctic antarctic land ocean box:S,N,W,E (repeatable)")
+    p.add_argument("--season", action="append", metavar="S", help="ANN DJF MAM JJA SON JAN … DEC (repeatable)")
+    p.add_argument("--period", metavar="YYYY-YYYY", help="inclusive years; default 1991-2020 when covered, else the common years")
+    p.add_argument("--regrid", choices=REGRID_METHODS, default="conservative", help="remapping onto the reference grid (default conservative)")
+    p.add_argument("--output", metavar="FILE", help="write .csv .xlsx .md .tex .html or .json (default: a table on stdout)")
+    engine_options(p)
+    p.set_defaults(func=_cmd_score)
+
+    p = sub.add_parser("budget", help="top-of-atmosphere energy budget of runs")
+    p.add_argument("--model", required=True, action="append", metavar="NAME=PATH")
+    p.add_argument("--period", metavar="YYYY-YYYY")
+    p.add_argument("--output", metavar="FILE")
+    engine_options(p)
+    p.set_defaults(func=_cmd_budget)
+
+    p = sub.add_parser("check", help="what files hold, and their CF problems")
+    p.add_argument("paths", nargs="+", metavar="PATH")
+    p.set_defaults(func=_cmd_check)
+
+    p = sub.add_parser("demo", help="write the invented demo scenario")
+    p.add_argument("directory", nargs="?", default="gridscore-demo", metavar="DIR")
+    p.add_argument("--size", choices=("small", "large"), default="small", help="small (the bundled sample) or large (benchmark size)")
+    p.add_argument("--years", type=int, help="years of data for --size large (30 or 100)")
+    p.set_defaults(func=_cmd_demo)
+
+    p = sub.add_parser("serve", help="serve the dashboard")
+    p.add_argument("path", nargs="?", metavar="PATH", help="a data folder or manifest (default: the bundled sample)")
+    p.add_argument("--port", type=int, default=5006)
+    p.add_argument("--address", default="127.0.0.1")
+    p.add_argument("--allow-websocket-origin", action="append", metavar="HOST", help="host[:port] allowed to connect (repeatable)")
+    p.add_argument("--show", action="store_true", help="open the dashboard in a browser")
+    p.add_argument("--scheduler", metavar="ADDRESS", help="address of a running dask.distributed scheduler")
+    p.add_argument("--password", metavar="PASSWORD", help="require this password (basic authentication) — for sharing inside a group")
+    p.set_defaults(func=_cmd_serve)
+
+    p = sub.add_parser("cache", help="inspect or clear the on-disk cache")
+    p.add_argument("action", choices=("info", "clear"))
+    p.add_argument("--cache-dir", metavar="DIR", help="cache folder (default: the user cache directory or $GRIDSCORE_CACHE)")
+    p.set_defaults(func=_cmd_cache)
+    return parser
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    """Entry point of the ``gridscore`` console script."""
+    from evaluation.errors import InputError
+
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    debug = bool(os.environ.get("GRIDSCORE_DEBUG"))
+    try:
+        with warnings.catch_warnings():
+            if not debug:
+                warnings.simplefilter("ignore")
+            return int(args.func(args) or 0)
+    except InputError as err:
+        print(f"gridscore: {err.message}", file=sys.stderr)
+        return EXIT_INPUT
+    except KeyboardInterrupt:
+        print("gridscore: interrupted", file=sys.stderr)
+        return 130
+    except Exception as exc:  # the last line of defence: one line, never a traceback
+        if debug:
+            raise
+        text = " ".join(str(exc).split())[:200]
+        print(f"gridscore: internal error ({type(exc).__name__}: {text}) — please report it; GRIDSCORE_DEBUG=1 shows the traceback", file=sys.stderr)
+        return EXIT_INTERNAL
+
+
+if __name__ == "__main__":
+    sys.exit(main())

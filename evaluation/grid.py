@@ -1,0 +1,186 @@
+"""Cell geometry on the sphere and remapping between latitude-longitude grids.
+
+Areas are exact for cells bounded by two meridians and two parallels:
+``A = R² (sin φ_n − sin φ_s) (λ_e − λ_w)`` with R = 6 371 000 m (IUGG mean radius).
+Remapping weights come from xarray-regrid (conservative and linear); this module only
+prepares the grids (periodic longitude padding) so that global grids map without gaps.
+"""
+
+from __future__ import annotations
+
+from typing import Literal
+
+import numpy as np
+import xarray as xr
+
+from .errors import InputError
+
+__all__ = [
+    "EARTH_RADIUS",
+    "REGRID_METHODS",
+    "cell_area",
+    "infer_bounds",
+    "grid_of",
+    "same_grid",
+    "regrid",
+]
+
+EARTH_RADIUS = 6_371_000.0  # m, IUGG mean radius of the Earth
+REGRID_METHODS = ("conservative", "bilinear")
+RegridMethod = Literal["conservative", "bilinear"]
+
+
+def infer_bounds(centres: np.ndarray, *, kind: Literal["lat", "lon"]) -> np.ndarray:
+    """Cell bounds ``(n, 2)`` from cell centres, half-way between neighbours.
+
+    The outer bounds are extrapolated by half a spacing; latitude bounds are clipped to
+    ±90°.  A single centre gets a cell of 1° (latitude) or the whole circle (longitude).
+    """
+    c = np.asarray(centres, dtype="float64")
+    if c.size == 1:
+        half = 0.5 if kind == "lat" else 180.0
+        edges = np.array([c[0] - half, c[0] + half])
+    else:
+        mid = 0.5 * (c[:-1] + c[1:])
+        edges = np.concatenate([[c[0] - (mid[0] - c[0])], mid, [c[-1] + (c[-1] - mid[-1])]])
+    if kind == "lat":
+        edges = np.clip(edges, -90.0, 90.0)
+    return np.stack([edges[:-1], edges[1:]], axis=1)
+
+
+def cell_area(
+    lat_bnds: np.ndarray | xr.DataArray,
+    lon_bnds: np.ndarray | xr.DataArray,
+    *,
+    radius: float = EARTH_RADIUS,
+    lat: xr.DataArray | np.ndarray | None = None,
+    lon: xr.DataArray | np.ndarray | None = None,
+) -> xr.DataArray:
+    """Exact area (m²) of latitude-longitude cells on a sphere.
+
+    Parameters
+    ----------
+    lat_bnds, lon_bnds
+        Bounds in degrees, shape ``(nlat, 2)`` and ``(nlon, 2)``.
+    radius
+        Sphere radius in metres.
+    lat, lon
+        Cell-centre coordinates for the result; default: the bounds' mid-points.
+
+    Notes
+    -----
+    The sum over a grid that tiles the globe is ``4πR²`` to rounding.  Bounds are taken
+    as given (no sorting), the absolute value of each factor is used so that the order of
+    the two bounds does not matter.
+    """
+    lat_b = np.deg2rad(np.asarray(lat_bnds, dtype="float64"))
+    lon_b = np.deg2rad(np.asarray(lon_bnds, dtype="float64"))
+    dmu = np.abs(np.sin(lat_b[:, 1]) - np.sin(lat_b[:, 0]))
+    dlon = np.abs(lon_b[:, 1] - lon_b[:, 0])
+    area = radius**2 * dmu[:, None] * dlon[None, :]
+    lat_c = np.rad2deg(lat_b.mean(axis=1)) if lat is None else np.asarray(lat)
+    lon_c = np.rad2deg(lon_b.mean(axis=1)) if lon is None else np.asarray(lon)
+    return xr.DataArray(
+        area,
+        dims=("lat", "lon"),
+        coords={"lat": lat_c, "lon": lon_c},
+        name="cell_area",
+        attrs={"units": "m2", "standard_name": "cell_area", "long_name": "area of grid cell"},
+    )
+
+
+def grid_of(obj: xr.DataArray | xr.Dataset) -> xr.Dataset:
+    """The horizontal grid of a normalised object: lat, lon, their bounds and cell areas."""
+    coords = {name: obj.coords[name] for name in ("lat", "lon", "lat_bnds", "lon_bnds", "cell_area") if name in obj.coords}
+    return xr.Dataset(coords=coords)
+
+
+def same_grid(a: xr.DataArray | xr.Dataset, b: xr.DataArray | xr.Dataset, *, atol: float = 1e-6) -> bool:
+    """True when both objects sit on the same latitude-longitude centres."""
+    return (
+        a.sizes["lat"] == b.sizes["lat"]
+        and a.sizes["lon"] == b.sizes["lon"]
+        and bool(np.allclose(a["lat"].values, b["lat"].values, atol=atol))
+        and bool(np.allclose(a["lon"].values, b["lon"].values, atol=atol))
+    )
+
+
+def _is_global_in_lon(lon_bnds: np.ndarray) -> bool:
+    return abs(float(lon_bnds[-1, 1] - lon_bnds[0, 0]) - 360.0) < 1e-6
+
+
+def _pad_periodic(da: xr.DataArray) -> xr.DataArray:
+    """Copy the last/first longitude column to the other side (±360°).
+
+    xarray-regrid masks target cells whose centre lies outside the source's outermost
+    centres; a global source must wrap round instead, so the padding gives it a
+    neighbour across the dateline.  Latitude gets a copy of each outermost row beyond the
+    pole: that row's inferred interval lies entirely past ±90° so it adds no weight, it
+    only keeps polar target cells from being masked.
+    """
+    lon = da["lon"].values
+    left = da.isel(lon=[-1]).assign_coords(lon=[lon[-1] - 360.0])
+    right = da.isel(lon=[0]).assign_coords(lon=[lon[0] + 360.0])
+    padded = xr.concat([left, da, right], dim="lon", coords="minimal", compat="override", join="override")
+    lat = padded["lat"].values
+    if lat.size > 1:
+        south = padded.isel(lat=[0]).assign_coords(lat=[lat[0] - (lat[1] - lat[0])])
+        north = padded.isel(lat=[-1]).assign_coords(lat=[lat[-1] + (lat[-1] - lat[-2])])
+        padded = xr.concat([south, padded, north], dim="lat", coords="minimal", compat="override", join="override")
+    return padded
+
+
+def regrid(
+    da: xr.DataArray,
+    target: xr.Dataset | xr.DataArray,
+    *,
+    method: RegridMethod = "conservative",
+    source_grid: xr.Dataset | None = None,
+) -> xr.DataArray:
+    """Remap a normalised field onto the grid of ``target``.
+
+    Parameters
+    ----------
+    da
+        Field with ``lat``/``lon`` dimensions (canonical names, latitude ascending,
+        longitude in [-180, 180)).  Other dimensions are carried along lazily.
+    target
+        Any normalised object; only its ``lat``, ``lon`` (and bounds/area) are used.
+    source_grid
+        The source's grid (:func:`grid_of`) when ``da`` does not carry ``lon_bnds``
+        itself (a DataArray cannot); without either, bounds are inferred from centres.
+    method
+        ``"conservative"`` (area-weighted, the default; right for fluxes and means) or
+        ``"bilinear"`` (linear in latitude and longitude; right for smooth fields when a
+        conservative map is not wanted).
+
+    Notes
+    -----
+    NaN cells are skipped by the conservative map (a target cell is valid where any
+    valid source area overlaps it) and propagate through the bilinear one.  The result
+    carries the target's grid coordinates, including ``cell_area``.
+    """
+    if method not in REGRID_METHODS:
+        raise InputError(f"unknown regrid method '{method}'", remedy=f"use one of {', '.join(REGRID_METHODS)}")
+    import xarray_regrid  # noqa: F401  (registers the .regrid accessor)
+
+    target_grid = xr.Dataset(coords={"lat": target["lat"].values, "lon": target["lon"].values})
+    source = da.drop_vars([c for c in ("lat_bnds", "lon_bnds", "cell_area") if c in da.coords])
+    if source_grid is not None and "lon_bnds" in source_grid.coords:
+        lon_bnds = source_grid["lon_bnds"].values
+    elif "lon_bnds" in da.coords:
+        lon_bnds = da["lon_bnds"].values
+    else:
+        lon_bnds = infer_bounds(da["lon"].values, kind="lon")
+    if _is_global_in_lon(lon_bnds):
+        source = _pad_periodic(source)
+    time_dim = "time" if "time" in source.dims else None
+    if method == "conservative":
+        out = source.regrid.conservative(target_grid, latitude_coord="lat", time_dim=time_dim, skipna=True)
+    else:
+        out = source.regrid.linear(target_grid, time_dim=time_dim)
+    out = out.assign_coords(lat=target["lat"].values, lon=target["lon"].values)
+    if "cell_area" in target.coords:
+        out = out.assign_coords(cell_area=target.coords["cell_area"])
+    out.attrs = dict(da.attrs)
+    return out

@@ -1,0 +1,499 @@
+"""Open CF-NetCDF files lazily and bring them into one canonical form.
+
+This is the only module that opens data files.  After :func:`open_source` every dataset
+has
+
+* the dimensions ``time``, ``lat``, ``lon`` (found by CF attributes, not by name),
+* latitude ascending and longitude in [-180, 180), ascending (wrap-around handled),
+* cell bounds ``lat_bnds (lat, nv)`` / ``lon_bnds (lon, nv)``, read from the ``bounds``
+  attribute or inferred half-way between centres,
+* the coordinate ``cell_area (lat, lon)`` in m², from ``cell_measures`` when the files
+  carry the area variable, else exact on the sphere from the bounds,
+* times as cftime objects in the file's own calendar.
+
+Data stay lazy (dask) throughout.
+"""
+
+from __future__ import annotations
+
+import glob
+import os
+import re
+import threading
+from collections.abc import Iterable, Sequence
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+import xarray as xr
+
+from .errors import InputError
+from .grid import cell_area, infer_bounds
+
+__all__ = [
+    "CF_CALENDARS",
+    "FileIdentity",
+    "expand_paths",
+    "file_identity",
+    "find_axis",
+    "variables_in",
+    "open_source",
+    "normalise",
+    "get_variable",
+    "check_files",
+]
+
+CF_CALENDARS = (
+    "standard",
+    "gregorian",
+    "proleptic_gregorian",
+    "noleap",
+    "365_day",
+    "all_leap",
+    "366_day",
+    "360_day",
+    "julian",
+)
+
+# CF criteria as plain tables (cf-conventions 1.10, sections 4.1-4.4).
+_LAT_UNITS = {"degrees_north", "degree_north", "degree_n", "degrees_n", "degreen", "degreesn"}
+_LON_UNITS = {"degrees_east", "degree_east", "degree_e", "degrees_e", "degreee", "degreese"}
+_TIME_UNITS = re.compile(r"^\s*\w+\s+since\s+", re.IGNORECASE)
+_AXIS_CRITERIA = {
+    "lat": {"standard_name": {"latitude"}, "axis": "Y", "units": _LAT_UNITS},
+    "lon": {"standard_name": {"longitude"}, "axis": "X", "units": _LON_UNITS},
+    "time": {"standard_name": {"time"}, "axis": "T", "units": None},
+}
+
+# netCDF-C/HDF5 are not thread-safe (pydata/xarray#4100): every open goes through one lock.
+_OPEN_LOCK = threading.RLock()
+
+
+@dataclass(frozen=True)
+class FileIdentity:
+    """What identifies the content of an input file for provenance and caching."""
+
+    path: str
+    size: int
+    modified: float
+
+
+def expand_paths(paths: str | os.PathLike[str] | Iterable[str | os.PathLike[str]], *, source: str | None = None) -> list[str]:
+    """Expand a file, a quoted glob or a list of either into sorted absolute paths.
+
+    Raises :class:`InputError` when a pattern matches nothing or a named file is absent.
+    """
+    items = [paths] if isinstance(paths, (str, os.PathLike)) else list(paths)
+    if not items:
+        raise InputError("no input files given", file=source, remedy="give a file, a quoted glob or a list of files")
+    found: list[str] = []
+    for item in items:
+        text = os.path.expanduser(str(item))
+        if glob.has_magic(text):
+            matches = sorted(glob.glob(text))
+            if not matches:
+                raise InputError("the pattern matches no file", file=text, remedy="check the folder and the quoting of the glob")
+            found.extend(matches)
+        elif os.path.isfile(text):
+            found.append(text)
+        elif os.path.isdir(text):
+            raise InputError("is a folder, not a file", file=text, remedy=f"give a glob such as '{os.path.join(text, '*.nc')}'")
+        else:
+            raise InputError("file not found", file=text, remedy="check the path")
+    return sorted({os.path.abspath(f) for f in found})
+
+
+def file_identity(paths: Sequence[str]) -> list[FileIdentity]:
+    """Path, size and modification time of each file (for provenance and cache keys)."""
+    out = []
+    for p in paths:
+        st = os.stat(p)
+        out.append(FileIdentity(path=os.path.abspath(p), size=st.st_size, modified=st.st_mtime))
+    return out
+
+
+def _attr(var: xr.Variable | xr.DataArray, key: str) -> str | None:
+    """An attribute that xarray may have moved to ``encoding`` while decoding."""
+    value = var.attrs.get(key, var.encoding.get(key))
+    return None if value is None else str(value)
+
+
+def find_axis(ds: xr.Dataset, axis: str) -> str | None:
+    """Name of the 1-D coordinate that CF attributes identify as ``lat``, ``lon`` or ``time``.
+
+    Looks at ``standard_name``, then ``axis``, then ``units``; names are never used.
+    """
+    rules = _AXIS_CRITERIA[axis]
+    candidates = [name for name in ds.variables if ds[name].ndim == 1 and ds[name].dims[0] == name]
+    for key in ("standard_name", "axis", "units"):
+        for name in candidates:
+            var = ds.variables[name]
+            value = _attr(var, key)
+            if value is None:
+                continue
+            if key == "standard_name" and value in rules["standard_name"]:
+                return str(name)
+            if key == "axis" and value.upper() == rules["axis"]:
+                return str(name)
+            if key == "units":
+                if axis == "time":
+                    if _TIME_UNITS.match(value) or np.issubdtype(var.dtype, np.datetime64) or var.dtype == object:
+                        return str(name)
+                elif value.strip().lower() in rules["units"]:
+                    return str(name)
+    return None
+
+
+def _is_gridded(var: xr.DataArray, lat: str, lon: str) -> bool:
+    return lat in var.dims and lon in var.dims
+
+
+def _matches(var: xr.Variable, name: str, wanted: str) -> bool:
+    return name == wanted or _attr(var, "standard_name") == wanted
+
+
+# Variable listings are cached by file identity so that repeated look-ups (the dashboard
+# building its menus, every request deciding which files hold a variable) cost one stat.
+_LISTING_CACHE: dict[FileIdentity, dict[str, dict[str, str]]] = {}
+
+
+def _listing(path: str) -> dict[str, dict[str, str]]:
+    ident = file_identity([path])[0]
+    if ident in _LISTING_CACHE:
+        return _LISTING_CACHE[ident]
+    try:
+        with _OPEN_LOCK, xr.open_dataset(path, decode_times=False, decode_cf=False) as ds:
+            lat, lon = find_axis(ds, "lat"), find_axis(ds, "lon")
+            out = {}
+            for name, var in ds.data_vars.items():
+                if lat and lon and _is_gridded(var, lat, lon):
+                    out[str(name)] = {
+                        "standard_name": str(var.attrs.get("standard_name", "")),
+                        "units": str(var.attrs.get("units", "")),
+                        "long_name": str(var.attrs.get("long_name", "")),
+                        "has_time": str(any(find_axis(ds, "time") == d for d in var.dims)),
+                    }
+    except InputError:
+        raise
+    except Exception as exc:  # any failure of the netCDF/HDF5 readers
+        raise _unreadable(path, exc) from None
+    _LISTING_CACHE[ident] = out
+    return out
+
+
+def _unreadable(path: str, exc: BaseException) -> InputError:
+    text = " ".join(str(exc).split())[:160] or type(exc).__name__
+    return InputError(
+        f"cannot read the file ({text})",
+        file=path,
+        remedy="check that it is a complete NetCDF file (a truncated copy or another format cannot be read)",
+    )
+
+
+def variables_in(paths: Sequence[str]) -> dict[str, dict[str, str]]:
+    """Gridded variables found in the files: name -> {standard_name, units, long_name}."""
+    out: dict[str, dict[str, str]] = {}
+    for p in paths:
+        for name, meta in _listing(p).items():
+            out.setdefault(name, meta)
+    return out
+
+
+def _files_with(paths: Sequence[str], variable: str) -> list[str]:
+    chosen = []
+    for p in paths:
+        listing = _listing(p)
+        if any(name == variable or meta["standard_name"] == variable for name, meta in listing.items()):
+            chosen.append(p)
+    return chosen
+
+
+def open_source(
+    paths: str | Iterable[str],
+    *,
+    variables: Sequence[str] | None = None,
+    source: str | None = None,
+    chunks: dict[str, int] | None = None,
+) -> xr.Dataset:
+    """Open one source lazily and normalise it.
+
+    Parameters
+    ----------
+    paths
+        A file, a quoted glob or a list of files (already expanded or not).
+    variables
+        When given, only the files holding one of these variables (by name or CF
+        standard_name) are opened, plus files holding fixed fields (cell area, land
+        fraction) the variables point to.
+    source
+        Name of the source, used in messages.
+    chunks
+        Dask chunks; default one chunk of 120 time steps (ten years of months).
+
+    Raises
+    ------
+    InputError
+        Unreadable or truncated file, no latitude/longitude/time, unknown calendar,
+        non-monthly data.
+    """
+    files = expand_paths(paths, source=source)
+    if variables:
+        wanted = []
+        for v in variables:
+            wanted.extend(_files_with(files, v))
+        fixed = [p for p in files if any(m["has_time"] == "False" for m in _listing(p).values())]
+        files_to_open = sorted(set(wanted) | set(fixed))
+        if not wanted:
+            names = ", ".join(sorted(variables_in(files))) or "none"
+            raise InputError(
+                f"no variable '{', '.join(variables)}' (by name or standard_name); variables found: {names}",
+                file=source or files,
+                remedy="choose a variable the files hold, or add the files that hold it",
+            )
+    else:
+        files_to_open = files
+    chunks = {"time": 120} if chunks is None else chunks
+    coder = xr.coders.CFDatetimeCoder(use_cftime=True)
+    timed = [p for p in files_to_open if any(m["has_time"] == "True" for m in _listing(p).values())]
+    untimed = [p for p in files_to_open if p not in timed]
+    try:
+        with _OPEN_LOCK:
+            parts = []
+            if timed:
+                if len(timed) == 1:
+                    parts.append(xr.open_dataset(timed[0], decode_times=coder, chunks=chunks))
+                else:
+                    parts.append(
+                        xr.open_mfdataset(
+                            timed,
+                            decode_times=coder,
+                            chunks=chunks,
+                            combine="by_coords",
+                            data_vars="minimal",
+                            coords="minimal",
+                            compat="override",
+                            join="outer",
+                            parallel=False,
+                        )
+                    )
+            for p in untimed:
+                parts.append(xr.open_dataset(p, decode_times=coder, chunks={}))
+    except InputError:
+        raise
+    except Exception as exc:
+        raise _classify_open_error(files_to_open, exc) from None
+    ds = parts[0] if len(parts) == 1 else xr.merge(parts, compat="override", join="override", combine_attrs="drop_conflicts")
+    ds.attrs.setdefault("gridscore_files", "\n".join(files_to_open))
+    return normalise(ds, source=source or (files_to_open[0] if len(files_to_open) == 1 else None), files=files_to_open)
+
+
+def _classify_open_error(files: Sequence[str], exc: BaseException) -> InputError:
+    text = " ".join(str(exc).split())
+    where = files[0] if len(files) == 1 else f"{files[0]} (+{len(files) - 1} more)"
+    if "calendar" in text.lower():
+        return InputError(
+            f"unknown or unsupported calendar ({text[:120]})",
+            file=where,
+            remedy=f"set the time variable's calendar attribute to one of {', '.join(CF_CALENDARS)}",
+        )
+    if "unable to decode time" in text.lower() or "since" in text.lower():
+        return InputError(f"cannot decode the time axis ({text[:120]})", file=where, remedy="give time CF units such as 'days since 1850-01-01'")
+    if len(files) > 1 and ("monotonic" in text.lower() or "concat" in text.lower() or "combine" in text.lower()):
+        return InputError(f"the files do not fit together ({text[:120]})", file=where, remedy="give files of one source with the same grid and non-overlapping times")
+    return _unreadable(where, exc)
+
+
+def _bounds_for(ds: xr.Dataset, name: str, *, kind: str) -> np.ndarray:
+    """Bounds ``(n, 2)`` from the variable named by the ``bounds`` attribute, else inferred."""
+    bname = _attr(ds[name], "bounds")
+    if bname and bname in ds.variables:
+        b = np.asarray(ds[bname].values, dtype="float64")
+        if b.ndim == 2 and b.shape == (ds.sizes[name], 2):
+            return b
+    return infer_bounds(ds[name].values, kind="lat" if kind == "lat" else "lon")
+
+
+def normalise(ds: xr.Dataset, *, source: str | os.PathLike[str] | None = None, files: Sequence[str] = ()) -> xr.Dataset:
+    """Canonical names, orientation, bounds and cell areas (see the module docstring).
+
+    Never mutates ``ds``; returns a new dataset.  Data variables without the horizontal
+    dimensions (e.g. time bounds) are dropped.
+    """
+    where = source if source is not None else (files[0] if files else None)
+    names = {axis: find_axis(ds, axis) for axis in ("lat", "lon", "time")}
+    for axis, remedy in (
+        ("lat", "give the latitude coordinate standard_name='latitude' or units='degrees_north'"),
+        ("lon", "give the longitude coordinate standard_name='longitude' or units='degrees_east'"),
+    ):
+        if names[axis] is None:
+            raise InputError(f"no {'latitude' if axis == 'lat' else 'longitude'} coordinate found by CF attributes", file=where, remedy=remedy)
+    lat_name, lon_name, time_name = names["lat"], names["lon"], names["time"]
+    assert lat_name is not None and lon_name is not None
+    lat_b = _bounds_for(ds, lat_name, kind="lat")
+    lon_b = _bounds_for(ds, lon_name, kind="lon")
+
+    keep = [v for v in ds.data_vars if lat_name in ds[v].dims and lon_name in ds[v].dims]
+    out = ds[keep]
+    drop = [c for c in out.coords if c not in (lat_name, lon_name, time_name) and out[c].ndim > 0 and not set(out[c].dims) <= {lat_name, lon_name, time_name}]
+    out = out.drop_vars(drop)
+    rename = {lat_name: "lat", lon_name: "lon"}
+    if time_name is not None:
+        rename[time_name] = "time"
+    out = out.rename({k: v for k, v in rename.items() if k != v})
+    for v in out.data_vars:
+        extra = [d for d in out[v].dims if d not in ("time", "lat", "lon")]
+        if extra:
+            # a single level (e.g. height = 2 m) is squeezed; several levels are not ours to pick
+            if all(out.sizes[d] == 1 for d in extra):
+                out[v] = out[v].squeeze(extra, drop=True)
+            else:
+                out = out.drop_vars(v)
+    leftover = [d for d in out.dims if d not in ("time", "lat", "lon")]
+    if leftover:
+        out = out.drop_dims(leftover, errors="ignore")
+
+    # latitude ascending
+    lat = out["lat"].values.astype("float64")
+    if lat.size > 1 and lat[0] > lat[-1]:
+        out = out.isel(lat=slice(None, None, -1))
+        lat_b = lat_b[::-1]
+        lat = lat[::-1]
+    lat_b = np.sort(lat_b, axis=1)
+
+    # longitude in [-180, 180), ascending; bounds move with their centre
+    lon = out["lon"].values.astype("float64")
+    new_lon = ((lon + 180.0) % 360.0) - 180.0
+    lon_b = np.sort(lon_b, axis=1) + (new_lon - lon)[:, None]
+    order = np.argsort(new_lon, kind="stable")
+    out = out.isel(lon=order)
+    new_lon, lon_b = new_lon[order], lon_b[order]
+
+    out = out.assign_coords(
+        lat=("lat", lat, {"standard_name": "latitude", "units": "degrees_north", "axis": "Y", "bounds": "lat_bnds"}),
+        lon=("lon", new_lon, {"standard_name": "longitude", "units": "degrees_east", "axis": "X", "bounds": "lon_bnds"}),
+    )
+    out = out.assign_coords(lat_bnds=(("lat", "nv"), lat_b), lon_bnds=(("lon", "nv"), lon_b))
+    out = out.assign_coords(cell_area=_cell_area_for(ds, out, keep, lat_name, lon_name, order, where))
+    if "time" in out.dims:
+        _check_time(out, where)
+    out.attrs = dict(ds.attrs)
+    return out
+
+
+def _cell_area_for(ds: xr.Dataset, out: xr.Dataset, keep: list, lat_name: str, lon_name: str, order: np.ndarray, where) -> xr.DataArray:
+    """Cell areas from ``cell_measures: area: NAME`` when present (m²), else exact."""
+    exact = cell_area(out["lat_bnds"].values, out["lon_bnds"].values, lat=out["lat"].values, lon=out["lon"].values)
+    for v in keep:
+        measures = _attr(ds[v], "cell_measures") or ""
+        m = re.search(r"area:\s*(\S+)", measures)
+        if m and m.group(1) in ds.variables:
+            area = ds[m.group(1)]
+            if set(area.dims) == {lat_name, lon_name} and str(area.attrs.get("units", "m2")).replace(" ", "") in ("m2", "m^2", "m**2"):
+                area = area.rename({lat_name: "lat", lon_name: "lon"}).transpose("lat", "lon")
+                values = np.asarray(area.values, dtype="float64")
+                lat0 = ds[lat_name].values
+                if lat0.size > 1 and lat0[0] > lat0[-1]:
+                    values = values[::-1]
+                values = values[:, order]
+                return exact.copy(data=values)
+    return exact
+
+
+def _check_time(ds: xr.Dataset, where) -> None:
+    t = ds["time"]
+    calendar = t.encoding.get("calendar", t.attrs.get("calendar", "standard"))
+    if str(calendar).lower() not in CF_CALENDARS:
+        raise InputError(f"unknown calendar '{calendar}'", file=where, remedy=f"use one of {', '.join(CF_CALENDARS)}")
+    if t.size and not hasattr(t.values[0], "calendar"):
+        raise InputError("the time axis did not decode to dates", file=where, remedy="give the time variable CF units such as 'days since 1850-01-01'")
+    if t.size > 2:
+        months = np.array([v.year * 12 + v.month for v in t.values])
+        steps = np.diff(months)
+        if np.any(steps == 0):
+            raise InputError(
+                "the data are not monthly means (several time steps in one month)",
+                file=where,
+                remedy="give monthly means (e.g. resample with cdo monmean or xarray resample(time='MS'))",
+            )
+        if np.any(steps < 0):
+            raise InputError("the time axis is not increasing", file=where, remedy="sort the files or the time axis")
+
+
+def get_variable(ds: xr.Dataset, name: str, *, source: str | None = None) -> xr.DataArray:
+    """The data variable called ``name`` or having ``standard_name == name``.
+
+    Falls back to the derived-variable registry (:mod:`evaluation.derived`) when the
+    files do not store it.  Raises :class:`InputError` listing the variables found.
+    """
+    if name in ds.data_vars:
+        return ds[name]
+    for vname, var in ds.data_vars.items():
+        if _matches(var.variable, str(vname), name):
+            return var.rename(name)
+    try:
+        from .derived import derive
+    except ImportError:  # the registry is optional for the core
+        derive = None
+    if derive is not None:
+        out = derive(ds, name, source=source)
+        if out is not None:
+            return out
+    found = ", ".join(sorted(map(str, ds.data_vars))) or "none"
+    raise InputError(
+        f"no variable '{name}' (by name or standard_name); variables found: {found}",
+        file=source or ds.attrs.get("gridscore_files", "").split("\n")[0] or None,
+        remedy="choose a variable the files hold",
+    )
+
+
+def check_files(paths: Sequence[str]) -> tuple[list[str], list[str]]:
+    """What the files hold and every CF problem found, as lines for people.
+
+    Returns ``(found, problems)``.  Problems are one line each; the check never raises
+    for content problems, only :class:`InputError` for a path that does not exist.
+    """
+    files = expand_paths(paths)
+    found: list[str] = []
+    problems: list[str] = []
+    for path in files:
+        try:
+            with _OPEN_LOCK, xr.open_dataset(path, decode_times=False, decode_cf=False) as raw:
+                _cf_problems(raw, path, problems)
+            ds = open_source([path], source=path)
+        except InputError as err:
+            problems.append(err.message)
+            continue
+        variables = [f"{v} [{ds[v].attrs.get('units', '?')}]" for v in ds.data_vars]
+        line = f"{path}: variables {', '.join(variables) or 'none'}; grid {ds.sizes['lat']}x{ds.sizes['lon']}"
+        if "time" in ds.dims and ds.sizes["time"]:
+            t = ds["time"].values
+            calendar = ds["time"].encoding.get("calendar", "standard")
+            line += f"; calendar {calendar}; {t[0].year:04d}-{t[0].month:02d} to {t[-1].year:04d}-{t[-1].month:02d} ({t.size} steps)"
+        found.append(line)
+    return found, problems
+
+
+def _cf_problems(raw: xr.Dataset, path: str, problems: list[str]) -> None:
+    """Attribute-level CF problems in an undecoded dataset (one line each)."""
+    if "Conventions" not in raw.attrs:
+        problems.append(f"{path}: no global 'Conventions' attribute — add Conventions = 'CF-1.10'")
+    for axis, label in (("lat", "latitude"), ("lon", "longitude"), ("time", "time")):
+        name = find_axis(raw, axis)
+        if name is None:
+            if axis != "time":
+                problems.append(f"{path}: no {label} coordinate found by CF attributes — add standard_name='{label}' and units")
+            continue
+        var = raw[name]
+        if "units" not in var.attrs:
+            problems.append(f"{path}: coordinate '{name}' has no units attribute")
+        if axis in ("lat", "lon") and "bounds" not in var.attrs:
+            problems.append(f"{path}: coordinate '{name}' has no bounds (they will be inferred half-way between centres)")
+        if axis == "time" and "calendar" not in var.attrs:
+            problems.append(f"{path}: time has no calendar attribute (CF default 'standard' is assumed)")
+    lat, lon = find_axis(raw, "lat"), find_axis(raw, "lon")
+    for vname, var in raw.data_vars.items():
+        if lat and lon and _is_gridded(var, lat, lon):
+            if "units" not in var.attrs:
+                problems.append(f"{path}: variable '{vname}' has no units attribute — units cannot be checked or converted")
+            if "standard_name" not in var.attrs:
+                problems.append(f"{path}: variable '{vname}' has no standard_name — it can only be matched by name")

@@ -1,0 +1,176 @@
+"""Regions as a fractional weight per grid cell.
+
+A region is never a hard cut: a cell half inside a latitude band counts half (by area,
+i.e. by the difference of the sines of its latitude bounds), a cell that is 30 % land
+counts 0.3 towards ``land`` and 0.7 towards ``ocean``.  Boxes ``box:S,N,W,E`` may cross
+the dateline (W > E, e.g. ``box:-5,5,160,-150``).
+"""
+
+from __future__ import annotations
+
+import re
+from dataclasses import dataclass
+from functools import lru_cache
+from importlib import resources
+
+import numpy as np
+import xarray as xr
+
+from .errors import InputError
+
+__all__ = ["Region", "REGIONS", "parse_region", "region_weights", "land_fraction", "bundled_land_fraction"]
+
+
+@dataclass(frozen=True)
+class Region:
+    """A latitude-longitude box, optionally restricted to land or ocean."""
+
+    id: str
+    label: str
+    south: float = -90.0
+    north: float = 90.0
+    west: float = -180.0
+    east: float = 180.0
+    surface: str | None = None  # None, "land" or "ocean"
+
+    @property
+    def definition(self) -> str:
+        text = f"{_lat(self.south)} to {_lat(self.north)}"
+        if not (self.west == -180.0 and self.east == 180.0):
+            text += f", {_lon(self.west)} to {_lon(self.east)}"
+        if self.surface:
+            text += f", {self.surface} fraction of each cell"
+        return text
+
+
+def _lat(v: float) -> str:
+    return f"{abs(v):g}°{'S' if v < 0 else 'N'}" if v else "0°"
+
+
+def _lon(v: float) -> str:
+    return f"{abs(v):g}°{'W' if v < 0 else 'E'}" if v else "0°"
+
+
+REGIONS: dict[str, Region] = {
+    r.id: r
+    for r in (
+        Region("global", "Global"),
+        Region("tropics", "Tropics (30°S–30°N)", -30.0, 30.0),
+        Region("nh-extratropics", "Northern extratropics (30°N–90°N)", 30.0, 90.0),
+        Region("sh-extratropics", "Southern extratropics (90°S–30°S)", -90.0, -30.0),
+        Region("arctic", "Arctic (60°N–90°N)", 60.0, 90.0),
+        Region("antarctic", "Antarctic (90°S–60°S)", -90.0, -60.0),
+        Region("land", "Global land", surface="land"),
+        Region("ocean", "Global ocean", surface="ocean"),
+    )
+}
+
+_NUM = r"\s*([-+]?\d+(?:\.\d*)?)\s*"
+_BOX = re.compile(rf"^box:{_NUM},{_NUM},{_NUM},{_NUM}$", re.IGNORECASE)
+
+
+def parse_region(text: str | Region) -> Region:
+    """A region id of :data:`REGIONS` or ``box:S,N,W,E`` (degrees) -> :class:`Region`."""
+    if isinstance(text, Region):
+        return text
+    key = str(text).strip()
+    if key.lower() in REGIONS:
+        return REGIONS[key.lower()]
+    m = _BOX.match(key)
+    if not m:
+        raise InputError(
+            f"unknown region '{text}'",
+            remedy=f"use one of {' '.join(REGIONS)} or box:S,N,W,E in degrees (e.g. box:-10,10,160,-150)",
+        )
+    s, n, w, e = (float(g) for g in m.groups())
+    if not (-90.0 <= s < n <= 90.0):
+        raise InputError(f"region '{text}': south must be below north, both within -90..90", remedy="write box:S,N,W,E, e.g. box:30,60,-10,40")
+    if not (-180.0 <= w <= 360.0 and -180.0 <= e <= 360.0) or w == e:
+        raise InputError(f"region '{text}': west and east must differ and lie within -180..360", remedy="write box:S,N,W,E, e.g. box:30,60,-10,40")
+    canonical = f"box:{s:g},{n:g},{w:g},{e:g}"
+    return Region(canonical, f"Box {_lat(s)}–{_lat(n)}, {_lon(w)}–{_lon(e)}", s, n, w, e)
+
+
+def _lat_fraction(lat_bnds: np.ndarray, south: float, north: float) -> np.ndarray:
+    """Area fraction of each latitude row inside [south, north]."""
+    lo, hi = np.deg2rad(lat_bnds[:, 0]), np.deg2rad(lat_bnds[:, 1])
+    s, n = np.deg2rad(south), np.deg2rad(north)
+    inside = np.clip(np.sin(np.minimum(hi, n)) - np.sin(np.maximum(lo, s)), 0.0, None)
+    return inside / (np.sin(hi) - np.sin(lo))
+
+
+def _lon_fraction(lon_bnds: np.ndarray, west: float, east: float) -> np.ndarray:
+    """Fraction of each longitude column inside the arc from ``west`` eastwards to ``east``."""
+    width = (east - west) % 360.0
+    if width == 0.0:
+        width = 360.0
+    lo, hi = lon_bnds[:, 0], lon_bnds[:, 1]
+    total = np.zeros(lo.size)
+    for shift in (-720.0, -360.0, 0.0, 360.0, 720.0):
+        a, b = west + shift, west + shift + width
+        total += np.clip(np.minimum(hi, b) - np.maximum(lo, a), 0.0, None)
+    return np.clip(total / (hi - lo), 0.0, 1.0)
+
+
+def region_weights(region: str | Region, grid: xr.Dataset | xr.DataArray, *, land: xr.DataArray | None = None) -> xr.DataArray:
+    """Fraction (0…1) of each cell's area that belongs to ``region``.
+
+    Parameters
+    ----------
+    region
+        Region id, ``box:S,N,W,E`` or a :class:`Region`.
+    grid
+        Normalised object carrying ``lat_bnds`` and ``lon_bnds``.
+    land
+        Land fraction (0…1) on the same grid, needed for ``land``/``ocean``; default the
+        bundled land fraction remapped to the grid.
+
+    Notes
+    -----
+    Multiply by ``cell_area`` to get area weights.  NaN never occurs: cells outside the
+    region have weight 0.
+    """
+    r = parse_region(region)
+    lat_f = _lat_fraction(np.asarray(grid["lat_bnds"].values, dtype="float64"), r.south, r.north)
+    lon_f = _lon_fraction(np.asarray(grid["lon_bnds"].values, dtype="float64"), r.west, r.east)
+    frac = xr.DataArray(lat_f[:, None] * lon_f[None, :], dims=("lat", "lon"), coords={"lat": grid["lat"].values, "lon": grid["lon"].values})
+    if r.surface is not None:
+        lf = land_fraction(grid) if land is None else land
+        lf = lf.fillna(0.0).clip(0.0, 1.0)
+        frac = frac * (lf.values if r.surface == "land" else 1.0 - lf.values)
+    frac.name = "region_fraction"
+    frac.attrs = {"long_name": f"fraction of cell in region {r.id}", "units": "1"}
+    return frac
+
+
+@lru_cache(maxsize=1)
+def bundled_land_fraction() -> xr.Dataset:
+    """The 1° land fraction that ships with the package (see scripts/make_land_fraction.py)."""
+    from .io import normalise
+
+    ref = resources.files("evaluation") / "data" / "land_fraction_1deg.nc"
+    with resources.as_file(ref) as path:
+        with xr.open_dataset(path) as ds:
+            loaded = ds.load()
+    return normalise(loaded, source=str(path))
+
+
+_LAND_CACHE: dict[tuple, xr.DataArray] = {}
+
+
+def land_fraction(grid: xr.Dataset | xr.DataArray) -> xr.DataArray:
+    """The bundled land fraction remapped conservatively onto ``grid`` (0…1)."""
+    key = (tuple(np.round(grid["lat"].values, 6)), tuple(np.round(grid["lon"].values, 6)))
+    if key not in _LAND_CACHE:
+        from .grid import regrid, same_grid
+
+        src = bundled_land_fraction()
+        lf = src["sftlf"].astype("float64")
+        if str(lf.attrs.get("units", "1")).strip() in ("%", "percent"):
+            lf = lf / 100.0
+        out = lf if same_grid(lf, grid) else regrid(lf, grid, method="conservative")
+        out = out.fillna(0.0).clip(0.0, 1.0)
+        if len(_LAND_CACHE) > 32:
+            _LAND_CACHE.clear()
+        _LAND_CACHE[key] = out.drop_vars([c for c in out.coords if c not in ("lat", "lon")])
+    return _LAND_CACHE[key]

@@ -1,0 +1,225 @@
+"""Periods, seasons and month-length weights in any CF calendar.
+
+A season is a tuple of months.  Seasons that cross the turn of the year (DJF) are
+labelled by the year of their January, so DJF 1991 is December 1990 + January and
+February 1991.  A season counts only where all its months are in the data.  Means over a
+season weight each month by its length in the file's own calendar (a 360_day February
+has 30 days, a noleap February 28).
+"""
+
+from __future__ import annotations
+
+import re
+from collections.abc import Iterable
+from dataclasses import dataclass
+
+import numpy as np
+import xarray as xr
+
+from .errors import InputError
+
+__all__ = [
+    "SEASONS",
+    "MONTH_NAMES",
+    "WMO_NORMAL",
+    "Period",
+    "parse_period",
+    "parse_season",
+    "season_label_years",
+    "season_means",
+    "climatology",
+    "monthly_climatology",
+    "complete_years",
+    "default_period",
+]
+
+MONTH_NAMES = ("JAN", "FEB", "MAR", "APR", "MAY", "JUN", "JUL", "AUG", "SEP", "OCT", "NOV", "DEC")
+SEASONS: dict[str, tuple[int, ...]] = {
+    "ANN": tuple(range(1, 13)),
+    "DJF": (12, 1, 2),
+    "MAM": (3, 4, 5),
+    "JJA": (6, 7, 8),
+    "SON": (9, 10, 11),
+    **{name: (i + 1,) for i, name in enumerate(MONTH_NAMES)},
+}
+
+
+@dataclass(frozen=True, order=True)
+class Period:
+    """Inclusive range of season label years, written ``YYYY-YYYY``."""
+
+    start: int
+    end: int
+
+    def __post_init__(self) -> None:
+        if self.end < self.start:
+            raise InputError(f"period {self.start}-{self.end} ends before it starts", remedy="write the earlier year first, e.g. 1991-2020")
+
+    def __str__(self) -> str:
+        return f"{self.start:04d}-{self.end:04d}"
+
+    @property
+    def years(self) -> np.ndarray:
+        return np.arange(self.start, self.end + 1)
+
+    @property
+    def length(self) -> int:
+        return self.end - self.start + 1
+
+    def covers(self, other: Period) -> bool:
+        return self.start <= other.start and other.end <= self.end
+
+
+# The latest WMO 30-year standard climatological normal (WMO-No. 1203, 2017).
+WMO_NORMAL = Period(1991, 2020)
+
+_PERIOD = re.compile(r"^\s*(\d{1,4})\s*[-–/:]\s*(\d{1,4})\s*$")
+
+
+def parse_period(text: str | Period) -> Period:
+    """``"1981-2010"`` -> ``Period(1981, 2010)``; raises :class:`InputError` otherwise."""
+    if isinstance(text, Period):
+        return text
+    m = _PERIOD.match(str(text))
+    if not m:
+        raise InputError(f"cannot read the period '{text}'", remedy="write it as inclusive years YYYY-YYYY, e.g. 1991-2020")
+    return Period(int(m.group(1)), int(m.group(2)))
+
+
+def parse_season(text: str) -> str:
+    """Canonical season id (upper case) or :class:`InputError`."""
+    season = str(text).strip().upper()
+    if season not in SEASONS:
+        raise InputError(f"unknown season '{text}'", remedy=f"use one of {' '.join(SEASONS)}")
+    return season
+
+
+def _month_year(time: xr.DataArray) -> tuple[np.ndarray, np.ndarray]:
+    values = time.values
+    return (np.fromiter((t.month for t in values), dtype=int, count=values.size),
+            np.fromiter((t.year for t in values), dtype=int, count=values.size))
+
+
+def season_label_years(time: xr.DataArray, season: str) -> np.ndarray:
+    """The season label year of each time step (``-1`` for months outside the season).
+
+    For a season that crosses the turn of the year (DJF), months at or after its first
+    month belong to the next year's label.
+    """
+    months = SEASONS[parse_season(season)]
+    month, year = _month_year(time)
+    label = year.copy()
+    if months[0] > months[-1]:
+        label = np.where(month >= months[0], year + 1, year)
+    return np.where(np.isin(month, months), label, -1)
+
+
+def _complete_steps(time: xr.DataArray, season: str, period: Period | None) -> tuple[np.ndarray, np.ndarray]:
+    """Indices of the time steps that belong to complete seasons, and their labels."""
+    months = SEASONS[parse_season(season)]
+    label = season_label_years(time, season)
+    month, _ = _month_year(time)
+    inside = label >= 0
+    if period is not None:
+        inside &= (label >= period.start) & (label <= period.end)
+    idx = np.flatnonzero(inside)
+    # a season is complete when each of its months occurs exactly once
+    keep = []
+    for y in np.unique(label[idx]):
+        steps = idx[label[idx] == y]
+        if sorted(month[steps].tolist()) == sorted(months):
+            keep.append(steps)
+    if not keep:
+        return np.array([], dtype=int), np.array([], dtype=int)
+    steps = np.concatenate(keep)
+    return steps, label[steps]
+
+
+def season_means(da: xr.DataArray, season: str, period: Period | str | None = None) -> xr.DataArray:
+    """Yearly means over a season, weighted by month length in the file's calendar.
+
+    Parameters
+    ----------
+    da
+        Monthly field with a cftime ``time`` dimension.
+    season
+        ``ANN``, ``DJF`` … or a month ``JAN`` … ``DEC``.
+    period
+        Inclusive label years; ``None`` keeps every complete season.
+
+    Returns
+    -------
+    DataArray
+        ``time`` replaced by ``year`` (the season label), float64, lazy for dask input.
+
+    Notes
+    -----
+    A season enters only when all its months are present.  A cell that is NaN in any
+    month of a season is NaN for that season (no partial means).  An empty selection
+    gives a ``year`` dimension of length 0.
+    """
+    period = None if period is None else parse_period(period)
+    steps, labels = _complete_steps(da["time"], season, period)
+    sub = da.isel(time=steps).astype("float64")
+    weights = sub["time"].dt.days_in_month.astype("float64")
+    label = xr.DataArray(labels, dims="time", name="year")
+    sub = sub.assign_coords(year=label)
+    weights = weights.assign_coords(year=label)
+    if steps.size == 0:
+        empty = sub.isel(time=slice(0, 0)).rename(time="year").drop_vars("year").assign_coords(year=np.array([], dtype=int))
+        return empty
+    total = (sub * weights).groupby("year").sum(dim="time", skipna=False)
+    norm = weights.groupby("year").sum(dim="time")
+    out = total / norm
+    out.attrs = dict(da.attrs)
+    out.attrs["cell_methods"] = f"time: mean within years ({season}, weighted by month length)"
+    return out.drop_vars([c for c in out.coords if "time" in out[c].dims], errors="ignore")
+
+
+def climatology(series: xr.DataArray) -> xr.DataArray:
+    """Mean over ``year`` of yearly season means (NaN in any year gives NaN)."""
+    out = series.mean("year", skipna=False)
+    out.attrs = dict(series.attrs)
+    return out
+
+
+def monthly_climatology(da: xr.DataArray, period: Period | str | None = None) -> xr.DataArray:
+    """Mean of each calendar month over the years of ``period`` (dimension ``month``)."""
+    month, year = _month_year(da["time"])
+    sel = np.ones(month.size, dtype=bool)
+    if period is not None:
+        p = parse_period(period)
+        sel = (year >= p.start) & (year <= p.end)
+    sub = da.isel(time=np.flatnonzero(sel)).astype("float64")
+    sub = sub.assign_coords(month=("time", month[sel]))
+    out = sub.groupby("month").mean("time", skipna=False)
+    out.attrs = dict(da.attrs)
+    return out
+
+
+def complete_years(time: xr.DataArray) -> Period | None:
+    """First and last calendar years that have all twelve months, or ``None``."""
+    steps, labels = _complete_steps(time, "ANN", None)
+    if labels.size == 0:
+        return None
+    return Period(int(labels.min()), int(labels.max()))
+
+
+def default_period(spans: Iterable[Period | None], *, names: Iterable[str] | None = None) -> Period:
+    """WMO 1991-2020 when every source covers it, else the overlap of all sources.
+
+    Raises :class:`InputError` when the sources share no complete year.
+    """
+    spans = list(spans)
+    labels = list(names) if names is not None else [f"source {i + 1}" for i in range(len(spans))]
+    for span, name in zip(spans, labels, strict=True):
+        if span is None:
+            raise InputError("no complete year of monthly data", file=name, remedy="give at least twelve consecutive months")
+    valid = [s for s in spans if s is not None]
+    if all(s.covers(WMO_NORMAL) for s in valid):
+        return WMO_NORMAL
+    start, end = max(s.start for s in valid), min(s.end for s in valid)
+    if end < start:
+        parts = ", ".join(f"{n} {s}" for n, s in zip(labels, valid, strict=True))
+        raise InputError(f"the sources share no complete year ({parts})", remedy="compare sources whose periods overlap")
+    return Period(start, end)
