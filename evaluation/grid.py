@@ -130,6 +130,60 @@ def _pad_periodic(da: xr.DataArray) -> xr.DataArray:
     return padded
 
 
+def _bounds(grid: xr.Dataset | None, da: xr.DataArray | xr.Dataset, axis: str) -> np.ndarray:
+    name = f"{axis}_bnds"
+    if grid is not None and name in grid.coords:
+        return np.asarray(grid[name].values, dtype="float64")
+    if name in da.coords:
+        return np.asarray(da[name].values, dtype="float64")
+    return infer_bounds(da[axis].values, kind=axis)  # type: ignore[arg-type]
+
+
+def _conservative(
+    da: xr.DataArray,
+    src_lat_b: np.ndarray,
+    src_lon_b: np.ndarray,
+    tgt_lat_b: np.ndarray,
+    tgt_lon_b: np.ndarray,
+    tgt_lat: np.ndarray,
+    tgt_lon: np.ndarray,
+) -> xr.DataArray:
+    """First-order conservative map between latitude-longitude grids.
+
+    The map factorises into a latitude and a longitude matrix of interval overlaps,
+    computed with xarray-regrid's own interval tools and applied with its NaN-aware
+    ``apply_weights``.  What we add, and why: the latitude intervals are taken in
+    sin(latitude) and from the files' real cell bounds, so each overlap is an exact
+    area on the sphere (xarray-regrid's public ``conservative`` infers bounds from the
+    centres and corrects for latitude per source cell, which moves the global mean by
+    ~1e-4 between non-nested grids); and the longitude overlaps wrap round the globe.
+    """
+    import pandas as pd
+    from xarray_regrid import utils
+    from xarray_regrid.methods.conservative import apply_weights
+
+    def intervals(b: np.ndarray) -> pd.IntervalIndex:
+        return pd.IntervalIndex.from_arrays(b[:, 0], b[:, 1])
+
+    mu_src = np.sin(np.deg2rad(np.sort(src_lat_b, axis=1)))
+    mu_tgt = np.sin(np.deg2rad(np.sort(tgt_lat_b, axis=1)))
+    w_lat = utils.overlap(intervals(mu_src), intervals(mu_tgt))
+    src_lon = np.sort(src_lon_b, axis=1)
+    w_lon = sum(utils.overlap(intervals(src_lon + shift), intervals(np.sort(tgt_lon_b, axis=1))) for shift in (-360.0, 0.0, 360.0))
+    weights = {
+        "lat": utils.create_dot_dataarray(utils.normalize_overlap(w_lat), "lat", tgt_lat, da["lat"].values),
+        "lon": utils.create_dot_dataarray(utils.normalize_overlap(w_lon), "lon", tgt_lon, da["lon"].values),
+    }
+    dtype = np.result_type(np.float32, da.dtype)
+    weights = {k: v.astype(dtype) for k, v in weights.items()}
+    out = apply_weights(da, weights, skipna=True, nan_threshold=1.0)
+    # target cells that no source cell overlaps are missing, not zero
+    covered_lat = w_lat.sum(axis=0) > 0
+    covered_lon = w_lon.sum(axis=0) > 0
+    covered = xr.DataArray(covered_lat[:, None] & covered_lon[None, :], dims=("lat", "lon"), coords={"lat": tgt_lat, "lon": tgt_lon})
+    return out.assign_coords(lat=tgt_lat, lon=tgt_lon).where(covered)
+
+
 def regrid(
     da: xr.DataArray,
     target: xr.Dataset | xr.DataArray,
@@ -172,12 +226,17 @@ def regrid(
         lon_bnds = da["lon_bnds"].values
     else:
         lon_bnds = infer_bounds(da["lon"].values, kind="lon")
-    if _is_global_in_lon(lon_bnds):
-        source = _pad_periodic(source)
     time_dim = "time" if "time" in source.dims else None
     if method == "conservative":
-        out = source.regrid.conservative(target_grid, latitude_coord="lat", time_dim=time_dim, skipna=True)
+        src_lat_b = _bounds(source_grid, da, "lat")
+        src_lon_b = _bounds(source_grid, da, "lon")
+        tgt_lat_b = _bounds(target if isinstance(target, xr.Dataset) else None, target, "lat")
+        tgt_lon_b = _bounds(target if isinstance(target, xr.Dataset) else None, target, "lon")
+        out = _conservative(da.drop_vars([c for c in ("lat_bnds", "lon_bnds", "cell_area") if c in da.coords]),
+                            src_lat_b, src_lon_b, tgt_lat_b, tgt_lon_b, target["lat"].values, target["lon"].values)
     else:
+        if _is_global_in_lon(lon_bnds):
+            source = _pad_periodic(source)
         out = source.regrid.linear(target_grid, time_dim=time_dim)
     out = out.assign_coords(lat=target["lat"].values, lon=target["lon"].values)
     if "cell_area" in target.coords:
