@@ -24,6 +24,7 @@ import pandas as pd
 import xarray as xr
 
 from . import io
+from .cache import Cache, default_cache
 from .errors import InputError
 from .grid import REGRID_METHODS, grid_of, regrid, same_grid
 from .metrics import METRICS, pattern_stats, relative_errors, weighted_mean, zonal_mean
@@ -101,6 +102,10 @@ class Comparison:
         reference's grid.
     units
         Units to compare in; default :func:`preferred_units` of the reference.
+    cache
+        ``True`` (default) uses the persistent cache named by the environment
+        (:func:`evaluation.cache.default_cache`), ``False``/``None`` none, or a
+        :class:`~evaluation.cache.Cache`.
 
     Raises
     ------
@@ -118,6 +123,7 @@ class Comparison:
         period: Period | str | None = None,
         regrid: str = "conservative",
         units: str | None = None,
+        cache: Cache | None | bool = True,
     ) -> None:
         if not models:
             raise InputError("no model run given", remedy="add at least one --model NAME=PATH")
@@ -134,6 +140,7 @@ class Comparison:
         self._lock = threading.RLock()
         self._land: dict[str, xr.DataArray] = {}
         self._grids: dict[str, xr.Dataset] = {}
+        self._cache = default_cache() if cache is True else (cache or None)
 
         ref = self._open(reference)
         self.standard_name = ref.attrs.get("standard_name")
@@ -203,16 +210,26 @@ class Comparison:
         seasons = [parse_season(s) for s in seasons]
         with self._lock:
             todo: list[tuple[str, str, xr.DataArray]] = []
+            done: list[tuple[str, str, xr.DataArray]] = []
             for name, prep in self._prepared.items():
-                for s in seasons:
-                    if s not in prep.seasons:
+                wanted = [s for s in seasons if s not in prep.seasons] + (["_cycle"] if cycle and prep.cycle is None else [])
+                for s in wanted:
+                    hit = self._cache.get(self._cache_key(name, s)) if self._cache else None
+                    if hit is not None:
+                        done.append((name, s, hit))
+                    elif s == "_cycle":
+                        todo.append((name, s, monthly_climatology(prep.monthly, self.period)))
+                    else:
                         todo.append((name, s, season_means(prep.monthly, s, self.period)))
-                if cycle and prep.cycle is None:
-                    todo.append((name, "_cycle", monthly_climatology(prep.monthly, self.period)))
-            if not todo:
+            if not todo and not done:
                 return
-            computed = dask.compute(*[t[2] for t in todo])
+            # one dask pass over every source's monthly data for all wanted reductions
+            computed = dask.compute(*[t[2] for t in todo]) if todo else ()
             for (name, s, _), value in zip(todo, computed, strict=True):
+                if self._cache is not None:
+                    self._cache.put(self._cache_key(name, s), value)
+                done.append((name, s, value))
+            for name, s, value in done:
                 value = self._to_target(value, name)
                 if s == "_cycle":
                     self._prepared[name].cycle = value
@@ -224,6 +241,11 @@ class Comparison:
                             remedy="choose a longer period or another season",
                         )
                     self._prepared[name].seasons[s] = value
+
+    def _cache_key(self, name: str, what: str) -> str:
+        prep = self._prepared[name]
+        files = [vars(f) for f in io.file_identity(prep.files)]
+        return Cache.key(kind="reduction-v1", files=files, variable=self.variable, units=self.units, what=what, period=str(self.period))
 
     def _to_target(self, da: xr.DataArray, name: str) -> xr.DataArray:
         grid = self._target_grid
