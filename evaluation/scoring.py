@@ -26,6 +26,7 @@ import xarray as xr
 from . import io
 from .cache import Cache, default_cache
 from .errors import InputError
+from .export import TIDY_COLUMNS
 from .grid import REGRID_METHODS, grid_of, regrid, same_grid
 from .metrics import METRICS, pattern_stats, relative_errors, weighted_mean, zonal_mean
 from .regions import parse_region, region_weights
@@ -43,7 +44,6 @@ from .units import convert, trend_units
 
 __all__ = ["Source", "Comparison", "TIDY_COLUMNS", "score_table", "preferred_units"]
 
-TIDY_COLUMNS = ["model", "reference", "variable", "region", "season", "period", "metric", "value", "units"]
 
 # Units people read these quantities in; the data may be stored in any convertible unit.
 _PREFERRED_UNITS = {
@@ -394,7 +394,7 @@ class Comparison:
                             (m.name, self.reference.name, self.variable, region, season, str(self.period), key,
                              float(values[m.name][key]), metric.units(self.units))
                         )
-        return pd.DataFrame(rows, columns=TIDY_COLUMNS)
+        return pd.DataFrame(rows, columns=list(TIDY_COLUMNS))
 
     def provenance(self, *, regions: Sequence[str] = ("global",), seasons: Sequence[str] = ("ANN",)) -> dict:
         """Where the numbers come from, for the exporters."""

@@ -1,0 +1,751 @@
+"""Write score tables and fields for reports, each with its provenance.
+
+Tables go out as CSV, XLSX, Markdown, LaTeX, HTML or JSON; fields as CF NetCDF.  Every
+file write is atomic (a temporary file in the target folder, then :func:`os.replace`), so a
+failed write never leaves a half-written report behind.  The ``*_bytes`` functions return
+the same content in memory for the dashboard's downloads.
+
+The formats that people read (Markdown, LaTeX, HTML) show the *wide* table, one column per
+metric, rounded for reading; the machine formats keep every value at full precision (CSV,
+JSON) or at 16 significant digits (XLSX, the most openpyxl writes).
+"""
+
+from __future__ import annotations
+
+import glob
+import importlib.metadata
+import io
+import json
+import os
+import shutil
+import tempfile
+from collections.abc import Callable, Iterable, Iterator, Mapping, Sequence
+from datetime import UTC, datetime
+from pathlib import Path
+from typing import Any, Protocol
+
+import jinja2
+import pandas as pd
+import xarray as xr
+
+from .errors import InputError
+from .metrics import METRICS
+
+__all__ = [
+    "KEY_COLUMNS",
+    "METRIC_ORDER",
+    "TABLE_FORMATS",
+    "TIDY_COLUMNS",
+    "field_bytes",
+    "provenance",
+    "sidecar_path",
+    "table_bytes",
+    "wide_table",
+    "write_field",
+    "write_table",
+]
+
+#: The identifying columns of a score: one wide-table row per combination.
+KEY_COLUMNS: tuple[str, ...] = ("model", "reference", "variable", "region", "season", "period")
+#: The contract columns of the tidy score table, in order.
+TIDY_COLUMNS: tuple[str, ...] = (*KEY_COLUMNS, "metric", "value", "units")
+#: The metric keys in registry order (evaluation.metrics.METRICS), the order the wide
+#: table shows them in; metrics outside the registry follow in order of first appearance.
+METRIC_ORDER: tuple[str, ...] = tuple(METRICS)
+#: Table formats by file extension (without the dot).
+TABLE_FORMATS: tuple[str, ...] = ("csv", "xlsx", "md", "tex", "html", "json")
+
+#: Packages whose versions identify the software that made a result.
+_SOFTWARE = ("gridscore", "xarray", "numpy", "dask", "pandas", "cftime", "xarray-regrid")
+_CONVENTIONS = "CF-1.10"
+
+
+class SourceLike(Protocol):
+    """What :func:`provenance` needs of a source (``evaluation.scoring.Source`` fits)."""
+
+    name: str
+    role: str
+    paths: Sequence[str | os.PathLike[str]]
+
+
+# --------------------------------------------------------------------------------------
+# provenance
+# --------------------------------------------------------------------------------------
+
+
+def provenance(
+    *,
+    sources: Iterable[SourceLike],
+    variable: str,
+    period: object,
+    seasons: Iterable[str],
+    regions: Mapping[str, str] | Iterable[str],
+    regrid: str,
+    extra: Mapping[str, Any] | None = None,
+) -> dict[str, Any]:
+    """Describe how a result was made: when, with which software, from which files.
+
+    Parameters
+    ----------
+    sources
+        The model and reference sources compared; each needs ``.name``, ``.role``
+        (``"model"`` or ``"reference"``) and ``.paths`` (file names or glob patterns).
+    variable
+        The compared variable.
+    period
+        The period used, as ``"YYYY-YYYY"`` or an object whose ``str()`` gives that.
+    seasons
+        The seasons scored.
+    regions
+        Region id -> definition text; a plain list of ids is taken with empty definitions.
+    regrid
+        The remapping method (``"conservative"`` or ``"bilinear"``).
+    extra
+        More top-level entries (``notes``, for instance); they override the computed ones.
+
+    Returns
+    -------
+    dict
+        JSON-ready: ``created`` (UTC, ISO 8601), ``software`` (package -> version),
+        ``inputs`` (one entry per file: source, role, absolute path, size in bytes,
+        modification time), ``variable``, ``period``, ``seasons``, ``regions``,
+        ``regrid``, ``reference`` (the name of the reference source) and the ``extra``
+        entries.
+
+    Notes
+    -----
+    Patterns are expanded with :func:`glob.glob` (``**`` included).  A path or pattern
+    that matches no file is still listed, with ``size`` and ``modified`` set to ``None``,
+    so that the record shows what was asked for.  No sources give an empty ``inputs``
+    list and ``reference`` ``None``.
+    """
+    sources = list(sources)
+    inputs = [entry for source in sources for entry in _file_identities(source)]
+    references = [s.name for s in sources if s.role == "reference"]
+    if isinstance(regions, Mapping):
+        region_text = {str(k): str(v) for k, v in regions.items()}
+    else:
+        region_text = {str(r): "" for r in regions}
+    record: dict[str, Any] = {
+        "created": datetime.now(UTC).isoformat(timespec="seconds"),
+        "software": {name: _version(name) for name in _SOFTWARE},
+        "inputs": inputs,
+        "variable": variable,
+        "period": str(period),
+        "seasons": [str(s) for s in seasons],
+        "regions": region_text,
+        "regrid": regrid,
+        "reference": references[0] if len(references) == 1 else (references or None),
+    }
+    record.update(extra or {})
+    return record
+
+
+def _version(package: str) -> str:
+    try:
+        return importlib.metadata.version(package)
+    except importlib.metadata.PackageNotFoundError:
+        return "not installed"
+
+
+def _file_identities(source: SourceLike) -> Iterator[dict[str, Any]]:
+    for pattern in source.paths:
+        pattern = os.path.expanduser(os.fspath(pattern))
+        matches = sorted(glob.glob(pattern, recursive=True)) or [pattern]
+        for path in matches:
+            try:
+                stat = os.stat(path)
+            except OSError:
+                size, modified = None, None
+            else:
+                size = stat.st_size
+                modified = datetime.fromtimestamp(stat.st_mtime, UTC).isoformat(timespec="seconds")
+            yield {
+                "source": source.name,
+                "role": source.role,
+                "path": os.path.abspath(path),
+                "size": size,
+                "modified": modified,
+            }
+
+
+def _flat_items(value: Any, prefix: str = "") -> Iterator[tuple[str, str]]:
+    # Hand-written because pandas.json_normalize flattens nested dicts but leaves lists of
+    # records (``inputs``) as one cell; reports want one key/value line per leaf.
+    if isinstance(value, Mapping):
+        for key, item in value.items():
+            yield from _flat_items(item, f"{prefix}.{key}" if prefix else str(key))
+    elif isinstance(value, (list, tuple)) and any(isinstance(v, (Mapping, list, tuple)) for v in value):
+        for number, item in enumerate(value, start=1):
+            yield from _flat_items(item, f"{prefix}[{number}]")
+    elif isinstance(value, (list, tuple)):
+        yield prefix, ", ".join(str(v) for v in value)
+    else:
+        yield prefix, "" if value is None else str(value)
+
+
+def _provenance_frame(record: Mapping[str, Any] | None) -> pd.DataFrame:
+    rows = list(_flat_items(record or {}))
+    return pd.DataFrame(rows, columns=["key", "value"], dtype=object)
+
+
+def _json_text(record: Any) -> str:
+    return json.dumps(record, indent=2, ensure_ascii=False, allow_nan=False, default=str)
+
+
+# --------------------------------------------------------------------------------------
+# tables
+# --------------------------------------------------------------------------------------
+
+
+def _tidy(tidy: pd.DataFrame) -> pd.DataFrame:
+    """The contract columns of ``tidy`` in contract order, ``period`` as text."""
+    if not isinstance(tidy, pd.DataFrame):
+        raise InputError(
+            f"a score table must be a pandas DataFrame, not {type(tidy).__name__}",
+            remedy="pass the table returned by Comparison.scores",
+        )
+    missing = [c for c in TIDY_COLUMNS if c not in tidy.columns]
+    if missing:
+        raise InputError(
+            f"the score table lacks the columns {', '.join(missing)}",
+            remedy=f"give it the columns {', '.join(TIDY_COLUMNS)} (as Comparison.scores does)",
+        )
+    table = tidy.loc[:, list(TIDY_COLUMNS)].reset_index(drop=True)
+    # Period objects and strings must print the same way in every format.
+    return table.assign(period=table["period"].map(str), value=pd.to_numeric(table["value"]))
+
+
+def _metric_order(metrics: Iterable[str]) -> list[str]:
+    present = list(dict.fromkeys(metrics))
+    known = [m for m in METRIC_ORDER if m in present]
+    return known + [m for m in present if m not in METRIC_ORDER]
+
+
+def wide_table(tidy: pd.DataFrame) -> pd.DataFrame:
+    """One row per model x reference x variable x region x season x period, one column per metric.
+
+    Parameters
+    ----------
+    tidy
+        The tidy score table (contract columns).
+
+    Returns
+    -------
+    pandas.DataFrame
+        The key columns, then one float column per metric in :data:`METRIC_ORDER`
+        (metrics outside it follow in order of first appearance).  Rows keep the order in
+        which their keys first appear in ``tidy``.
+
+    Raises
+    ------
+    InputError
+        When columns are missing or a key x metric combination occurs twice.
+
+    Notes
+    -----
+    NaN values stay NaN; a metric missing for some row is NaN there.  An empty table gives
+    an empty frame with the key columns only.  Units are not part of the wide table (they
+    differ per metric and variable); the report formats list them separately.
+    """
+    table = _tidy(tidy)
+    keys = list(KEY_COLUMNS)
+    if table.empty:
+        return pd.DataFrame({k: pd.Series(dtype=object) for k in keys})
+    try:
+        wide = table.pivot(index=keys, columns="metric", values="value")
+    except ValueError as error:  # pandas refuses duplicate index/column pairs
+        raise InputError(
+            "the score table holds the same model, reference, variable, region, season, "
+            "period and metric more than once",
+            remedy="drop the duplicate rows before exporting",
+        ) from error
+    rows = pd.MultiIndex.from_frame(table[keys].drop_duplicates())
+    wide = wide.reindex(index=rows, columns=_metric_order(table["metric"]))
+    wide.columns.name = None
+    return wide.reset_index()
+
+
+def _units_table(table: pd.DataFrame) -> pd.DataFrame:
+    """Variable x metric -> units, for the report formats' legend."""
+    if table.empty:
+        return pd.DataFrame({"variable": pd.Series(dtype=object)})
+    joined = (
+        table.groupby(["variable", "metric"], sort=False)["units"]
+        .agg(lambda u: ", ".join(dict.fromkeys(str(x) for x in u.dropna())))
+        .unstack("metric")
+    )
+    joined = joined.reindex(columns=_metric_order(table["metric"])).reset_index()
+    joined.columns.name = None
+    return joined.fillna("")
+
+
+def _cell_format(metric: str) -> str:
+    # p-values are probabilities read against thresholds such as 0.05: fixed decimals;
+    # everything else spans many magnitudes (W m-2, K, kg m-2 s-1): significant digits.
+    return "{:.3f}" if metric.endswith("pvalue") else "{:.4g}"
+
+
+def _display_frame(tidy: pd.DataFrame, *, missing: str) -> pd.DataFrame:
+    """The wide table as text rounded for reading, NaN shown as ``missing``."""
+    wide = wide_table(tidy)
+    shown = wide.astype(object)
+    for column in wide.columns[len(KEY_COLUMNS) :]:
+        spec = _cell_format(str(column))
+        shown[column] = [missing if pd.isna(v) else spec.format(v) for v in wide[column]]
+    for column in KEY_COLUMNS:
+        shown[column] = wide[column].map(str)
+    return shown
+
+
+def _title(record: Mapping[str, Any] | None) -> str:
+    record = record or {}
+    parts = [str(record[k]) for k in ("variable", "period") if record.get(k)]
+    return "Scores" + (f": {', '.join(parts)}" if parts else "")
+
+
+def _csv_bytes(table: pd.DataFrame) -> bytes:
+    # pandas writes floats with repr(), which reads back to the identical double.
+    return table.to_csv(index=False, lineterminator="\n").encode("utf-8")
+
+
+def _json_bytes(table: pd.DataFrame, record: Mapping[str, Any] | None) -> bytes:
+    # Not DataFrame.to_json: it rounds to at most 15 significant digits.  json.dumps
+    # writes repr() of each float (full precision); NaN becomes null, valid JSON.
+    scores = table.astype(object).where(table.notna(), None).to_dict(orient="records")
+    return _json_text({"provenance": dict(record or {}), "scores": scores}).encode("utf-8")
+
+
+def _xlsx_bytes(table: pd.DataFrame, record: Mapping[str, Any] | None) -> bytes:
+    buffer = io.BytesIO()
+    with pd.ExcelWriter(buffer, engine="openpyxl") as writer:
+        table.to_excel(writer, sheet_name="scores", index=False)
+        wide_table(table).to_excel(writer, sheet_name="wide", index=False)
+        _provenance_frame(record).to_excel(writer, sheet_name="provenance", index=False)
+        for sheet in writer.sheets.values():
+            _defuse_formulas(sheet)
+    return buffer.getvalue()
+
+
+def _defuse_formulas(sheet: Any) -> None:
+    # openpyxl stores any text starting with "=" as a formula, so a run named "=1+1" (or
+    # worse, "=HYPERLINK(...)") would be evaluated by the spreadsheet; keep such text text.
+    for row in sheet.iter_rows():
+        for cell in row:
+            if cell.data_type == "f":
+                cell.data_type = "s"
+
+
+def _markdown_bytes(table: pd.DataFrame, record: Mapping[str, Any] | None) -> bytes:
+    def markdown(frame: pd.DataFrame, align: Sequence[str]) -> str:
+        # tabulate writes cell text as is: a "|" inside a name would end the cell early
+        # and a line break would end the table.
+        text = frame.astype(object).map(lambda v: " ".join(str(v).split("\n")).replace("|", "\\|"))
+        return text.to_markdown(index=False, disable_numparse=True, colalign=tuple(align))
+
+    shown = _display_frame(table, missing="–")
+    n_keys = len(KEY_COLUMNS)
+    units = _units_table(table)
+    prov = _provenance_frame(record)
+    parts = [
+        f"# {_title(record)}",
+        markdown(shown, ["left"] * n_keys + ["right"] * (shown.shape[1] - n_keys)),
+        "## Units",
+        markdown(units, ["left"] * units.shape[1]),
+        "## Provenance",
+        markdown(prov, ["left", "left"]),
+    ]
+    return ("\n\n".join(parts) + "\n").encode("utf-8")
+
+
+def _latex_bytes(table: pd.DataFrame, record: Mapping[str, Any] | None) -> bytes:
+    # "--" is LaTeX's en dash and stays plain ASCII.
+    shown = _display_frame(table, missing="--")
+    n_keys = len(KEY_COLUMNS)
+    styler = (
+        shown.style.hide(axis="index").format(escape="latex").format_index(escape="latex", axis="columns")
+    )
+    tabular = styler.to_latex(hrules=True, column_format="l" * n_keys + "r" * (shown.shape[1] - n_keys))
+    comment = [f"% {_title(record)}", "% needs \\usepackage{booktabs}"]
+    units = _units_table(table)
+    for _, row in units.iterrows():
+        pairs = ", ".join(f"{m} {u}" for m, u in row.iloc[1:].items() if u)
+        comment.append(f"% units of {row['variable']}: {pairs}")
+    comment.append("% provenance:")
+    for key, value in _flat_items(record or {}):
+        # A line break in a value would end the comment and turn the rest into LaTeX.
+        comment.append(f"%   {key}: {' '.join(value.splitlines())}")
+    return ("\n".join(comment) + "\n" + tabular).encode("utf-8")
+
+
+_HTML = jinja2.Environment(autoescape=True).from_string(
+    """<!DOCTYPE html>
+<html lang="en">
+<head>
+<meta charset="utf-8">
+<title>{{ title }}</title>
+<style>
+body { font-family: sans-serif; margin: 2em; }
+table { border-collapse: collapse; margin-bottom: 2em; }
+th, td { border-bottom: 1px solid #ccc; padding: 0.2em 0.6em; text-align: right; white-space: nowrap; }
+th:nth-child(-n+{{ n_keys }}), td:nth-child(-n+{{ n_keys }}) { text-align: left; }
+table.legend th, table.legend td { text-align: left; }
+</style>
+</head>
+<body>
+<h1>{{ title }}</h1>
+{{ scores|safe }}
+<h2>Units</h2>
+{{ units|safe }}
+<h2>Provenance</h2>
+{{ provenance|safe }}
+</body>
+</html>
+"""
+)
+
+
+def _html_bytes(table: pd.DataFrame, record: Mapping[str, Any] | None) -> bytes:
+    def html(frame: pd.DataFrame, classes: str) -> str:
+        # pandas escapes every cell and header (escape=True), so the template may insert
+        # these tables with |safe; everything else in the page is escaped by jinja2.
+        return frame.to_html(index=False, escape=True, border=0, classes=classes)
+
+    text = _HTML.render(
+        title=_title(record),
+        n_keys=len(KEY_COLUMNS),
+        scores=html(_display_frame(table, missing="–"), "scores"),
+        units=html(_units_table(table), "legend"),
+        provenance=html(_provenance_frame(record), "legend"),
+    )
+    return text.encode("utf-8")
+
+
+def _format_of(fmt: str, *, file: str | None = None) -> str:
+    key = fmt.lower().lstrip(".")
+    if key not in TABLE_FORMATS:
+        shown = f".{key}" if key else "no extension"
+        raise InputError(
+            f"unknown table format {shown!r}" if key else "the output file has no extension",
+            file=file,
+            remedy=f"use one of {', '.join('.' + f for f in TABLE_FORMATS)}",
+        )
+    return key
+
+
+def table_bytes(tidy: pd.DataFrame, fmt: str, *, provenance: Mapping[str, Any] | None) -> bytes:
+    """The score table in one of :data:`TABLE_FORMATS`, as bytes (UTF-8 for the text formats).
+
+    Parameters
+    ----------
+    tidy
+        The tidy score table (contract columns; other columns are left out).
+    fmt
+        ``csv``, ``xlsx``, ``md``, ``tex``, ``html`` or ``json`` (a leading dot is allowed).
+    provenance
+        The record from :func:`provenance`; ``None`` for none.
+
+    Returns
+    -------
+    bytes
+        - ``csv``: the tidy table only, full precision (provenance goes to a sidecar file
+          in :func:`write_table`, so that ``pandas.read_csv`` reads the file as is).
+        - ``xlsx``: sheets ``scores`` (tidy), ``wide`` and ``provenance`` (key/value);
+          numbers carry 16 significant digits (openpyxl's writer; Excel computes with 15).
+        - ``md``: the wide table, a units legend and the provenance as pipe tables.
+        - ``tex``: a booktabs ``tabular`` of the wide table, provenance as ``%`` comments.
+        - ``html``: a standalone page with the wide table, units and provenance.
+        - ``json``: ``{"provenance": {...}, "scores": [one object per tidy row]}``.
+
+    Raises
+    ------
+    InputError
+        For an unknown format or a table without the contract columns.
+
+    Notes
+    -----
+    NaN is an empty cell in CSV and XLSX, ``null`` in JSON, "–" in Markdown and HTML and
+    "--" in LaTeX.  The read formats round to 4 significant digits (p-values to 3
+    decimals).  An empty table gives the header (and the provenance) only.
+    """
+    key = _format_of(fmt)
+    table = _tidy(tidy)
+    if key == "csv":
+        return _csv_bytes(table)
+    if key == "json":
+        return _json_bytes(table, provenance)
+    if key == "xlsx":
+        return _xlsx_bytes(table, provenance)
+    if key == "md":
+        return _markdown_bytes(table, provenance)
+    if key == "tex":
+        return _latex_bytes(table, provenance)
+    return _html_bytes(table, provenance)
+
+
+def sidecar_path(path: str | os.PathLike[str]) -> Path:
+    """Where :func:`write_table` puts the provenance of a CSV file: ``<name>.provenance.json``."""
+    path = Path(path)
+    return path.with_name(f"{path.stem}.provenance.json")
+
+
+def write_table(
+    tidy: pd.DataFrame, path: str | os.PathLike[str], *, provenance: Mapping[str, Any] | None
+) -> Path:
+    """Write the score table to ``path`` in the format its extension names.
+
+    Parameters
+    ----------
+    tidy
+        The tidy score table.
+    path
+        Target file ending in ``.csv``, ``.xlsx``, ``.md``, ``.tex``, ``.html`` or ``.json``.
+    provenance
+        The record from :func:`provenance`.  For ``.csv`` it is written beside the table
+        as ``<name>.provenance.json``; the other formats hold it inside.
+
+    Returns
+    -------
+    pathlib.Path
+        The path written.
+
+    Raises
+    ------
+    InputError
+        For another extension, a missing or unwritable folder, or a table without the
+        contract columns.  No file is created or changed then.
+
+    Notes
+    -----
+    The content is built in memory first and written atomically, so an existing file is
+    either replaced whole or left as it was.  See :func:`table_bytes` for NaN and empty
+    tables.
+    """
+    path = Path(path)
+    key = _format_of(path.suffix, file=str(path))
+    data = table_bytes(tidy, key, provenance=provenance)
+    writes = [(path, _bytes_writer(data))]
+    if key == "csv":
+        sidecar = (_json_text(dict(provenance or {})) + "\n").encode("utf-8")
+        writes.append((sidecar_path(path), _bytes_writer(sidecar)))
+    _atomic_write(writes)
+    return path
+
+
+# --------------------------------------------------------------------------------------
+# fields
+# --------------------------------------------------------------------------------------
+
+
+def _cf_dataset(field: xr.DataArray | xr.Dataset, record: Mapping[str, Any] | None) -> xr.Dataset:
+    """A copy of ``field`` ready for ``to_netcdf``: global attributes, clean encodings."""
+    if isinstance(field, xr.DataArray):
+        name = field.name if field.name is not None else (record or {}).get("variable") or "field"
+        ds = field.to_dataset(name=str(name))
+    elif isinstance(field, xr.Dataset):
+        ds = field
+    else:
+        raise InputError(
+            f"a field must be an xarray DataArray or Dataset, not {type(field).__name__}",
+            remedy="pass a field from Comparison (climatology, difference, trend_map, ...)",
+        )
+    # Encodings inherited from the files read (chunk sizes, packing, source path) may not
+    # fit the derived field; let xarray choose afresh, which also encodes cftime times with
+    # their own calendar.
+    ds = ds.drop_encoding().copy(deep=False)
+    for name, variable in ds.variables.items():
+        variable.attrs = _netcdf_attrs(variable.attrs)
+        if name in ds.coords and variable.dtype.kind == "f":
+            # CF: coordinate variables hold no missing values, so no _FillValue for them.
+            variable.encoding["_FillValue"] = None
+        elif name in ds.data_vars and variable.dtype.kind in "fiu":
+            variable.encoding.update(zlib=True, complevel=4)
+    record = dict(record or {})
+    created = record.get("created") or datetime.now(UTC).isoformat(timespec="seconds")
+    line = f"{created}: written by gridscore {_version('gridscore')} (evaluation.export)"
+    history = str(ds.attrs.get("history", "")).rstrip("\n")
+    attrs = _netcdf_attrs(ds.attrs)
+    attrs.update(
+        Conventions=_CONVENTIONS,
+        history=f"{history}\n{line}" if history else line,
+        provenance=_json_text(record),
+    )
+    ds.attrs = attrs
+    return ds
+
+
+def _netcdf_attrs(attrs: Mapping[Any, Any]) -> dict[str, Any]:
+    # NetCDF attributes hold only text and numbers: derived fields may carry None, bools or
+    # dicts in .attrs, which the netCDF4 library refuses; write those as text instead.
+    out: dict[str, Any] = {}
+    for key, value in attrs.items():
+        if value is None:
+            continue
+        if isinstance(value, bool):
+            value = int(value)
+        elif isinstance(value, (Mapping, list, tuple)) and not _numbers(value):
+            value = json.dumps(value, default=str, ensure_ascii=False)
+        out[str(key)] = value
+    return out
+
+
+def _numbers(value: Any) -> bool:
+    return isinstance(value, (list, tuple)) and all(
+        isinstance(v, (int, float)) and not isinstance(v, bool) for v in value
+    )
+
+
+def _check_nc(path: Path) -> None:
+    if path.suffix.lower() != ".nc":
+        raise InputError(
+            f"unknown field format {path.suffix!r}" if path.suffix else "the output file has no extension",
+            file=str(path),
+            remedy="name the file with the extension .nc",
+        )
+
+
+def _netcdf_writer(ds: xr.Dataset) -> Callable[[str], None]:
+    def write(target: str) -> None:
+        try:
+            ds.to_netcdf(target, engine="netcdf4", format="NETCDF4")
+        except RuntimeError as error:
+            # The netCDF-C library reports I/O failures (disk full, ...) as RuntimeError
+            # "NetCDF: ..."; treat those like any other failed write, and nothing else.
+            if not str(error).startswith("NetCDF:"):
+                raise
+            raise OSError(str(error)) from error
+
+    return write
+
+
+def write_field(
+    field: xr.DataArray | xr.Dataset,
+    path: str | os.PathLike[str],
+    *,
+    provenance: Mapping[str, Any] | None,
+) -> Path:
+    """Write a field as CF NetCDF (NetCDF-4) with its provenance.
+
+    Parameters
+    ----------
+    field
+        A DataArray (written under its name, else the provenance's ``variable``, else
+        ``field``) or a Dataset.  Lazy (dask) data are computed while writing.
+    path
+        Target file ending in ``.nc``.
+    provenance
+        The record from :func:`provenance`, stored as the JSON text attribute
+        ``provenance``.
+
+    Returns
+    -------
+    pathlib.Path
+        The path written.
+
+    Raises
+    ------
+    InputError
+        For another extension or a missing or unwritable folder; no file is left then.
+
+    Notes
+    -----
+    Variable attributes (``units``, ``standard_name``, ``long_name``, ``cell_methods``,
+    ...) are kept; global attributes gain ``Conventions = "CF-1.10"``, a ``history`` line
+    and ``provenance``.  cftime coordinates are encoded with their own calendar.  NaN data
+    are written as the float fill value and read back as NaN.  The input is not changed.
+    """
+    path = Path(path)
+    _check_nc(path)
+    _atomic_write([(path, _netcdf_writer(_cf_dataset(field, provenance)))])
+    return path
+
+
+def field_bytes(field: xr.DataArray | xr.Dataset, *, provenance: Mapping[str, Any] | None) -> bytes:
+    """The NetCDF file :func:`write_field` would write, as bytes (for downloads).
+
+    Notes
+    -----
+    The netCDF4 library writes only to files, so the field goes through a temporary file
+    that is removed afterwards.  See :func:`write_field` for attributes and NaN.
+    """
+    with tempfile.TemporaryDirectory(prefix="gridscore-field-") as folder:
+        target = Path(folder) / "field.nc"
+        write_field(field, target, provenance=provenance)
+        return target.read_bytes()
+
+
+# --------------------------------------------------------------------------------------
+# atomic writes
+# --------------------------------------------------------------------------------------
+
+
+def _bytes_writer(data: bytes) -> Callable[[str], None]:
+    def write(target: str) -> None:
+        with open(target, "wb") as handle:
+            handle.write(data)
+
+    return write
+
+
+def _atomic_write(writes: Sequence[tuple[Path, Callable[[str], None]]]) -> None:
+    """Write each ``(path, writer)`` to a temporary file beside ``path``, then move them all.
+
+    Every temporary file is complete and flushed to disk before any target is replaced;
+    on failure all temporary files are removed and no target is touched.
+    """
+    # Each temporary file sits in a temporary folder of its own next to the target, not
+    # loose in the target folder: after a failed lazy NetCDF write, dask tasks still in
+    # flight reopen the file by name and would recreate a removed loose file.  Once the
+    # folder is gone they cannot.
+    folders: list[str] = []
+    staged: list[tuple[str, Path]] = []
+    try:
+        for path, writer in writes:
+            parent = path.parent if str(path.parent) else Path(".")
+            if not parent.is_dir():
+                raise InputError(
+                    "the folder does not exist" if not parent.exists() else "is not a folder",
+                    file=str(parent),
+                    remedy="create the folder first or choose another output path",
+                )
+            try:
+                folders.append(tempfile.mkdtemp(dir=parent, prefix=f".{path.name}.", suffix=".part"))
+                temporary = os.path.join(folders[-1], path.name)
+                writer(temporary)
+                _settle(temporary, path)
+            except OSError as error:
+                raise _unwritable(path, error) from error
+            staged.append((temporary, path))
+        for temporary, path in staged:
+            try:
+                os.replace(temporary, path)
+            except OSError as error:
+                raise _unwritable(path, error) from error
+    finally:
+        for folder in folders:
+            shutil.rmtree(folder, ignore_errors=True)
+
+
+def _settle(temporary: str, path: Path) -> None:
+    # A replaced report keeps the mode the old file had, a new one gets the usual
+    # rw-r--r--.  (Applying the umask would mean reading it, which changes it for the
+    # whole process: unsafe while the server runs threads.)
+    try:
+        mode = path.stat().st_mode & 0o777
+    except OSError:
+        mode = 0o644
+    os.chmod(temporary, mode)
+    handle = os.open(temporary, os.O_RDONLY)
+    try:
+        os.fsync(handle)  # the data are on disk before the rename makes them visible
+    finally:
+        os.close(handle)
+
+
+def _unwritable(path: Path, error: OSError) -> InputError:
+    reason = error.strerror or str(error) or type(error).__name__
+    return InputError(
+        f"cannot write the file ({reason})",
+        file=str(path),
+        remedy="choose a folder you may write to, with free space",
+    )

@@ -1,0 +1,543 @@
+"""Tests of evaluation.export: every table format read back with its own reader, NetCDF
+fields read back with xarray/netCDF4/cftime, atomic writes and bad-input errors."""
+
+from __future__ import annotations
+
+import errno
+import html.parser
+import importlib.metadata
+import io
+import json
+import os
+import re
+from dataclasses import dataclass, field
+from datetime import UTC, datetime, timedelta
+from pathlib import Path
+
+import cftime
+import dask.array
+import netCDF4
+import numpy as np
+import pandas as pd
+import pytest
+import xarray as xr
+
+from evaluation import export
+from evaluation.errors import InputError
+
+# The tidy-table contract (shared/DESIGN.md), written out here rather than imported so that
+# the module is checked against the contract and not against itself.
+CONTRACT_COLUMNS = [
+    "model",
+    "reference",
+    "variable",
+    "region",
+    "season",
+    "period",
+    "metric",
+    "value",
+    "units",
+]
+CONTRACT_METRICS = [
+    "mean", "ref_mean", "bias", "rmse", "crmse", "corr", "std_ratio", "taylor_skill",
+    "trend", "ref_trend", "trend_pvalue", "ref_trend_pvalue", "iav_ratio", "rel_error",
+]  # fmt: skip
+KEYS = CONTRACT_COLUMNS[:6]
+CONTRACT_FORMATS = ["csv", "xlsx", "md", "tex", "html", "json"]  # --output in shared/DESIGN.md
+UNITLESS = {"corr", "std_ratio", "taylor_skill", "trend_pvalue", "ref_trend_pvalue", "iav_ratio", "rel_error"}
+
+
+@dataclass
+class Source:
+    """Anything with a name, a role and paths will do for provenance (export.SourceLike)."""
+
+    name: str
+    role: str
+    paths: list[str] = field(default_factory=list)
+
+
+@pytest.fixture
+def tidy() -> pd.DataFrame:
+    """2 models x 2 regions x 2 seasons x 14 metrics, names with underscores, some NaN."""
+    rng = np.random.default_rng(20240607)
+    rows = []
+    for model in ["run_a", "run_b"]:
+        for region in ["global", "box:-10,10,0,30"]:
+            for season in ["ANN", "DJF"]:
+                for metric in CONTRACT_METRICS:
+                    # values over many magnitudes, most needing all 17 digits to round-trip
+                    value = float(rng.normal() * 10.0 ** rng.integers(-6, 6))
+                    if metric.endswith("pvalue"):
+                        value = float(rng.uniform())
+                    units = "1" if metric in UNITLESS else "K/decade" if metric.endswith("trend") else "K"
+                    rows.append([model, "ref_obs", "tas", region, season, "1991-2020", metric, value, units])
+    table = pd.DataFrame(rows, columns=CONTRACT_COLUMNS)
+    table.loc[[3, 40, 77], "value"] = np.nan
+    table.loc[5, "value"] = 1.0 / 3.0
+    table.loc[6, "value"] = 2.5e-300
+    return table
+
+
+@pytest.fixture
+def inputs(tmp_path_factory: pytest.TempPathFactory) -> dict[str, Path]:
+    """Real files whose size and modification time are known from how they were made."""
+    # a folder of its own, so that tests can check tmp_path holds only what they wrote
+    folder = tmp_path_factory.mktemp("inputs")
+    files = {"run_a_1.nc": 123, "run_a_2.nc": 4567, "ref_obs.nc": 89}
+    stamp = datetime(2001, 2, 3, 4, 5, 6, tzinfo=UTC).timestamp()
+    for name, size in files.items():
+        (folder / name).write_bytes(b"x" * size)
+        os.utime(folder / name, (stamp, stamp))
+    return {name: folder / name for name in files}
+
+
+@pytest.fixture
+def record(inputs: dict[str, Path]) -> dict:
+    folder = inputs["ref_obs.nc"].parent
+    return export.provenance(
+        sources=[
+            Source("run_a", "model", [str(folder / "run_a_*.nc")]),
+            Source("run_b", "model", [str(folder / "absent_*.nc")]),
+            Source("ref_obs", "reference", [inputs["ref_obs.nc"]]),
+        ],
+        variable="tas",
+        period="1991-2020",
+        seasons=["ANN", "DJF"],
+        regions={"global": "the whole sphere", "box:-10,10,0,30": "10S-10N, 0-30E"},
+        regrid="conservative",
+        extra={"notes": "invented scenario; line one\nline two"},
+    )
+
+
+def close_to_shown(shown: str, value: float, metric: str) -> bool:
+    """Whether ``shown`` is ``value`` rounded for reading (NaN shown as a dash)."""
+    if np.isnan(value):
+        return shown in {"–", "--"}
+    # 4 significant digits -> relative error at most half a unit in the 4th digit;
+    # 3 decimals -> absolute error at most 5e-4 (common practice for rounding).
+    if metric.endswith("pvalue"):
+        return abs(float(shown) - value) <= 5e-4 + 1e-12
+    return abs(float(shown) - value) <= 5e-4 * abs(value) * (1 + 1e-9)
+
+
+def lookup(tidy: pd.DataFrame, row: pd.Series, metric: str) -> float:
+    hit = tidy
+    for key in KEYS:
+        hit = hit[hit[key] == row[key]]
+    (value,) = hit.loc[hit["metric"] == metric, "value"]
+    return value
+
+
+# -- provenance -----------------------------------------------------------------------
+
+
+def test_provenance_records_files_software_and_request(record: dict, inputs: dict[str, Path]) -> None:
+    created = datetime.fromisoformat(record["created"])
+    assert created.utcoffset() == timedelta(0)
+    assert abs(datetime.now(UTC) - created) < timedelta(minutes=1)
+    for package in ["xarray", "numpy", "dask", "pandas", "cftime", "xarray-regrid"]:
+        assert record["software"][package] == importlib.metadata.version(package)
+    assert "gridscore" in record["software"]
+
+    by_path = {entry["path"]: entry for entry in record["inputs"]}
+    # the glob matched both files of run_a; sizes and times are those the fixture set
+    for name, size in [("run_a_1.nc", 123), ("run_a_2.nc", 4567), ("ref_obs.nc", 89)]:
+        entry = by_path[str(inputs[name].resolve())]
+        assert entry["size"] == size
+        assert datetime.fromisoformat(entry["modified"]) == datetime(2001, 2, 3, 4, 5, 6, tzinfo=UTC)
+    assert [e["role"] for e in record["inputs"]] == ["model", "model", "model", "reference"]
+    (absent,) = [e for e in record["inputs"] if e["source"] == "run_b"]
+    assert absent["size"] is None and absent["modified"] is None and absent["path"].endswith("absent_*.nc")
+
+    assert record["variable"] == "tas" and record["period"] == "1991-2020"
+    assert record["seasons"] == ["ANN", "DJF"] and record["regrid"] == "conservative"
+    assert record["regions"]["box:-10,10,0,30"] == "10S-10N, 0-30E"
+    assert record["reference"] == "ref_obs"
+    assert record["notes"].startswith("invented scenario")
+    assert json.loads(json.dumps(record)) == record  # JSON-ready as it is
+
+
+# -- wide table -----------------------------------------------------------------------
+
+
+def test_wide_table_holds_every_tidy_value_once(tidy: pd.DataFrame) -> None:
+    wide = export.wide_table(tidy)
+    assert list(wide.columns) == KEYS + CONTRACT_METRICS
+    assert len(wide) == 2 * 2 * 2
+    assert not wide[KEYS].duplicated().any()
+    for _, row in wide.iterrows():
+        for metric in CONTRACT_METRICS:
+            expected = lookup(tidy, row, metric)
+            assert row[metric] == expected or (np.isnan(expected) and np.isnan(row[metric]))
+
+
+def test_wide_table_keeps_registry_order_whatever_the_row_order(tidy: pd.DataFrame) -> None:
+    shuffled = tidy.sample(frac=1.0, random_state=3)
+    extra = tidy.iloc[:1].assign(metric="zz_extra", value=7.0)
+    wide = export.wide_table(pd.concat([extra, shuffled]))
+    assert list(wide.columns) == KEYS + CONTRACT_METRICS + ["zz_extra"]
+    assert wide["zz_extra"].notna().sum() == 1
+
+
+def test_wide_table_refuses_duplicates(tidy: pd.DataFrame) -> None:
+    with pytest.raises(InputError, match="more than once"):
+        export.wide_table(pd.concat([tidy, tidy.iloc[:1]]))
+
+
+# -- each format, read back with its own reader -----------------------------------------
+
+
+def test_csv_is_the_plain_tidy_table_with_a_provenance_sidecar(
+    tidy: pd.DataFrame, record: dict, tmp_path: Path
+) -> None:
+    target = tmp_path / "scores.csv"
+    export.write_table(tidy, target, provenance=record)
+    back = pd.read_csv(target)
+    assert list(back.columns) == CONTRACT_COLUMNS
+    # full precision: every double reads back identical (pandas writes repr of floats)
+    pd.testing.assert_frame_equal(back, tidy, check_exact=True, check_dtype=False)
+    assert target.read_text().splitlines()[0] == ",".join(CONTRACT_COLUMNS)
+    sidecar = tmp_path / "scores.provenance.json"
+    assert json.loads(sidecar.read_text()) == record
+    assert export.table_bytes(tidy, "csv", provenance=record) == target.read_bytes()
+
+
+def test_xlsx_has_scores_wide_and_provenance_sheets(tidy: pd.DataFrame, record: dict, tmp_path: Path) -> None:
+    target = tmp_path / "scores.xlsx"
+    export.write_table(tidy, target, provenance=record)
+    sheets = pd.read_excel(target, sheet_name=None)
+    assert {"scores", "wide", "provenance"} <= set(sheets)
+    scores = sheets["scores"].astype({"units": str})
+    # openpyxl writes numbers with 16 significant digits ("%.16g"), one short of the 17 that
+    # always round-trip a double (IEEE 754-2008, sec. 5.12.2): equal to 1e-15 relative,
+    # finer than the 15 digits Excel itself computes with.
+    exact_enough = {"check_exact": False, "rtol": 1e-15, "atol": 0.0, "check_dtype": False}
+    pd.testing.assert_frame_equal(scores, tidy, **exact_enough)
+    pd.testing.assert_frame_equal(sheets["wide"], export.wide_table(tidy), **exact_enough)
+    prov = dict(zip(sheets["provenance"]["key"], sheets["provenance"]["value"].astype(str), strict=True))
+    assert prov["variable"] == "tas" and prov["regrid"] == "conservative" and prov["reference"] == "ref_obs"
+    assert prov["created"] == record["created"]
+    assert str(record["inputs"][0]["path"]) in prov.values()
+
+
+def test_xlsx_keeps_formula_like_names_as_text(tidy: pd.DataFrame, record: dict) -> None:
+    # a name starting with "=" would otherwise become a live formula (OWASP, "CSV injection")
+    risky = tidy.assign(model=tidy["model"].replace({"run_a": "=1+1"}))
+    data = export.table_bytes(risky, "xlsx", provenance=record)
+    scores = pd.read_excel(io.BytesIO(data), sheet_name="scores")
+    assert set(scores["model"]) == {"=1+1", "run_b"}
+
+
+def test_json_holds_provenance_and_full_precision_records(
+    tidy: pd.DataFrame, record: dict, tmp_path: Path
+) -> None:
+    target = tmp_path / "scores.json"
+    export.write_table(tidy, target, provenance=record)
+    text = target.read_text(encoding="utf-8")
+    assert "NaN" not in text  # RFC 8259 has no NaN: missing values must be null
+    data = json.loads(text)
+    assert data["provenance"] == record
+    back = pd.DataFrame(data["scores"]).astype({"value": float})
+    pd.testing.assert_frame_equal(back, tidy, check_exact=True, check_dtype=False)
+
+
+def markdown_rows(text: str) -> list[list[str]]:
+    return [[c.strip() for c in line.strip().strip("|").split("|")] for line in text.splitlines()]
+
+
+def test_markdown_shows_the_wide_table_then_the_provenance(
+    tidy: pd.DataFrame, record: dict, tmp_path: Path
+) -> None:
+    target = tmp_path / "scores.md"
+    export.write_table(tidy, target, provenance=record)
+    text = target.read_text(encoding="utf-8")
+    table_text, _, after = text.partition("## Units")
+    lines = [line for line in table_text.splitlines() if line.startswith("|")]
+    header, rule, *body = markdown_rows("\n".join(lines))
+    assert header == KEYS + CONTRACT_METRICS
+    assert all(set(cell) <= set(":-") for cell in rule)  # GitHub-flavoured pipe-table rule
+    assert len(body) == 8
+    for cells in body:
+        row = pd.Series(dict(zip(header, cells, strict=True)))
+        for metric in CONTRACT_METRICS:
+            assert close_to_shown(row[metric], lookup(tidy, row, metric), metric), (metric, row[metric])
+    provenance_text = after.partition("## Provenance")[2]
+    assert record["created"] in provenance_text
+    assert record["inputs"][0]["path"] in provenance_text
+    # the note's line break must not break the pipe table
+    assert all(line.startswith("|") for line in provenance_text.strip().splitlines())
+    assert "K/decade" in after
+
+
+def test_latex_is_an_escaped_booktabs_tabular_with_provenance_comments(
+    tidy: pd.DataFrame, record: dict, tmp_path: Path
+) -> None:
+    target = tmp_path / "scores.tex"
+    export.write_table(tidy, target, provenance=record)
+    lines = target.read_text(encoding="utf-8").splitlines()
+    start = lines.index(next(line for line in lines if line.startswith("\\begin{tabular}")))
+    assert all(line.startswith("%") for line in lines[:start])  # provenance only as comments
+    comments = "\n".join(lines[:start])
+    assert record["created"] in comments and "line one line two" in comments
+    body = lines[start:]
+    assert body[1] == "\\toprule" and body[-2] == "\\bottomrule" and body[-1] == "\\end{tabular}"
+    mid = body.index("\\midrule")
+    rows = body[mid + 1 : -2]
+    assert len(rows) == 8
+    for line in body[2:mid] + rows:
+        assert line.endswith("\\\\") and line.count("&") == len(KEYS) + len(CONTRACT_METRICS) - 1
+        # LaTeX special characters (Lamport, "LaTeX", 2nd ed., sec. 2.2.1) only escaped
+        assert not re.search(r"(?<!\\)[_%&#$]", line.replace(" & ", " ").removesuffix("\\\\"))
+    assert "run\\_a" in rows[0] and "ref\\_obs" in rows[0] and "std\\_ratio" in body[2]
+    for line in rows:
+        cells = [c.strip().replace("\\_", "_") for c in line.removesuffix("\\\\").split("&")]
+        row = pd.Series(dict(zip(KEYS + CONTRACT_METRICS, cells, strict=True)))
+        for metric in CONTRACT_METRICS:
+            assert close_to_shown(row[metric], lookup(tidy, row, metric), metric)
+
+
+class _Tables(html.parser.HTMLParser):
+    """Cell texts of every <table> (pandas.read_html would need lxml or bs4)."""
+
+    def __init__(self) -> None:
+        super().__init__()
+        self.tables: list[list[list[str]]] = []
+        self.cell: list[str] | None = None
+
+    def handle_starttag(self, tag: str, attrs: list) -> None:
+        if tag == "table":
+            self.tables.append([])
+        elif tag == "tr":
+            self.tables[-1].append([])
+        elif tag in {"td", "th"}:
+            self.cell = []
+
+    def handle_endtag(self, tag: str) -> None:
+        if tag in {"td", "th"} and self.cell is not None:
+            self.tables[-1][-1].append("".join(self.cell).strip())
+            self.cell = None
+
+    def handle_data(self, data: str) -> None:
+        if self.cell is not None:
+            self.cell.append(data)
+
+
+def test_html_is_a_standalone_page_with_table_and_provenance(
+    tidy: pd.DataFrame, record: dict, tmp_path: Path
+) -> None:
+    target = tmp_path / "scores.html"
+    export.write_table(tidy, target, provenance=record)
+    text = target.read_text(encoding="utf-8")
+    assert text.lstrip().lower().startswith("<!doctype html>") and text.rstrip().endswith("</html>")
+    parser = _Tables()
+    parser.feed(text)
+    scores, units, prov = parser.tables
+    header, *body = scores
+    assert header == KEYS + CONTRACT_METRICS and len(body) == 8
+    for cells in body:
+        row = pd.Series(dict(zip(header, cells, strict=True)))
+        for metric in CONTRACT_METRICS:
+            assert close_to_shown(row[metric], lookup(tidy, row, metric), metric)
+    assert units[0][0] == "variable" and units[1][0] == "tas"
+    pairs = dict(prov[1:])
+    assert pairs["created"] == record["created"] and pairs["reference"] == "ref_obs"
+
+
+def test_html_escapes_names(tidy: pd.DataFrame, record: dict) -> None:
+    hostile = "<script>alert(1)</script>&run"
+    text = export.table_bytes(
+        tidy.assign(model=tidy["model"].replace({"run_a": hostile})),
+        "html",
+        provenance={**record, "notes": "<b>bold</b>"},
+    ).decode()
+    assert "<script>" not in text and "<b>" not in text
+    parser = _Tables()
+    parser.feed(text)
+    assert hostile in {row[0] for row in parser.tables[0][1:]}
+    assert ["notes", "<b>bold</b>"] in parser.tables[2]
+
+
+@pytest.mark.parametrize("fmt", export.TABLE_FORMATS)
+def test_bytes_match_the_written_file(tidy: pd.DataFrame, record: dict, tmp_path: Path, fmt: str) -> None:
+    target = tmp_path / f"scores.{fmt}"
+    export.write_table(tidy, target, provenance=record)
+    if fmt != "xlsx":  # a workbook stores the time it was written
+        assert target.read_bytes() == export.table_bytes(tidy, fmt, provenance=record)
+    assert oct(target.stat().st_mode & 0o777) == oct(0o644)  # not mkstemp's owner-only mode
+
+
+@pytest.mark.parametrize("fmt", export.TABLE_FORMATS)
+def test_an_empty_table_still_exports(record: dict, fmt: str) -> None:
+    empty = pd.DataFrame({c: pd.Series(dtype=float if c == "value" else object) for c in CONTRACT_COLUMNS})
+    data = export.table_bytes(empty, fmt, provenance=record)
+    if fmt == "csv":
+        assert data.decode().strip() == ",".join(CONTRACT_COLUMNS)
+    elif fmt == "json":
+        assert json.loads(data)["scores"] == []
+    else:
+        assert len(data) > 0
+
+
+# -- bad input and atomic writes ----------------------------------------------------------
+
+
+def test_unknown_extension_names_it_and_the_allowed_ones(
+    tidy: pd.DataFrame, record: dict, tmp_path: Path
+) -> None:
+    with pytest.raises(InputError) as caught:
+        export.write_table(tidy, tmp_path / "scores.txt", provenance=record)
+    message = str(caught.value)
+    assert ".txt" in message and all(f".{f}" in message for f in CONTRACT_FORMATS)
+    assert "\n" not in message
+    with pytest.raises(InputError, match="no extension"):
+        export.write_table(tidy, tmp_path / "scores", provenance=record)
+    with pytest.raises(InputError, match=r"\.pdf"):
+        export.table_bytes(tidy, "pdf", provenance=record)
+    assert list(tmp_path.iterdir()) == []
+
+
+def test_a_table_without_the_contract_columns_is_refused_before_writing(
+    tidy: pd.DataFrame, record: dict, tmp_path: Path
+) -> None:
+    with pytest.raises(InputError, match="units"):
+        export.write_table(tidy.drop(columns="units"), tmp_path / "scores.csv", provenance=record)
+    assert list(tmp_path.iterdir()) == []
+
+
+def test_a_missing_or_non_folder_directory_is_input_error(
+    tidy: pd.DataFrame, record: dict, tmp_path: Path
+) -> None:
+    with pytest.raises(InputError, match="does not exist") as caught:
+        export.write_table(tidy, tmp_path / "nowhere" / "scores.md", provenance=record)
+    assert caught.value.file == str(tmp_path / "nowhere") and caught.value.remedy
+    (tmp_path / "plain").write_text("a file, not a folder")
+    with pytest.raises(InputError, match="not a folder"):
+        export.write_field(
+            xr.DataArray([1.0], dims="x", name="v"), tmp_path / "plain" / "f.nc", provenance=record
+        )
+
+
+def _disk_full(fd: int) -> None:
+    raise OSError(errno.ENOSPC, os.strerror(errno.ENOSPC))
+
+
+@pytest.mark.parametrize("name", ["scores.csv", "scores.xlsx", "scores.html"])
+def test_a_failing_disk_leaves_no_file_and_the_old_one_intact(
+    tidy: pd.DataFrame, record: dict, tmp_path: Path, monkeypatch: pytest.MonkeyPatch, name: str
+) -> None:
+    # os.fsync is the last step before the rename: simulating ENOSPC there means the data
+    # were already (partly) in the temporary file, as with a real full disk.
+    target = tmp_path / name
+    monkeypatch.setattr(os, "fsync", _disk_full)
+    with pytest.raises(InputError, match="No space left") as caught:
+        export.write_table(tidy, target, provenance=record)
+    assert caught.value.file == str(target)
+    assert list(tmp_path.iterdir()) == []  # neither target, sidecar nor temporary file
+
+    monkeypatch.undo()
+    target.write_bytes(b"previous report")
+    monkeypatch.setattr(os, "fsync", _disk_full)
+    with pytest.raises(InputError):
+        export.write_table(tidy, target, provenance=record)
+    assert target.read_bytes() == b"previous report"
+    assert [p.name for p in tmp_path.iterdir()] == [name]
+
+
+def test_a_field_that_fails_while_computing_leaves_no_file(record: dict, tmp_path: Path) -> None:
+    def unreadable(block: np.ndarray, block_info: dict | None = None) -> np.ndarray:
+        if block_info is not None and block_info[None]["chunk-location"][0] == 1:
+            raise ValueError("source file went away while reading")
+        return block
+
+    lazy = dask.array.ones((4, 3), chunks=(2, 3)).map_blocks(unreadable, dtype=float)
+    field = xr.DataArray(lazy, dims=("time", "lat"), name="tas")
+    with pytest.raises(ValueError, match="went away"):
+        export.write_field(field, tmp_path / "tas.nc", provenance=record)
+    assert list(tmp_path.iterdir()) == []
+
+
+# -- NetCDF fields ----------------------------------------------------------------------
+
+
+def field_360_day(*, lazy: bool) -> xr.DataArray:
+    # dates built with cftime itself, the outside reference for the 360-day calendar
+    times = [cftime.Datetime360Day(1991 + i // 12, i % 12 + 1, 16) for i in range(24)]
+    values = np.arange(24 * 3 * 4, dtype="float32").reshape(24, 3, 4)
+    values[5, 1, 2] = np.nan
+    da = xr.DataArray(
+        values,
+        dims=("time", "lat", "lon"),
+        coords={
+            "time": ("time", times, {"standard_name": "time"}),
+            "lat": ("lat", [-30.0, 0.0, 30.0], {"units": "degrees_north", "standard_name": "latitude"}),
+            "lon": (
+                "lon",
+                [-135.0, -45.0, 45.0, 135.0],
+                {"units": "degrees_east", "standard_name": "longitude"},
+            ),
+        },
+        name="tas_difference",
+        attrs={
+            "units": "K",
+            "standard_name": "air_temperature",
+            "long_name": "near-surface air temperature, run_a minus ref_obs",
+            "cell_methods": "time: mean area: mean",
+            "masked": True,
+            "note": None,
+        },
+    )
+    return da.chunk({"time": 12}) if lazy else da
+
+
+@pytest.mark.parametrize("lazy", [False, True], ids=["numpy", "dask"])
+def test_write_field_round_trips_with_a_360_day_calendar(record: dict, tmp_path: Path, lazy: bool) -> None:
+    field = field_360_day(lazy=lazy)
+    before = (dict(field.attrs), dict(field.encoding), dict(field["time"].encoding))
+    target = tmp_path / "difference.nc"
+    export.write_field(field, target, provenance=record)
+
+    with xr.open_dataset(target, decode_times=xr.coders.CFDatetimeCoder(use_cftime=True)) as ds:
+        back = ds["tas_difference"].load()
+        attrs = dict(ds.attrs)
+    expected_times = [cftime.Datetime360Day(1991 + i // 12, i % 12 + 1, 16) for i in range(24)]
+    assert list(back["time"].values) == expected_times
+    np.testing.assert_array_equal(back.values, field.values)  # NaN in the same place
+    for key in ["units", "standard_name", "long_name", "cell_methods"]:
+        assert back.attrs[key] == field.attrs[key]
+    assert back["lat"].attrs["standard_name"] == "latitude"
+    assert attrs["Conventions"] == "CF-1.10"
+    assert json.loads(attrs["provenance"]) == record
+    assert record["created"] in attrs["history"]
+
+    # the raw encoding, decoded by cftime rather than xarray (CF-1.10 sec. 4.4)
+    with netCDF4.Dataset(target) as nc:
+        time = nc.variables["time"]
+        assert time.calendar == "360_day"
+        assert list(cftime.num2date(time[:], time.units, time.calendar)) == expected_times
+        assert "_FillValue" not in nc.variables["lat"].ncattrs()  # CF 2.5.1: no missing coordinates
+    assert (dict(field.attrs), dict(field.encoding), dict(field["time"].encoding)) == before
+
+
+def test_write_field_keeps_dataset_history_and_refuses_other_extensions(record: dict, tmp_path: Path) -> None:
+    ds = field_360_day(lazy=False).to_dataset().assign_attrs(history="2020-01-01: made by hand")
+    target = tmp_path / "field.nc"
+    export.write_field(ds, target, provenance=record)
+    with xr.open_dataset(target, decode_times=xr.coders.CFDatetimeCoder(use_cftime=True)) as back:
+        lines = back.attrs["history"].splitlines()
+    assert lines[0] == "2020-01-01: made by hand" and record["created"] in lines[1]
+    with pytest.raises(InputError, match=r"\.nc"):
+        export.write_field(ds, tmp_path / "field.grib", provenance=record)
+    assert [p.name for p in tmp_path.iterdir()] == ["field.nc"]
+
+
+def test_field_bytes_are_a_netcdf4_file(record: dict, tmp_path: Path) -> None:
+    field = field_360_day(lazy=False)
+    data = export.field_bytes(field, provenance=record)
+    # every NetCDF-4 file is an HDF5 file, which starts with this signature (HDF5 File
+    # Format Specification, "Format Signature")
+    assert data[:8] == b"\x89HDF\r\n\x1a\n"
+    copy = tmp_path / "download.nc"
+    copy.write_bytes(data)
+    with xr.open_dataset(copy, decode_times=xr.coders.CFDatetimeCoder(use_cftime=True)) as ds:
+        np.testing.assert_array_equal(ds["tas_difference"].values, field.values)
+        assert ds["time"].encoding["calendar"] == "360_day"
