@@ -8,6 +8,7 @@ prepares the grids (periodic longitude padding) so that global grids map without
 
 from __future__ import annotations
 
+from functools import lru_cache
 from typing import Literal
 
 import numpy as np
@@ -139,6 +140,28 @@ def _bounds(grid: xr.Dataset | None, da: xr.DataArray | xr.Dataset, axis: str) -
     return infer_bounds(da[axis].values, kind=axis)  # type: ignore[arg-type]
 
 
+@lru_cache(maxsize=64)
+def _overlaps(src_lat: bytes, src_lon: bytes, tgt_lat: bytes, tgt_lon: bytes) -> tuple[np.ndarray, np.ndarray]:
+    """Latitude (in sin φ) and longitude interval overlaps, computed once per grid pair."""
+    import pandas as pd
+    from xarray_regrid import utils
+
+    def bounds(raw: bytes) -> np.ndarray:
+        return np.sort(np.frombuffer(raw, dtype="float64").reshape(-1, 2), axis=1)
+
+    def intervals(b: np.ndarray) -> pd.IntervalIndex:
+        return pd.IntervalIndex.from_arrays(b[:, 0], b[:, 1])
+
+    mu_src = np.sin(np.deg2rad(bounds(src_lat)))
+    mu_tgt = np.sin(np.deg2rad(bounds(tgt_lat)))
+    w_lat = utils.overlap(intervals(mu_src), intervals(mu_tgt))
+    src_lon_b, tgt_lon_b = bounds(src_lon), bounds(tgt_lon)
+    w_lon = sum(utils.overlap(intervals(src_lon_b + shift), intervals(tgt_lon_b)) for shift in (-360.0, 0.0, 360.0))
+    w_lat.setflags(write=False)
+    w_lon.setflags(write=False)
+    return w_lat, w_lon
+
+
 def _conservative(
     da: xr.DataArray,
     src_lat_b: np.ndarray,
@@ -158,18 +181,10 @@ def _conservative(
     centres and corrects for latitude per source cell, which moves the global mean by
     ~1e-4 between non-nested grids); and the longitude overlaps wrap round the globe.
     """
-    import pandas as pd
     from xarray_regrid import utils
     from xarray_regrid.methods.conservative import apply_weights
 
-    def intervals(b: np.ndarray) -> pd.IntervalIndex:
-        return pd.IntervalIndex.from_arrays(b[:, 0], b[:, 1])
-
-    mu_src = np.sin(np.deg2rad(np.sort(src_lat_b, axis=1)))
-    mu_tgt = np.sin(np.deg2rad(np.sort(tgt_lat_b, axis=1)))
-    w_lat = utils.overlap(intervals(mu_src), intervals(mu_tgt))
-    src_lon = np.sort(src_lon_b, axis=1)
-    w_lon = sum(utils.overlap(intervals(src_lon + shift), intervals(np.sort(tgt_lon_b, axis=1))) for shift in (-360.0, 0.0, 360.0))
+    w_lat, w_lon = _overlaps(src_lat_b.tobytes(), src_lon_b.tobytes(), tgt_lat_b.tobytes(), tgt_lon_b.tobytes())
     weights = {
         "lat": utils.create_dot_dataarray(utils.normalize_overlap(w_lat), "lat", tgt_lat, da["lat"].values),
         "lon": utils.create_dot_dataarray(utils.normalize_overlap(w_lon), "lon", tgt_lon, da["lon"].values),
