@@ -240,7 +240,14 @@ def open_source(
     if variables:
         wanted = []
         for v in variables:
-            wanted.extend(_files_with(files, v))
+            holding = _files_with(files, v)
+            if not holding:
+                # a derived variable (net TOA flux, ...) needs the files of its inputs
+                from .derived import DERIVED
+
+                if v in DERIVED:
+                    holding = [p for name in DERIVED[v].inputs for p in _files_with(files, name)]
+            wanted.extend(holding)
         fixed = [p for p in files if any(m["has_time"] == "False" for m in _listing(p).values())]
         files_to_open = sorted(set(wanted) | set(fixed))
         if not wanted:
