@@ -109,12 +109,9 @@ def _cmd_budget(args) -> int:
     from evaluation.budget import budget_table
     from evaluation.export import write_table
 
-    import pandas as pd
-
     models = [_source_arg(m, role="model") for m in args.model]
     with _scheduler(args), _progress(True):
-        frames = [budget_table(m, period=args.period) for m in models]
-    table = pd.concat(frames, ignore_index=True)
+        table = budget_table(models, period=args.period)
     if args.output:
         from evaluation.export import provenance
 

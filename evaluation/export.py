@@ -198,6 +198,18 @@ def _json_text(record: Any) -> str:
 # --------------------------------------------------------------------------------------
 
 
+def _key_columns(table: pd.DataFrame) -> list[str]:
+    """The identifying columns: the score contract's, or (for other tidy tables such as the
+    energy budget's ``model, period, metric, value, units``) every column but the values."""
+    if any(c in table.columns for c in ("reference", "region", "season")):
+        return list(KEY_COLUMNS)
+    return [c for c in table.columns if c not in ("metric", "value", "units")]
+
+
+def _columns(table: pd.DataFrame) -> list[str]:
+    return [*_key_columns(table), "metric", "value", "units"]
+
+
 def _tidy(tidy: pd.DataFrame) -> pd.DataFrame:
     """The contract columns of ``tidy`` in contract order, ``period`` as text."""
     if not isinstance(tidy, pd.DataFrame):
@@ -205,13 +217,14 @@ def _tidy(tidy: pd.DataFrame) -> pd.DataFrame:
             f"a score table must be a pandas DataFrame, not {type(tidy).__name__}",
             remedy="pass the table returned by Comparison.scores",
         )
-    missing = [c for c in TIDY_COLUMNS if c not in tidy.columns]
+    columns = _columns(tidy)
+    missing = [c for c in columns if c not in tidy.columns]
     if missing:
         raise InputError(
             f"the score table lacks the columns {', '.join(missing)}",
             remedy=f"give it the columns {', '.join(TIDY_COLUMNS)} (as Comparison.scores does)",
         )
-    table = tidy.loc[:, list(TIDY_COLUMNS)].reset_index(drop=True)
+    table = tidy.loc[:, columns].reset_index(drop=True)
     # Period objects and strings must print the same way in every format.
     return table.assign(period=table["period"].map(str), value=pd.to_numeric(table["value"]))
 
@@ -249,7 +262,7 @@ def wide_table(tidy: pd.DataFrame) -> pd.DataFrame:
     differ per metric and variable); the report formats list them separately.
     """
     table = _tidy(tidy)
-    keys = list(KEY_COLUMNS)
+    keys = _key_columns(table)
     if table.empty:
         return pd.DataFrame({k: pd.Series(dtype=object) for k in keys})
     try:
@@ -268,6 +281,8 @@ def wide_table(tidy: pd.DataFrame) -> pd.DataFrame:
 
 def _units_table(table: pd.DataFrame) -> pd.DataFrame:
     """Variable x metric -> units, for the report formats' legend."""
+    if "variable" not in table.columns:  # e.g. the energy budget: one unit per metric
+        table = table.assign(variable="")
     if table.empty:
         return pd.DataFrame({"variable": pd.Series(dtype=object)})
     joined = (
@@ -290,10 +305,11 @@ def _display_frame(tidy: pd.DataFrame, *, missing: str) -> pd.DataFrame:
     """The wide table as text rounded for reading, NaN shown as ``missing``."""
     wide = wide_table(tidy)
     shown = wide.astype(object)
-    for column in wide.columns[len(KEY_COLUMNS) :]:
+    keys = _key_columns(tidy)
+    for column in wide.columns[len(keys) :]:
         spec = _cell_format(str(column))
         shown[column] = [missing if pd.isna(v) else spec.format(v) for v in wide[column]]
-    for column in KEY_COLUMNS:
+    for column in keys:
         shown[column] = wide[column].map(str)
     return shown
 
@@ -344,7 +360,7 @@ def _markdown_bytes(table: pd.DataFrame, record: Mapping[str, Any] | None) -> by
         return text.to_markdown(index=False, disable_numparse=True, colalign=tuple(align))
 
     shown = _display_frame(table, missing="–")
-    n_keys = len(KEY_COLUMNS)
+    n_keys = len(_key_columns(table))
     units = _units_table(table)
     prov = _provenance_frame(record)
     parts = [
@@ -361,7 +377,7 @@ def _markdown_bytes(table: pd.DataFrame, record: Mapping[str, Any] | None) -> by
 def _latex_bytes(table: pd.DataFrame, record: Mapping[str, Any] | None) -> bytes:
     # "--" is LaTeX's en dash and stays plain ASCII.
     shown = _display_frame(table, missing="--")
-    n_keys = len(KEY_COLUMNS)
+    n_keys = len(_key_columns(table))
     styler = (
         shown.style.hide(axis="index").format(escape="latex").format_index(escape="latex", axis="columns")
     )
@@ -413,7 +429,7 @@ def _html_bytes(table: pd.DataFrame, record: Mapping[str, Any] | None) -> bytes:
 
     text = _HTML.render(
         title=_title(record),
-        n_keys=len(KEY_COLUMNS),
+        n_keys=len(_key_columns(table)),
         scores=html(_display_frame(table, missing="–"), "scores"),
         units=html(_units_table(table), "legend"),
         provenance=html(_provenance_frame(record), "legend"),

@@ -35,7 +35,8 @@ def infer_bounds(centres: np.ndarray, *, kind: Literal["lat", "lon"]) -> np.ndar
     """Cell bounds ``(n, 2)`` from cell centres, half-way between neighbours.
 
     The outer bounds are extrapolated by half a spacing; latitude bounds are clipped to
-    ±90°.  A single centre gets a cell of 1° (latitude) or the whole circle (longitude).
+    ±90°, and an outer latitude bound that ends less than half a spacing short of a pole
+    (Gaussian grids) is moved to the pole.  A single centre gets a cell of 1° (latitude) or the whole circle (longitude).
     """
     c = np.asarray(centres, dtype="float64")
     if c.size == 1:
@@ -44,6 +45,13 @@ def infer_bounds(centres: np.ndarray, *, kind: Literal["lat", "lon"]) -> np.ndar
     else:
         mid = 0.5 * (c[:-1] + c[1:])
         edges = np.concatenate([[c[0] - (mid[0] - c[0])], mid, [c[-1] + (c[-1] - mid[-1])]])
+        if kind == "lat":
+            # Gaussian latitudes stop about a quarter cell short of the pole after the
+            # half-spacing extrapolation; a row that close to the pole is the polar row,
+            # so it reaches the pole (else a polar cap is missing from every area sum).
+            for k, inner in ((0, mid[0]), (-1, mid[-1])):
+                if 90.0 - abs(edges[k]) < abs(inner - c[k]):
+                    edges[k] = np.sign(edges[k]) * 90.0
     if kind == "lat":
         edges = np.clip(edges, -90.0, 90.0)
     return np.stack([edges[:-1], edges[1:]], axis=1)

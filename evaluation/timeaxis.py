@@ -161,13 +161,13 @@ def season_means(da: xr.DataArray, season: str, period: Period | str | None = No
     period = None if period is None else parse_period(period)
     steps, labels = _complete_steps(da["time"], season, period)
     sub = da.isel(time=steps).astype("float64")
+    if steps.size == 0:
+        # checked before `.dt`, which fails on an empty object-dtype (cftime) time axis
+        return sub.rename(time="year").drop_vars("year", errors="ignore").assign_coords(year=np.array([], dtype=int))
     weights = sub["time"].dt.days_in_month.astype("float64")
     label = xr.DataArray(labels, dims="time", name="year")
     sub = sub.assign_coords(year=label)
     weights = weights.assign_coords(year=label)
-    if steps.size == 0:
-        empty = sub.isel(time=slice(0, 0)).rename(time="year").drop_vars("year").assign_coords(year=np.array([], dtype=int))
-        return empty
     total = (sub * weights).groupby("year").sum(dim="time", skipna=False)
     norm = weights.groupby("year").sum(dim="time")
     out = total / norm
