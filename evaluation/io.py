@@ -20,6 +20,7 @@ import glob
 import os
 import re
 import threading
+import warnings
 from collections.abc import Iterable, Sequence
 from dataclasses import dataclass
 from pathlib import Path
@@ -161,6 +162,7 @@ def _listing(path: str) -> dict[str, dict[str, str]]:
     ident = file_identity([path])[0]
     if ident in _LISTING_CACHE:
         return _LISTING_CACHE[ident]
+    _check_complete(path)
     try:
         with _OPEN_LOCK, xr.open_dataset(path, decode_times=False, decode_cf=False) as ds:
             lat, lon = find_axis(ds, "lat"), find_axis(ds, "lon")
@@ -179,6 +181,32 @@ def _listing(path: str) -> dict[str, dict[str, str]]:
         raise _unreadable(path, exc) from None
     _LISTING_CACHE[ident] = out
     return out
+
+
+def _check_complete(path: str) -> None:
+    """Refuse a NetCDF-3 file that is shorter than its header says.
+
+    netCDF-C reads the missing tail of a truncated classic-format file as zeros without
+    an error, which would be scored silently.  scipy's NetCDF-3 reader checks each
+    variable's extent against the file when it maps it (memory-mapped: no data are
+    read), so it serves as the completeness check.  HDF5-based files fail on open.
+    """
+    try:
+        with open(path, "rb") as fh:
+            if fh.read(4) not in (b"CDF\x01", b"CDF\x02"):
+                return
+            from scipy.io import netcdf_file
+
+            fh.seek(0)
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore")  # scipy warns about mapped arrays on close
+                netcdf_file(fh, mmap=True).close()
+    except Exception:
+        raise InputError(
+            "the file is shorter than its header says (truncated)",
+            file=path,
+            remedy="copy or download the file again in full",
+        ) from None
 
 
 def _unreadable(path: str, exc: BaseException) -> InputError:
@@ -251,10 +279,13 @@ def open_source(
         fixed = [p for p in files if any(m["has_time"] == "False" for m in _listing(p).values())]
         files_to_open = sorted(set(wanted) | set(fixed))
         if not wanted:
+            for p in files:
+                if not _listing(p):
+                    _require_horizontal_axes(p)  # "no variable" would hide a missing coordinate
             names = ", ".join(sorted(variables_in(files))) or "none"
             raise InputError(
                 f"no variable '{', '.join(variables)}' (by name or standard_name); variables found: {names}",
-                file=source or files,
+                file=files,  # the files, so that the message says where to look
                 remedy="choose a variable the files hold, or add the files that hold it",
             )
     else:
@@ -292,6 +323,18 @@ def open_source(
     ds = parts[0] if len(parts) == 1 else xr.merge(parts, compat="override", join="override", combine_attrs="drop_conflicts")
     ds.attrs.setdefault("gridscore_files", "\n".join(files_to_open))
     return normalise(ds, source=source or (files_to_open[0] if len(files_to_open) == 1 else None), files=files_to_open)
+
+
+def _require_horizontal_axes(path: str) -> None:
+    """InputError naming ``path`` when CF attributes identify no latitude or longitude in it."""
+    with _OPEN_LOCK, xr.open_dataset(path, decode_times=False, decode_cf=False) as raw:
+        missing = [label for axis, label in (("lat", "latitude"), ("lon", "longitude")) if find_axis(raw, axis) is None]
+    if missing:
+        raise InputError(
+            f"no {missing[0]} coordinate found by CF attributes",
+            file=path,
+            remedy=f"give the {missing[0]} coordinate standard_name='{missing[0]}' or units='degrees_{'north' if missing[0] == 'latitude' else 'east'}'",
+        )
 
 
 def _classify_open_error(files: Sequence[str], exc: BaseException) -> InputError:
@@ -464,6 +507,7 @@ def check_files(paths: Sequence[str]) -> tuple[list[str], list[str]]:
     problems: list[str] = []
     for path in files:
         try:
+            _listing(path)  # turns a reader failure (random bytes, truncated file) into InputError
             with _OPEN_LOCK, xr.open_dataset(path, decode_times=False, decode_cf=False) as raw:
                 _cf_problems(raw, path, problems)
             ds = open_source([path], source=path)

@@ -147,7 +147,7 @@ class Comparison:
         self.long_name = ref.attrs.get("long_name", variable)
         stored = ref.attrs.get("units")
         if stored is None:
-            raise InputError(f"variable '{variable}' has no units attribute", file=reference.name, remedy="add a CF units attribute")
+            raise InputError(f"variable '{variable}' has no units attribute", file=io.expand_paths(reference.paths, source=reference.name), remedy="add a CF units attribute")
         self.units = units or preferred_units(self.standard_name, str(stored))
         self._sources: dict[str, Source] = {reference.name: reference}
         self._prepared: dict[str, _Prepared] = {reference.name: self._prepare_source(reference, ref)}
@@ -162,8 +162,8 @@ class Comparison:
             for name, span in zip(self._sources, spans, strict=True):
                 if span is None or not span.covers(self.period):
                     raise InputError(
-                        f"does not cover the period {self.period} (its complete years: {span or 'none'})",
-                        file=name,
+                        f"'{name}' does not cover the period {self.period} (its complete years: {span or 'none'})",
+                        file=self._prepared[name].files,
                         remedy=f"choose a period within {span}" if span else "give at least twelve consecutive months",
                     )
         self.span = self._overlap(spans)  # the years every source covers
@@ -175,15 +175,20 @@ class Comparison:
         self._grids[src.name] = grid_of(ds)
         da = io.get_variable(ds, self.variable, source=src.name)
         if "time" not in da.dims:
-            raise InputError(f"variable '{self.variable}' has no time axis", file=src.name, remedy="give monthly time series")
+            # name the files, not only the source: the message must say which file to fix
+            files = io.expand_paths(src.paths, source=src.name)
+            raise InputError(f"variable '{self.variable}' of '{src.name}' has no time axis", file=files, remedy="give monthly time series")
         if "sftlf" in ds.data_vars or any(ds[v].attrs.get("standard_name") == "land_area_fraction" for v in ds.data_vars):
             self._land[src.name] = _land_from(ds)
         return da
 
     def _prepare_source(self, src: Source, da: xr.DataArray) -> _Prepared:
-        da = convert(da, self.units, source=src.name)
-        span = complete_years(da["time"])
         files = io.expand_paths(src.paths, source=src.name)
+        try:
+            da = convert(da, self.units, source=src.name)
+        except InputError as err:
+            raise InputError(f"{err.problem} (source '{src.name}')", file=files, remedy=err.remedy) from None
+        span = complete_years(da["time"])
         return _Prepared(monthly=da, span=span, files=files)
 
     @staticmethod
@@ -265,11 +270,24 @@ class Comparison:
 
     # ------------------------------------------------------------------ masks and weights
     def _pair(self, name: str, season: str) -> tuple[xr.DataArray, xr.DataArray, xr.DataArray]:
-        """Climatologies of a run and the reference, and their common validity mask."""
-        model = climatology(self.season_series(name, season))
-        ref = climatology(self.season_series(self.reference.name, season))
+        """Climatologies of a run and the reference over their common label years, and their common validity mask."""
+        run_series, ref_series = self._aligned(name, season)
+        model = climatology(run_series)
+        ref = climatology(ref_series)
         mask = model.notnull() & ref.notnull()
         return model, ref, mask
+
+    def _aligned(self, name: str, season: str) -> tuple[xr.DataArray, xr.DataArray]:
+        """Yearly season means of a run and the reference on the label years both have.
+
+        A season complete in one source only (DJF of the period's first year when the
+        other source starts in January) must enter neither, else the two cover
+        different years and a trend shows up as bias.
+        """
+        run_series = self.season_series(name, season)
+        ref_series = self.season_series(self.reference.name, season)
+        years = np.intersect1d(run_series["year"].values, ref_series["year"].values)
+        return run_series.sel(year=years), ref_series.sel(year=years)
 
     def _weights(self, region: str, mask: xr.DataArray) -> xr.DataArray:
         grid = self._target_grid
@@ -304,17 +322,21 @@ class Comparison:
         """Per-cell OLS trend of the yearly season means, per decade."""
         from .trends import trend_field
 
-        series = self.season_series(name, season)
-        out = trend_field(series, dim="year") * 10.0
-        if name != self.reference.name:
+        if name == self.reference.name:
+            out = trend_field(self.season_series(name, season), dim="year") * 10.0
+        else:
+            out = trend_field(self._aligned(name, season)[0], dim="year") * 10.0
             out = out.where(self._pair(name, season)[2])
         out.attrs = {**self._attrs(f"{name} trend", season), "units": trend_units(self.units)}
         out.name = f"{self.variable}_trend"
         return out
 
     def trend_difference(self, name: str, season: str) -> xr.DataArray:
-        """Run trend minus reference trend, per decade, on the common mask."""
-        out = self.trend_map(name, season) - self.trend_map(self.reference.name, season)
+        """Run trend minus reference trend over their common years, per decade, on the common mask."""
+        from .trends import trend_field
+
+        run_series, ref_series = self._aligned(name, season)
+        out = (trend_field(run_series, dim="year") - trend_field(ref_series, dim="year")) * 10.0
         out = out.where(self._pair(name, season)[2])
         out.attrs = {**self._attrs(f"{name} trend minus {self.reference.name} trend", season), "units": trend_units(self.units)}
         out.name = f"{self.variable}_trend_difference"

@@ -13,6 +13,7 @@ import re
 from collections.abc import Iterable
 from dataclasses import dataclass
 
+import cftime
 import numpy as np
 import xarray as xr
 
@@ -26,6 +27,7 @@ __all__ = [
     "parse_period",
     "parse_season",
     "season_label_years",
+    "month_lengths",
     "season_means",
     "climatology",
     "monthly_climatology",
@@ -100,6 +102,22 @@ def _month_year(time: xr.DataArray) -> tuple[np.ndarray, np.ndarray]:
             np.fromiter((t.year for t in values), dtype=int, count=values.size))
 
 
+def month_lengths(time: xr.DataArray) -> np.ndarray:
+    """Length in days of the month of each time step, in the time axis' own calendar.
+
+    Counted by cftime date arithmetic (first of the next month minus first of the month)
+    rather than ``time.dt.days_in_month``, which applies one leap-year rule per year and
+    so gives October 1582 of the mixed Julian/Gregorian standard calendar 31 days
+    instead of 21.
+    """
+    out = np.empty(time.size, dtype="float64")
+    for i, t in enumerate(time.values):
+        first = cftime.datetime(t.year, t.month, 1, calendar=t.calendar)
+        following = cftime.datetime(t.year + (t.month == 12), t.month % 12 + 1, 1, calendar=t.calendar)
+        out[i] = (following - first).days
+    return out
+
+
 def season_label_years(time: xr.DataArray, season: str) -> np.ndarray:
     """The season label year of each time step (``-1`` for months outside the season).
 
@@ -164,7 +182,7 @@ def season_means(da: xr.DataArray, season: str, period: Period | str | None = No
     if steps.size == 0:
         # checked before `.dt`, which fails on an empty object-dtype (cftime) time axis
         return sub.rename(time="year").drop_vars("year", errors="ignore").assign_coords(year=np.array([], dtype=int))
-    weights = sub["time"].dt.days_in_month.astype("float64")
+    weights = xr.DataArray(month_lengths(sub["time"]), dims="time", coords={"time": sub["time"]})
     label = xr.DataArray(labels, dims="time", name="year")
     sub = sub.assign_coords(year=label)
     weights = weights.assign_coords(year=label)
