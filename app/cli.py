@@ -75,9 +75,19 @@ def _scheduler(args) -> contextlib.AbstractContextManager:
     return connect(address=address, workers=workers)
 
 
+def _check_output(path: str | None) -> None:
+    """Refuse an unknown output format before any work is done."""
+    if path:
+        from evaluation.export import check_table_path
+
+        check_table_path(path)
+
+
 def _cmd_score(args) -> int:
     from evaluation.export import write_table
     from evaluation.scoring import Comparison
+
+    _check_output(args.output)
 
     reference = _source_arg(args.reference, role="reference", default_name="reference")
     models = [_source_arg(m, role="model") for m in args.model]
@@ -109,6 +119,7 @@ def _cmd_budget(args) -> int:
     from evaluation.budget import budget_table
     from evaluation.export import write_table
 
+    _check_output(args.output)
     models = [_source_arg(m, role="model") for m in args.model]
     with _scheduler(args), _progress(True):
         table = budget_table(models, period=args.period)

@@ -35,6 +35,7 @@ __all__ = [
     "KEY_COLUMNS",
     "METRIC_ORDER",
     "TABLE_FORMATS",
+    "check_table_path",
     "TIDY_COLUMNS",
     "field_bytes",
     "provenance",
@@ -447,6 +448,11 @@ def _format_of(fmt: str, *, file: str | None = None) -> str:
             remedy=f"use one of {', '.join('.' + f for f in TABLE_FORMATS)}",
         )
     return key
+
+
+def check_table_path(path: str | os.PathLike[str]) -> None:
+    """Raise :class:`InputError` when the extension of ``path`` is not a table format."""
+    _format_of(Path(path).suffix, file=str(path))
 
 
 def table_bytes(tidy: pd.DataFrame, fmt: str, *, provenance: Mapping[str, Any] | None) -> bytes:

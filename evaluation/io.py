@@ -23,7 +23,6 @@ import threading
 import warnings
 from collections.abc import Iterable, Sequence
 from dataclasses import dataclass
-from pathlib import Path
 
 import numpy as np
 import xarray as xr

@@ -1,0 +1,296 @@
+"""A collection of sources: model runs and references named in a TOML manifest.
+
+A manifest is a small, human-editable TOML file::
+
+    title = "My comparison"
+    description = "Three runs against two references"
+
+    [[source]]
+    name = "run-a"
+    role = "model"                  # "model" or "reference"
+    paths = ["runs/run-a/*.nc"]     # files or globs, relative to the manifest's folder
+    colour = "#1f77b4"              # optional
+    description = "control run"     # optional
+
+A folder without a manifest is read by its layout: every sub-folder of
+``DIR/references/`` is a reference and every sub-folder of ``DIR/runs/`` a model run,
+each holding its ``*.nc`` files.  The manifest is the only way a collection names files.
+"""
+
+from __future__ import annotations
+
+import os
+import re
+import tomllib
+from dataclasses import dataclass
+from functools import cached_property
+from pathlib import Path
+
+from . import io
+from .errors import InputError
+from .scoring import Source
+
+__all__ = ["Collection", "MANIFEST_NAME", "ROLES", "Source"]
+
+MANIFEST_NAME = "manifest.toml"
+ROLES = ("model", "reference")
+# the folder layout read when there is no manifest: sub-folder -> role
+LAYOUT = {"references": "reference", "runs": "model"}
+_SOURCE_KEYS = ("name", "role", "paths", "colour", "description")
+_TOP_KEYS = ("title", "description", "source")
+# '#rgb' / '#rrggbb' or a CSS colour word such as 'teal'
+_COLOUR = re.compile(r"^(#[0-9a-fA-F]{3}|#[0-9a-fA-F]{6}|[a-zA-Z]{3,20})$")
+_CONTROL = re.compile(r"[\x00-\x1f\x7f]")
+
+
+@dataclass(frozen=True)
+class Collection:
+    """Model runs and references to compare, read from a manifest or a folder.
+
+    Parameters
+    ----------
+    title
+        A short name for the collection.
+    description
+        Free text.
+    root
+        The folder that relative paths in the manifest start from.
+    sources
+        The sources in manifest order; names are unique.
+    """
+
+    title: str
+    description: str
+    root: Path
+    sources: tuple[Source, ...]
+
+    @classmethod
+    def from_path(cls, path: str | os.PathLike[str]) -> Collection:
+        """Read a manifest file, a folder holding ``manifest.toml``, or a folder laid out
+        as ``references/<name>/*.nc`` and ``runs/<name>/*.nc``.
+
+        Raises
+        ------
+        InputError
+            A missing path, a TOML syntax error, an unknown key or role, a source without
+            paths, a duplicate name, a glob that matches no file, or a folder with neither
+            a manifest nor the layout.
+
+        Notes
+        -----
+        Every glob is checked to match at least one file; the sources keep the absolute
+        patterns (not the matches), so files added later are found when they are opened.
+        """
+        target = Path(path).expanduser()
+        if target.is_dir():
+            manifest = target / MANIFEST_NAME
+            return cls._from_manifest(manifest) if manifest.is_file() else cls._from_layout(target)
+        if target.is_file():
+            return cls._from_manifest(target)
+        raise InputError(
+            "no such manifest or folder",
+            file=target,
+            remedy=f"give a {MANIFEST_NAME} file or a folder holding one",
+        )
+
+    @classmethod
+    def _from_manifest(cls, manifest: Path) -> Collection:
+        try:
+            with manifest.open("rb") as stream:
+                table = tomllib.load(stream)
+        except tomllib.TOMLDecodeError as err:
+            raise InputError(
+                f"the manifest is not valid TOML ({err})",
+                file=manifest,
+                remedy="fix the syntax; strings need double quotes, lists square brackets",
+            ) from None
+        except (OSError, UnicodeDecodeError) as err:
+            raise InputError(
+                f"cannot read the manifest ({err})",
+                file=manifest,
+                remedy="check that it is a readable UTF-8 text file",
+            ) from None
+        unknown = sorted(set(table) - set(_TOP_KEYS))
+        if unknown:
+            raise InputError(
+                f"unknown key {unknown[0]!r} in the manifest",
+                file=manifest,
+                remedy=f"use only {', '.join(_TOP_KEYS)} at the top (each source is a [[source]] table)",
+            )
+        entries = table.get("source", [])
+        if not isinstance(entries, list) or not all(isinstance(e, dict) for e in entries):
+            raise InputError(
+                "'source' must be a list of tables",
+                file=manifest,
+                remedy="write each source as a [[source]] table",
+            )
+        if not entries:
+            raise InputError(
+                "the manifest names no source",
+                file=manifest,
+                remedy="add at least one [[source]] table with name, role and paths",
+            )
+        root = manifest.resolve().parent
+        sources = tuple(
+            _source_from_table(entry, index, root, manifest) for index, entry in enumerate(entries)
+        )
+        _check_unique(sources, manifest)
+        return cls(
+            title=_text(table, "title", manifest, default=root.name),
+            description=_text(table, "description", manifest, default=""),
+            root=root,
+            sources=sources,
+        )
+
+    @classmethod
+    def _from_layout(cls, folder: Path) -> Collection:
+        root = folder.resolve()
+        sources = []
+        for sub, role in LAYOUT.items():
+            parent = root / sub
+            if not parent.is_dir():
+                continue
+            for child in sorted(p for p in parent.iterdir() if p.is_dir()):
+                pattern = str(child / "*.nc")
+                io.expand_paths(pattern, source=child.name)  # refuses a folder without files
+                sources.append(Source(name=child.name, role=role, paths=(pattern,)))
+        if not sources:
+            raise InputError(
+                f"the folder has no {MANIFEST_NAME} and no references/<name>/ or runs/<name>/ sub-folders",
+                file=root,
+                remedy=f"write a {MANIFEST_NAME} or put each source's *.nc files in runs/<name>/ or references/<name>/",
+            )
+        result = tuple(sources)
+        _check_unique(result, root)
+        return cls(title=root.name, description="", root=root, sources=result)
+
+    @property
+    def models(self) -> tuple[Source, ...]:
+        """The model runs, in manifest order."""
+        return tuple(s for s in self.sources if s.role == "model")
+
+    @property
+    def references(self) -> tuple[Source, ...]:
+        """The references, in manifest order."""
+        return tuple(s for s in self.sources if s.role == "reference")
+
+    def source(self, name: str) -> Source:
+        """The source called ``name``; InputError names the known ones otherwise."""
+        for src in self.sources:
+            if src.name == name:
+                return src
+        raise InputError(
+            f"no source called {name!r} in the collection",
+            file=self.root,
+            remedy=f"choose one of {', '.join(s.name for s in self.sources)}",
+        )
+
+    def variables(self) -> list[str]:
+        """Sorted names of the time-varying gridded variables that at least one model run
+        and at least one reference hold.
+
+        Notes
+        -----
+        Only file headers are read (through :func:`evaluation.io.variables_in`, which also
+        caches them by file identity); the answer is kept on the instance.  Fixed fields
+        without a time axis (land fraction, cell area) are left out: they are not
+        compared.  An empty list means no variable is shared.
+        """
+        return list(self._shared_variables)
+
+    @cached_property
+    def _shared_variables(self) -> tuple[str, ...]:
+        # cached_property writes to the instance __dict__, which a frozen dataclass allows
+        def held(sources: tuple[Source, ...]) -> set[str]:
+            names: set[str] = set()
+            for src in sources:
+                listing = io.variables_in(io.expand_paths(src.paths, source=src.name))
+                names.update(n for n, meta in listing.items() if meta.get("has_time") != "False")
+            return names
+
+        return tuple(sorted(held(self.models) & held(self.references)))
+
+
+def _text(table: dict, key: str, where: Path, *, default: str, context: str = "the manifest") -> str:
+    value = table.get(key, default)
+    if not isinstance(value, str):
+        raise InputError(
+            f"{key!r} in {context} must be a string, not {type(value).__name__}",
+            file=where,
+            remedy=f'write it in double quotes, e.g. {key} = "..."',
+        )
+    return value
+
+
+def _source_from_table(entry: dict, index: int, root: Path, manifest: Path) -> Source:
+    """One [[source]] table -> a Source with absolute path patterns."""
+    label = f"source #{index + 1}"
+    unknown = sorted(set(entry) - set(_SOURCE_KEYS))
+    if unknown:
+        raise InputError(
+            f"unknown key {unknown[0]!r} in {label}",
+            file=manifest,
+            remedy=f"the keys of a source are {', '.join(_SOURCE_KEYS)}",
+        )
+    if "name" not in entry:
+        raise InputError(f"{label} has no name", file=manifest, remedy='add name = "..."')
+    name = _text(entry, "name", manifest, default="", context=label).strip()
+    if not name or _CONTROL.search(name):
+        raise InputError(
+            f"{label} has an empty name or one with control characters",
+            file=manifest,
+            remedy="give each source a short printable name",
+        )
+    label = f"source {name!r}"
+    role = entry.get("role")
+    if role not in ROLES:
+        raise InputError(
+            f"{label} has role {role!r}", file=manifest, remedy='set role = "model" or role = "reference"'
+        )
+    paths = entry.get("paths")
+    if isinstance(paths, str):
+        paths = [paths]
+    if not isinstance(paths, list) or not paths or not all(isinstance(p, str) and p.strip() for p in paths):
+        raise InputError(
+            f"{label} has no paths",
+            file=manifest,
+            remedy='add paths = ["folder/*.nc"] (files or globs, relative to the manifest)',
+        )
+    patterns = tuple(_absolute(p, root) for p in paths)
+    for pattern in patterns:
+        try:
+            io.expand_paths(pattern, source=name)
+        except InputError as err:
+            raise InputError(
+                f"{label}: {err.problem} ({pattern})", file=manifest, remedy=err.remedy or "check the path"
+            ) from None
+    colour = entry.get("colour")
+    if colour is not None and (not isinstance(colour, str) or not _COLOUR.match(colour.strip())):
+        raise InputError(
+            f"{label} has colour {colour!r}",
+            file=manifest,
+            remedy='write a colour as "#rrggbb" (or "#rgb", or a CSS colour name)',
+        )
+    return Source(
+        name=name,
+        role=role,
+        paths=patterns,
+        colour=None if colour is None else colour.strip(),
+        description=_text(entry, "description", manifest, default="", context=label),
+    )
+
+
+def _absolute(pattern: str, root: Path) -> str:
+    """A manifest path made absolute: relative ones start at the manifest's folder."""
+    text = os.path.expanduser(pattern.strip())
+    return text if os.path.isabs(text) else os.path.normpath(os.path.join(root, text))
+
+
+def _check_unique(sources: tuple[Source, ...], where: Path) -> None:
+    seen: set[str] = set()
+    for src in sources:
+        if src.name in seen:
+            raise InputError(
+                f"two sources are called {src.name!r}", file=where, remedy="give every source its own name"
+            )
+        seen.add(src.name)

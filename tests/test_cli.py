@@ -1,0 +1,248 @@
+"""Tests of the ``gridscore`` console script, run as a subprocess on real NetCDF files.
+
+The contract is in shared/DESIGN.md and issue 2, item 8: the tidy CSV columns, every
+combination of --region and --season, periods written YYYY-YYYY, and exit 2 with one line
+naming the file and the remedy (no traceback, no file written) for every bad input.
+"""
+
+from __future__ import annotations
+
+import os
+import shutil
+import subprocess
+import sys
+from concurrent.futures import ThreadPoolExecutor
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+from conftest import cf_dataset, write_cf
+
+CONTRACT_COLUMNS = ["model", "reference", "variable", "region", "season", "period", "metric", "value", "units"]
+CONTRACT_METRICS = {
+    "mean", "ref_mean", "bias", "rmse", "crmse", "corr", "std_ratio", "taylor_skill",
+    "trend", "ref_trend", "trend_pvalue", "ref_trend_pvalue", "iav_ratio", "rel_error",
+}  # fmt: skip
+UNITLESS = {"corr", "std_ratio", "taylor_skill", "trend_pvalue", "ref_trend_pvalue", "iav_ratio", "rel_error"}
+
+
+def gridscore() -> str:
+    """The console script of the environment running the tests."""
+    exe = Path(sys.executable).with_name("gridscore")
+    return str(exe) if exe.exists() else (shutil.which("gridscore") or "gridscore")
+
+
+def run(*args: str, cwd: Path | None = None) -> subprocess.CompletedProcess:
+    env = {k: v for k, v in os.environ.items() if k != "GRIDSCORE_DEBUG"}
+    return subprocess.run([gridscore(), *map(str, args)], capture_output=True, text=True, timeout=300, cwd=cwd, env=env)
+
+
+@pytest.fixture(scope="module")
+def data(tmp_path_factory) -> dict[str, Path]:
+    tmp = tmp_path_factory.mktemp("cli")
+    common = dict(dlat=10.0, start_year=1995, years=6, dtype="float64")
+    p = {
+        "ref": write_cf(tmp / "ref.nc", **common),
+        "warm": write_cf(tmp / "warm.nc", offset=1.0, **common),  # the reference plus 1 K everywhere
+        "coarse": write_cf(tmp / "coarse.nc", dlat=15.0, start_year=1995, years=6, calendar="360_day", lon_0_360=True, lat_descending=True, units="degC", offset=-273.15),
+    }
+    p["noise"] = tmp / "noise.nc"
+    p["noise"].write_bytes(np.random.default_rng(1).bytes(8192))
+    whole = p["warm"].read_bytes()
+    p["half"] = tmp / "half.nc"
+    p["half"].write_bytes(whole[: len(whole) // 2])
+    classic = tmp / "classic.nc"
+    ds = cf_dataset(offset=1.0, bounds=False, **common)
+    ds.to_netcdf(classic, format="NETCDF3_CLASSIC")
+    p["half3"] = tmp / "half3.nc"
+    p["half3"].write_bytes(classic.read_bytes()[: classic.stat().st_size // 2])
+    p["nolat"] = write_cf(tmp / "nolat.nc", identify_by="none", **common)
+    p["notime"] = write_cf(tmp / "notime.nc", with_time=False, dlat=10.0)
+    p["lunar"] = write_cf(tmp / "lunar.nc", calendar="lunar", **common)
+    p["flux"] = write_cf(tmp / "flux.nc", units="W m-2", **common)
+    p["pr"] = write_cf(tmp / "pr.nc", variable="pr", units="kg m-2 s-1", standard_name="precipitation_flux", **common)
+    p["old"] = write_cf(tmp / "old.nc", dlat=10.0, start_year=1950, years=5)
+    p["pacific_nan"] = write_cf(tmp / "pacific_nan.nc", nan_mask=lambda la, lo: (np.abs(la) < 30) & ((lo > 140) | (lo < -130)), **common)
+    p["dir"] = tmp
+    return p
+
+
+# ---------------------------------------------------------------------------- score
+
+
+@pytest.fixture(scope="module")
+def scored(data, tmp_path_factory):
+    out = tmp_path_factory.mktemp("out") / "scores.csv"
+    proc = run(
+        "score", "--reference", data["ref"], "--model", f"warm={data['warm']}", "--model", f"coarse={data['coarse']}",
+        "--variable", "tas", "--region", "global", "--region", "tropics", "--region", "box:-10,10,160,-150",
+        "--season", "ANN", "--season", "DJF", "--output", out,
+    )  # fmt: skip
+    return proc, out
+
+
+def test_score_writes_the_tidy_csv(scored):
+    proc, out = scored
+    assert proc.returncode == 0, proc.stderr
+    assert "Traceback" not in proc.stderr
+    table = pd.read_csv(out, keep_default_na=False, na_values=["", "NaN", "nan"])
+    assert list(table.columns) == CONTRACT_COLUMNS
+    assert set(table.metric) == CONTRACT_METRICS
+    # every combination of model × region × season, each with every metric once
+    combos = table.groupby(["model", "region", "season"]).metric.nunique()
+    assert len(combos) == 2 * 3 * 2 and (combos == len(CONTRACT_METRICS)).all()
+    assert set(table.region) == {"global", "tropics", "box:-10,10,160,-150"} and set(table.season) == {"ANN", "DJF"}
+    assert table.period.astype(str).str.fullmatch(r"\d{4}-\d{4}").all()
+    assert set(table.period.astype(str)) == {"1995-2000"}  # the overlap, WMO 1991-2020 not covered
+    assert set(table.reference) == {"ref"} and set(table.variable) == {"tas"}
+
+
+def test_units_column(scored):
+    _, out = scored
+    table = pd.read_csv(out)
+    units = table.groupby("metric").units.unique()
+    for metric, u in units.items():
+        if metric in UNITLESS:
+            assert list(u) == ["1"], metric
+        elif metric in ("trend", "ref_trend"):
+            assert list(u) == ["K/decade"], metric  # trends per decade (shared/DESIGN.md)
+        else:
+            assert list(u) == ["K"], metric
+
+
+def test_score_numbers_for_a_run_that_is_the_reference_plus_one(scored):
+    _, out = scored
+    t = pd.read_csv(out)
+    warm = t[(t.model == "warm")].set_index(["region", "season", "metric"]).value
+    for region in ("global", "tropics", "box:-10,10,160,-150"):
+        for season in ("ANN", "DJF"):
+            # a uniform +1 K shift: bias = rmse = 1, no centred error, perfect pattern (Taylor 2001)
+            assert warm[(region, season, "bias")] == pytest.approx(1.0, abs=1e-9)
+            assert warm[(region, season, "rmse")] == pytest.approx(1.0, abs=1e-9)
+            assert warm[(region, season, "crmse")] == pytest.approx(0.0, abs=1e-7)
+            assert warm[(region, season, "corr")] == pytest.approx(1.0, abs=1e-9)
+            assert warm[(region, season, "taylor_skill")] == pytest.approx(1.0, abs=1e-9)
+            assert warm[(region, season, "trend")] == pytest.approx(warm[(region, season, "ref_trend")], abs=1e-9)
+
+
+def test_score_writes_provenance_beside_the_csv(scored):
+    _, out = scored
+    import json
+
+    record = json.loads(out.with_name("scores.provenance.json").read_text())
+    assert "1995-2000" in json.dumps(record)
+
+
+def test_score_without_output_prints_a_table(data, tmp_path):
+    proc = run("score", "--reference", data["ref"], "--model", f"warm={data['warm']}", "--variable", "tas", cwd=tmp_path)
+    assert proc.returncode == 0, proc.stderr
+    assert "warm" in proc.stdout and "bias" in proc.stdout and "1995-2000" in proc.stdout
+    assert list(tmp_path.iterdir()) == []  # nothing written
+
+
+def test_score_with_an_explicit_period_and_glob(data, tmp_path):
+    out = tmp_path / "s.csv"
+    proc = run("score", "--reference", data["ref"], "--model", f"w={data['dir'] / 'war*.nc'}", "--variable", "air_temperature", "--period", "1996-1998", "--regrid", "bilinear", "--output", out)
+    assert proc.returncode == 0, proc.stderr
+    t = pd.read_csv(out)
+    assert set(t.period) == {"1996-1998"} and set(t.model) == {"w"}
+
+
+# ---------------------------------------------------------------------------- check
+
+
+def test_check_lists_what_it_found(data):
+    proc = run("check", data["ref"], data["coarse"])
+    assert proc.returncode == 0, proc.stderr
+    lines = proc.stdout.splitlines()
+    ref_line = next(line for line in lines if str(data["ref"]) in line and "variables" in line)
+    for part in ("tas [K]", "18x36", "standard", "1995-01", "2000-12"):
+        assert part in ref_line
+    coarse_line = next(line for line in lines if str(data["coarse"]) in line and "variables" in line)
+    assert "360_day" in coarse_line and "12x24" in coarse_line and "degC" in coarse_line
+
+
+def test_check_lists_cf_problems_one_line_each(data):
+    proc = run("check", data["half3"], data["nolat"], data["noise"])
+    assert proc.returncode == 0, proc.stderr
+    problems = [line for line in proc.stdout.splitlines() if line.startswith("problem:")]
+    assert any(str(data["nolat"]) in p and "latitude" in p for p in problems)
+    assert any(str(data["noise"]) in p for p in problems)
+    assert any(str(data["half3"]) in p and "truncated" in p for p in problems)
+    assert "Traceback" not in proc.stdout + proc.stderr
+
+
+# ---------------------------------------------------------------------------- bad input
+
+BAD = {
+    # case: (arguments after `score` with placeholders, text the line must contain)
+    "unreadable file": (["--model", "m={noise}"], "{noise}"),
+    "truncated file": (["--model", "m={half}"], "{half}"),
+    "truncated netcdf3 file": (["--model", "m={half3}"], "{half3}"),
+    "missing file": (["--model", "m={dir}/absent.nc"], "absent.nc"),
+    "no latitude": (["--model", "m={nolat}"], "{nolat}"),
+    "no time": (["--model", "m={notime}"], "{notime}"),
+    "unknown calendar": (["--model", "m={lunar}"], "{lunar}"),
+    "incompatible units": (["--model", "m={flux}"], "{flux}"),
+    "variable absent": (["--model", "m={pr}"], "{pr}"),
+    "periods do not overlap": (["--model", "m={old}"], "1950"),
+    "period not covered": (["--model", "m={warm}", "--period", "1991-2020"], "{ref}"),
+    "no valid cell": (["--model", "m={pacific_nan}", "--region", "box:-10,10,160,-150"], "no valid cell"),
+    "bad --model syntax": (["--model", "{warm}"], "NAME=PATH"),
+    "unknown season": (["--model", "m={warm}", "--season", "WINTER"], "WINTER"),
+    "unknown region": (["--model", "m={warm}", "--region", "atlantis"], "atlantis"),
+    "unknown output extension": (["--model", "m={warm}", "--output", "{out}.docx"], ".docx"),
+    "bad period syntax": (["--model", "m={warm}", "--period", "the nineties"], "the nineties"),
+}
+
+
+@pytest.fixture(scope="module")
+def bad_runs(data, tmp_path_factory):
+    """Run every bad case once, two at a time (the machine has two cores)."""
+    results = {}
+
+    def one(case):
+        outdir = tmp_path_factory.mktemp("bad")
+        args, needle = BAD[case]
+        fill = {k: str(v) for k, v in data.items()} | {"out": str(outdir / "scores")}
+        argv = ["score", "--reference", str(data["ref"]), "--variable", "tas", *[a.format(**fill) for a in args]]
+        if "--output" not in argv:
+            argv += ["--output", str(outdir / "scores.csv")]
+        return case, run(*argv), needle.format(**fill), outdir
+
+    with ThreadPoolExecutor(max_workers=2) as pool:
+        for case, proc, needle, outdir in pool.map(one, BAD):
+            results[case] = (proc, needle, outdir)
+    return results
+
+
+@pytest.mark.parametrize("case", list(BAD))
+def test_bad_input_gives_exit_2_and_one_line(bad_runs, case):
+    proc, needle, outdir = bad_runs[case]
+    assert proc.returncode == 2, (proc.returncode, proc.stderr)
+    lines = [line for line in proc.stderr.splitlines() if line.strip()]
+    assert len(lines) == 1, proc.stderr
+    line = lines[0]
+    assert line.startswith("gridscore: ")
+    assert "Traceback" not in proc.stderr and "Traceback" not in proc.stdout
+    assert needle in line, line
+    assert " — " in line or "see 'gridscore" in line, line  # a remedy follows the problem
+    assert list(outdir.iterdir()) == []  # no output file, not even a partial one
+
+
+@pytest.mark.parametrize(
+    "case",
+    ["unreadable file", "truncated file", "truncated netcdf3 file", "no latitude", "no time", "unknown calendar", "incompatible units", "variable absent", "period not covered"],
+)
+def test_bad_file_messages_name_the_file(bad_runs, case):
+    proc, needle, _ = bad_runs[case]
+    assert needle.endswith(".nc") and needle in proc.stderr
+
+
+def test_usage_errors_exit_2(tmp_path):
+    proc = run("score", "--reference", "x.nc")  # --model and --variable missing
+    assert proc.returncode == 2 and "Traceback" not in proc.stderr
+    assert len(proc.stderr.strip().splitlines()) == 1
+    proc = run("score", "--reference", "x.nc", "--model", "a=y.nc", "--variable", "tas", "--regrid", "nearest")
+    assert proc.returncode == 2 and len(proc.stderr.strip().splitlines()) == 1
