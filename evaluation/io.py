@@ -173,6 +173,7 @@ def _listing(path: str) -> dict[str, dict[str, str]]:
                         "units": str(var.attrs.get("units", "")),
                         "long_name": str(var.attrs.get("long_name", "")),
                         "has_time": str(any(find_axis(ds, "time") == d for d in var.dims)),
+                        "cells": str(int(ds.sizes[lat]) * int(ds.sizes[lon])),
                     }
     except InputError:
         raise
@@ -255,7 +256,9 @@ def open_source(
     source
         Name of the source, used in messages.
     chunks
-        Dask chunks; default one chunk of 120 time steps (ten years of months).
+        Dask chunks; default whole years of months, as many as fit in about
+        ``$GRIDSCORE_CHUNK_MB`` (64) megabytes of float64 per chunk, so that memory is
+        bounded by chunk size × worker threads whatever the length of the run.
 
     Raises
     ------
@@ -289,7 +292,9 @@ def open_source(
             )
     else:
         files_to_open = files
-    chunks = {"time": 120} if chunks is None else chunks
+    if chunks is None:
+        cells = max([int(m.get("cells", 0)) for p in files_to_open for m in _listing(p).values()] + [1])
+        chunks = {"time": _time_chunk(cells)}
     coder = xr.coders.CFDatetimeCoder(use_cftime=True)
     timed = [p for p in files_to_open if any(m["has_time"] == "True" for m in _listing(p).values())]
     untimed = [p for p in files_to_open if p not in timed]
@@ -334,6 +339,13 @@ def _require_horizontal_axes(path: str) -> None:
             file=path,
             remedy=f"give the {missing[0]} coordinate standard_name='{missing[0]}' or units='degrees_{'north' if missing[0] == 'latitude' else 'east'}'",
         )
+
+
+def _time_chunk(cells: int) -> int:
+    """Time steps per dask chunk: whole years, about GRIDSCORE_CHUNK_MB of float64."""
+    budget = float(os.environ.get("GRIDSCORE_CHUNK_MB", 64)) * 2**20
+    years = int(budget // (12 * max(cells, 1) * 8))
+    return 12 * max(1, years)
 
 
 def _classify_open_error(files: Sequence[str], exc: BaseException) -> InputError:
