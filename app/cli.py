@@ -85,7 +85,7 @@ def _check_output(path: str | None) -> None:
 
 def _cmd_score(args) -> int:
     from evaluation.export import write_table
-    from evaluation.scoring import Comparison
+    from evaluation.scoring import score_table
 
     _check_output(args.output)
 
@@ -96,14 +96,17 @@ def _cmd_score(args) -> int:
     regions = args.region or ["global"]
     seasons = args.season or ["ANN"]
     with _scheduler(args), _progress(True):
-        cmp = Comparison(reference=reference, models=models, variable=args.variable, period=args.period, regrid=args.regrid)
-        table = cmp.scores(regions=regions, seasons=seasons)
-    provenance = cmp.provenance(regions=regions, seasons=seasons)
+        table, provenance = score_table(
+            reference=reference, models=models, variable=args.variable, regions=regions, seasons=seasons,
+            period=args.period, regrid=args.regrid,
+        )
+    period = table["period"].iloc[0] if len(table) else args.period
+    units = table.loc[table["metric"] == "mean", "units"].iloc[0] if len(table) else ""
     if args.output:
         write_table(table, args.output, provenance=provenance)
         print(f"wrote {len(table)} rows to {args.output}", file=sys.stderr)
     else:
-        _print_wide(table, title=f"{args.variable} against {reference.name}, {cmp.period} ({cmp.units})")
+        _print_wide(table, title=f"{args.variable} against {reference.name}, {period} ({units})")
     return EXIT_OK
 
 

@@ -93,10 +93,35 @@ class Cache:
             return
         self.evict()
 
+    def get_json(self, key: str) -> Any | None:
+        """A stored JSON document (e.g. a whole score table), or ``None``."""
+        f = self.path / f"{key}.json"
+        try:
+            value = json.loads(f.read_text())
+        except (OSError, ValueError):
+            return None
+        try:
+            os.utime(f)
+        except OSError:
+            pass
+        return value
+
+    def put_json(self, key: str, value: Any) -> None:
+        """Store a JSON document atomically, then evict."""
+        try:
+            self.path.mkdir(parents=True, exist_ok=True)
+            fd, tmp = tempfile.mkstemp(dir=self.path, suffix=".tmp")
+            with os.fdopen(fd, "w") as fh:
+                json.dump(value, fh, default=str)
+            os.replace(tmp, self.path / f"{key}.json")
+        except (OSError, TypeError, ValueError):
+            return
+        self.evict()
+
     def entries(self) -> list[Path]:
         if not self.path.is_dir():
             return []
-        return [p for p in self.path.iterdir() if p.suffix == _SUFFIX and p.is_file()]
+        return [p for p in self.path.iterdir() if p.suffix in (_SUFFIX, ".json") and p.is_file()]
 
     def evict(self) -> int:
         """Remove least recently used entries until the folder fits the bound."""

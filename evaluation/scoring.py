@@ -460,8 +460,29 @@ def score_table(
     seasons: Sequence[str] = ("ANN",),
     period: Period | str | None = None,
     regrid: str = "conservative",
+    cache: Cache | None | bool = True,
 ) -> tuple[pd.DataFrame, dict]:
-    """Convenience: build a :class:`Comparison` and return ``(tidy table, provenance)``."""
-    cmp = Comparison(reference=reference, models=models, variable=variable, period=period, regrid=regrid)
+    """The tidy table and its provenance for one request, served whole from the cache when
+    the same request on the same files (path, size, modification time) was answered before.
+    """
+    store = default_cache() if cache is True else (cache or None)
+    key = None
+    if store is not None:
+        key = Cache.key(
+            kind="scores-v1",
+            sources=[(s.name, s.role, [vars(f) for f in io.file_identity(io.expand_paths(s.paths, source=s.name))]) for s in [reference, *models]],
+            variable=variable,
+            regions=[parse_region(r).id for r in regions],
+            seasons=[parse_season(s) for s in seasons],
+            period=None if period is None else str(parse_period(period)),
+            regrid=regrid,
+        )
+        hit = store.get_json(key)
+        if hit is not None:
+            return pd.DataFrame(hit["table"], columns=list(TIDY_COLUMNS)), hit["provenance"]
+    cmp = Comparison(reference=reference, models=models, variable=variable, period=period, regrid=regrid, cache=store or False)
     table = cmp.scores(regions=regions, seasons=seasons)
-    return table, cmp.provenance(regions=regions, seasons=seasons)
+    prov = cmp.provenance(regions=regions, seasons=seasons)
+    if store is not None and key is not None:
+        store.put_json(key, {"table": table.to_dict(orient="list"), "provenance": prov})
+    return table, prov

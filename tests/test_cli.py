@@ -17,7 +17,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 import pytest
-from conftest import cf_dataset, write_cf
+from cfdata import cf_dataset, write_cf
 
 CONTRACT_COLUMNS = ["model", "reference", "variable", "region", "season", "period", "metric", "value", "units"]
 CONTRACT_METRICS = {

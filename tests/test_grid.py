@@ -6,7 +6,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 import xarray as xr
-from conftest import EARTH_RADIUS_M, default_field, exact_area, write_cf
+from cfdata import EARTH_RADIUS_M, default_field, exact_area, write_cf
 
 from evaluation import io
 from evaluation.errors import InputError

@@ -11,7 +11,7 @@ import netCDF4
 import numpy as np
 import pytest
 import xarray as xr
-from conftest import cf_dataset, exact_area, write_cf
+from cfdata import cf_dataset, exact_area, write_cf
 
 from evaluation import io
 from evaluation.errors import InputError

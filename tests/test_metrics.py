@@ -7,7 +7,7 @@ import numpy as np
 import pytest
 import xarray as xr
 import xskillscore as xs
-from conftest import exact_area, naive_pattern_stats
+from cfdata import exact_area, naive_pattern_stats
 from hypothesis import given, settings
 from hypothesis import strategies as st
 from hypothesis.extra.numpy import arrays

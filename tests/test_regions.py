@@ -5,7 +5,7 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
-from conftest import EARTH_RADIUS_M, exact_area, write_cf
+from cfdata import EARTH_RADIUS_M, exact_area, write_cf
 
 from evaluation import io
 from evaluation.errors import InputError

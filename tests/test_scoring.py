@@ -6,7 +6,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 import pytest
-from conftest import exact_area, hand_season_means, naive_pattern_stats, read_monthly, write_cf
+from cfdata import exact_area, hand_season_means, naive_pattern_stats, read_monthly, write_cf
 from scipy import stats
 
 from evaluation.errors import InputError

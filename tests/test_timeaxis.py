@@ -8,7 +8,7 @@ import dask.array as dsa
 import numpy as np
 import pytest
 import xarray as xr
-from conftest import days_in_month
+from cfdata import days_in_month
 
 from evaluation import io
 from evaluation.errors import InputError
