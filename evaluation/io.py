@@ -474,7 +474,7 @@ def _check_time(ds: xr.Dataset, where) -> None:
             raise InputError(
                 "the data are not monthly means (several time steps in one month)",
                 file=where,
-                remedy="give monthly means (e.g. resample with cdo monmean or xarray resample(time='MS'))",
+                remedy="give monthly means (e.g. average to months first, e.g. xarray's resample(time='MS').mean())",
             )
         if np.any(steps < 0):
             raise InputError("the time axis is not increasing", file=where, remedy="sort the files or the time axis")

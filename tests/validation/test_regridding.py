@@ -5,7 +5,7 @@ Outside references: the defining property of first-order conservative remapping 
 of the source cells, so the area integral is preserved), an independent numpy
 implementation of that definition written below, and the exactness of bilinear
 interpolation for functions of the form a + b·lat + c·lon + d·lat·lon (common practice;
-e.g. Press et al., Numerical Recipes, section 3.6).
+the textbook property of bilinear interpolation).
 """
 
 from __future__ import annotations
@@ -129,7 +129,7 @@ def _bilinear_field(lat, lon):
 
 @pytest.mark.parametrize("source", ["regional", "global"])
 def test_bilinear_reproduces_a_bilinear_field_inside_the_domain(nc_file, grid_factory, source):
-    # Source: common practice (Numerical Recipes, section 3.6): bilinear interpolation is
+    # Source: common practice (a textbook property of bilinear interpolation): it is
     # exact for a + b lat + c lon + d lat lon between the source centres; rtol 1e-12.
     if source == "regional":
         grid = {"lat": np.arange(-40.0, 40.1, 2.0), "lon": np.arange(-60.0, 60.1, 2.5)}
