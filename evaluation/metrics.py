@@ -127,7 +127,7 @@ def pattern_stats(
     Parameters
     ----------
     model, reference
-        Climatological fields ``(lat, lon)``.
+        Climatological fields ``(lat, lon)`` (DataArrays or plain arrays of one shape).
     weights
         Non-negative weights ``(lat, lon)`` (cell area × region fraction); need not sum
         to one.
@@ -145,9 +145,9 @@ def pattern_stats(
     when no cell with positive weight remains.  A constant reference gives
     ``corr = std_ratio = taylor_skill = NaN``.
     """
-    m = np.asarray(model.values, dtype="float64")
-    r = np.asarray(reference.values, dtype="float64")
-    w = np.asarray(weights.fillna(0.0).values, dtype="float64")
+    m = np.asarray(getattr(model, "values", model), dtype="float64")
+    r = np.asarray(getattr(reference, "values", reference), dtype="float64")
+    w = np.nan_to_num(np.asarray(getattr(weights, "values", weights), dtype="float64"), nan=0.0)
     valid = np.isfinite(m) & np.isfinite(r) & (w > 0)
     total = w[valid].sum()
     if not valid.any() or total <= 0:

@@ -373,30 +373,50 @@ class Comparison:
         return out
 
     # ------------------------------------------------------------------ scores
-    def _series_pair(self, name: str, region: str, season: str) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-        _, _, mask = self._pair(name, season)
-        w = self._weights(region, mask)
-        ms = weighted_mean(self.season_series(name, season), w)
-        rs = weighted_mean(self.season_series(self.reference.name, season), w)
-        years = np.intersect1d(ms["year"].values, rs["year"].values)
-        return years.astype("float64"), ms.sel(year=years).values, rs.sel(year=years).values
+    def _arrays(self, name: str, season: str) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+        """Plain arrays of one run against the reference for one season.
+
+        ``years``, the run's and the reference's yearly means ``(year, cell)`` with
+        masked cells set to 0, both climatologies ``(cell)`` and the common mask.  The
+        score loop runs on these with matrix products instead of labelled arrays: it
+        visits every region with the same arrays.
+        """
+        run_s, ref_s = self._aligned(name, season)
+        years = run_s["year"].values.astype("float64")
+        m = np.asarray(run_s.transpose("year", "lat", "lon").values, dtype="float64").reshape(years.size, -1)
+        r = np.asarray(ref_s.transpose("year", "lat", "lon").values, dtype="float64").reshape(years.size, -1)
+        clim_m, clim_r = m.mean(axis=0), r.mean(axis=0)  # NaN in any year gives NaN, as climatology()
+        mask = np.isfinite(clim_m) & np.isfinite(clim_r)
+        return years, np.where(mask, m, 0.0), np.where(mask, r, 0.0), clim_m, clim_r, mask
 
     def scores(self, *, regions: Sequence[str] = ("global",), seasons: Sequence[str] = ("ANN",)) -> pd.DataFrame:
-        """The tidy score table (columns :data:`TIDY_COLUMNS`, metrics in registry order)."""
+        """The tidy score table (columns :data:`TIDY_COLUMNS`, metrics in registry order).
+
+        Notes
+        -----
+        Spatial statistics use the climatologies over the label years both sources
+        have; regional-mean series, trends and interannual variability use the same
+        years and the same common mask.
+        """
         from .trends import detrend, ols_trend
 
         seasons = [parse_season(s) for s in seasons]
         regions = [parse_region(r).id for r in regions]
         self.prepare(seasons)
+        grid = self._target_grid
+        area = grid["cell_area"].values.ravel()
+        land = self._land.get(self.reference.name)
+        fraction = {r: region_weights(r, grid, land=land).values.ravel() for r in regions}
         rows = []
         for season in seasons:
+            arrays = {m.name: self._arrays(m.name, season) for m in self.models}
             for region in regions:
                 values: dict[str, dict[str, float]] = {}
                 for m in self.models:
-                    model, ref, mask = self._pair(m.name, season)
-                    w = self._weights(region, mask)
-                    stats = pattern_stats(model, ref, w, where=f"{m.name}, {region}, {season}")
-                    years, ms, rs = self._series_pair(m.name, region, season)
+                    years, ms_all, rs_all, clim_m, clim_r, mask = arrays[m.name]
+                    w = area * fraction[region] * mask
+                    stats = pattern_stats(clim_m, clim_r, w, where=f"{m.name}, {region}, {season}")
+                    ms, rs = ms_all @ w / w.sum(), rs_all @ w / w.sum()
                     t_m, t_r = ols_trend(ms, years), ols_trend(rs, years)
                     sd_m = float(np.nanstd(detrend(ms, years), ddof=1)) if years.size > 2 else float("nan")
                     sd_r = float(np.nanstd(detrend(rs, years), ddof=1)) if years.size > 2 else float("nan")
