@@ -228,12 +228,16 @@ class Comparison:
                         todo.append((name, s, season_means(prep.monthly, s, self.period)))
             if not todo and not done:
                 return
-            # one dask pass over every source's monthly data for all wanted reductions
-            computed = dask.compute(*[t[2] for t in todo]) if todo else ()
-            for (name, s, _), value in zip(todo, computed, strict=True):
-                if self._cache is not None:
-                    self._cache.put(self._cache_key(name, s), value)
-                done.append((name, s, value))
+            # One dask pass per source: all its wanted reductions share the reads of its
+            # monthly data, and only one source's chunks are in flight at a time, so
+            # memory stays bounded by chunk size however many sources there are.
+            for source in dict.fromkeys(t[0] for t in todo):
+                batch = [t for t in todo if t[0] == source]
+                computed = dask.compute(*[t[2] for t in batch])
+                for (name, s, _), value in zip(batch, computed, strict=True):
+                    if self._cache is not None:
+                        self._cache.put(self._cache_key(name, s), value)
+                    done.append((name, s, value))
             for name, s, value in done:
                 value = self._to_target(value, name)
                 if s == "_cycle":
@@ -409,11 +413,11 @@ class Comparison:
         fraction = {r: region_weights(r, grid, land=land).values.ravel() for r in regions}
         rows = []
         for season in seasons:
-            arrays = {m.name: self._arrays(m.name, season) for m in self.models}
-            for region in regions:
-                values: dict[str, dict[str, float]] = {}
-                for m in self.models:
-                    years, ms_all, rs_all, clim_m, clim_r, mask = arrays[m.name]
+            # one run's arrays at a time (they are the large part of the memory)
+            values: dict[str, dict[str, dict[str, float]]] = {r: {} for r in regions}
+            for m in self.models:
+                years, ms_all, rs_all, clim_m, clim_r, mask = self._arrays(m.name, season)
+                for region in regions:
                     w = area * fraction[region] * mask
                     stats = pattern_stats(clim_m, clim_r, w, where=f"{m.name}, {region}, {season}")
                     ms, rs = ms_all @ w / w.sum(), rs_all @ w / w.sum()
@@ -427,14 +431,16 @@ class Comparison:
                         ref_trend_pvalue=t_r.pvalue,
                         iav_ratio=sd_m / sd_r if sd_r > 0 else float("nan"),
                     )
-                    values[m.name] = stats
-                rel = relative_errors({k: v["rmse"] for k, v in values.items()})
+                    values[region][m.name] = stats
+                del ms_all, rs_all
+            for region in regions:
+                rel = relative_errors({k: v["rmse"] for k, v in values[region].items()})
                 for m in self.models:
-                    values[m.name]["rel_error"] = rel[m.name]
+                    values[region][m.name]["rel_error"] = rel[m.name]
                     for key, metric in METRICS.items():
                         rows.append(
                             (m.name, self.reference.name, self.variable, region, season, str(self.period), key,
-                             float(values[m.name][key]), metric.units(self.units))
+                             float(values[region][m.name][key]), metric.units(self.units))
                         )
         return pd.DataFrame(rows, columns=list(TIDY_COLUMNS))
 
