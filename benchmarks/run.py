@@ -152,6 +152,7 @@ def step_baseline(data: Path, variables: list[str], regions: list[str], seasons:
 def step_dashboard(data: Path) -> dict:
     """Region change → updated table, uncached and cached; 0.25° map render."""
     sys.path.insert(0, str(HERE.parent))
+    os.environ["GRIDSCORE_CACHE"] = tempfile.mkdtemp(prefix="gridscore-bench-dash-")  # a cold start
     try:
         from app.benchmarking import measure_dashboard
     except ImportError as exc:
@@ -254,7 +255,8 @@ def table(results: list[dict], info: dict) -> str:
             rows.append((f"gridscore score, cold, {VARIABLES[0]} only", {"seconds": one}, None, ""))
             rows.append((f"hand-written xarray baseline, {VARIABLES[0]} only", r["baseline"], base / one if base and one else None, "≥ 5× the cold score time"))
         d = r.get("dashboard", {})
-        for key, what, target in (("region_change_uncached", "dashboard: region change, uncached", ""),
+        for key, what, target in (("first_table", "dashboard: first score table (cold start)", ""),
+                                  ("region_change_uncached", "dashboard: region change, uncached", ""),
                                   ("region_change_cached", "dashboard: region change, cached", "≤ 0.5 s"),
                                   ("map_render_0p25", "dashboard: render a 0.25° map", "")):
             if key in d:

@@ -1,0 +1,246 @@
+"""Maps of the chosen field for the reference and the selected runs.
+
+One map per source, side by side with linked zoom, on the comparison's target grid,
+coastlines from the bundled land fraction, a colour bar, a sequential palette for means
+and a diverging one centred on zero for differences and trends.  Each field can be
+downloaded as CF NetCDF; the box-select tool on a map sets a box region.
+"""
+
+from __future__ import annotations
+
+import io
+import math
+from typing import Any
+
+import holoviews as hv
+import numpy as np
+import panel as pn
+import xarray as xr
+
+from evaluation.export import field_bytes
+
+from ..state import Request
+from .base import ResultView, safe_filename
+from .coastlines import coastline_path
+from .look import DIVERGING, SEQUENTIAL
+from .results import MapField
+
+__all__ = ["MapsView", "colour_range", "display_grid", "map_element"]
+
+#: More cells than this per map are averaged in blocks for display (a 0.25° grid has
+#: about a million); the download always carries the full field.
+MAX_DISPLAY_CELLS = 300_000
+
+
+def colour_range(fields: list[xr.DataArray], *, signed: bool) -> tuple[float, float] | None:
+    """One colour range for all maps of a kind, so that equal colours mean equal values.
+
+    Returns
+    -------
+    tuple or None
+        ``(low, high)``; symmetric about zero when ``signed``; ``None`` when no field has a
+        finite value.
+
+    Notes
+    -----
+    NaN cells are ignored.  A constant field (for instance a run compared with itself:
+    a difference of zero everywhere) would give a zero-width range, which breaks the
+    colour bar (holoviz/holoviews#3373); it is widened to ±1 around zero, or by 1 % of
+    the value (at least 1) around a non-zero constant.
+    """
+    values = [np.asarray(f.values, dtype="float64") for f in fields]
+    finite = [v[np.isfinite(v)] for v in values]
+    finite = [v for v in finite if v.size]
+    if not finite:
+        return None
+    low = float(min(v.min() for v in finite))
+    high = float(max(v.max() for v in finite))
+    if signed:
+        top = max(abs(low), abs(high))
+        return (-top, top) if top > 0 else (-1.0, 1.0)
+    if high > low:
+        return low, high
+    pad = max(abs(low) * 0.01, 1.0) if low != 0 else 1.0
+    return low - pad, high + pad
+
+
+def display_grid(field: xr.DataArray) -> xr.DataArray:
+    """The field with latitude ascending and, if it is large, block-averaged for display.
+
+    Notes
+    -----
+    Only for drawing: a browser cannot usefully show more cells than it has pixels, and
+    sending a million cells per map makes every redraw slow.  NaN cells are left out of
+    each block mean (a block of only NaN stays NaN).
+    """
+    field = field.sortby("lat").sortby("lon")
+    cells = field.sizes["lat"] * field.sizes["lon"]
+    if cells <= MAX_DISPLAY_CELLS:
+        return field
+    factor = math.ceil(math.sqrt(cells / MAX_DISPLAY_CELLS))
+    return field.coarsen(lat=factor, lon=factor, boundary="trim").mean()  # NaN-skipping for floats
+
+
+def _regular(values: np.ndarray) -> bool:
+    steps = np.diff(values)
+    return steps.size == 0 or bool(np.allclose(steps, steps[0], rtol=1e-3, atol=1e-6))
+
+
+def map_element(item: MapField, *, clim: tuple[float, float], units: str) -> hv.Element:
+    """A map of one field with coastlines; hv.Image for regular grids, QuadMesh otherwise."""
+    field = display_grid(item.data)
+    kdims = [hv.Dimension("lon", label="Longitude", unit="°E"), hv.Dimension("lat", label="Latitude", unit="°N")]
+    vdim = hv.Dimension("value", label=item.quantity, unit=units)
+    lon, lat = field["lon"].values, field["lat"].values
+    data = (lon, lat, np.asarray(field.values, dtype="float64"))
+    if _regular(lon) and _regular(lat):
+        element = hv.Image(data, kdims=kdims, vdims=[vdim])
+    else:  # Gaussian or other uneven grids: hv.Image would misplace rows (holoviz/holoviews#1869)
+        element = hv.QuadMesh(data, kdims=kdims, vdims=[vdim])
+    palette = DIVERGING if item.signed else SEQUENTIAL
+    element = element.opts(
+        cmap=palette,
+        clim=clim,
+        colorbar=True,
+        title=item.title,
+        backend="bokeh",
+    ).opts(
+        tools=["hover", "box_select"],
+        clipping_colors={"NaN": "transparent"},
+        colorbar_opts={"title": units},
+        responsive=True,
+        aspect=2,
+        min_height=220,
+        xlim=(-180, 180),
+        ylim=(-90, 90),
+        xticks=[-180, -120, -60, 0, 60, 120, 180],
+        yticks=[-90, -60, -30, 0, 30, 60, 90],
+        active_tools=["pan", "wheel_zoom"],
+        backend="bokeh",
+    ).opts(
+        cmap=palette,
+        clim=clim,
+        colorbar=True,
+        title=item.title,
+        clipping_colors={"NaN": (1.0, 1.0, 1.0, 0.0)},
+        aspect=2,
+        fig_inches=(7, 3.6),
+        backend="matplotlib",
+    )
+    return element * coastline_path()
+
+
+_QUANTITY = {"climatology": "Mean", "difference": "Difference", "trend_map": "Trend", "trend_difference": "Trend difference"}
+
+
+def _title(kind: str, source: str, reference: str) -> str:
+    return {
+        "climatology": f"{source} mean",
+        "difference": f"{source} minus {reference}",
+        "trend_map": f"{source} trend",
+        "trend_difference": f"{source} trend minus {reference} trend",
+    }[kind]
+
+
+class MapsView(ResultView):
+    """Maps of the selected field: reference and runs, or their differences."""
+
+    tab = "maps"
+    title = "Maps"
+    explanation = (
+        "Climatological fields over the selected period and season, on the reference's grid. "
+        "Means use one shared colour scale; differences and trends are centred on zero "
+        "(blue: below the reference or decreasing, red: above or increasing). "
+        "Hover for values; drag with the box-select tool to use a box as the region."
+    )
+
+    def _layout_of(self, request: Request) -> list[tuple[str, str, bool]]:
+        """``(kind, source, signed)`` for each map of the request's field."""
+        ref, runs = request.reference, list(request.models)
+        return {
+            "model_mean": [("climatology", ref, False)] + [("climatology", m, False) for m in runs],
+            "reference_mean": [("climatology", ref, False)],
+            "difference": [("difference", m, True) for m in runs],
+            "model_trend": [("trend_map", ref, True)] + [("trend_map", m, True) for m in runs],
+            "trend_difference": [("trend_difference", m, True) for m in runs],
+        }[request.field]
+
+    def key(self, request: Request) -> Any:
+        return (request.variable, request.reference, request.models, request.season, request.period, request.field)
+
+    async def load(self, request: Request) -> dict[str, Any]:
+        results = self.results
+        items = []
+        for kind, source, signed in self._layout_of(request):
+            args = (request.reference, request.variable, request.period, request.season, kind, source)
+            data = await results.fetch(("map",) + args, results.map_field, *args)
+            items.append(MapField(source=source, title=_title(kind, source, request.reference), data=data, signed=signed, quantity=_QUANTITY[kind]))
+        return {"items": items}
+
+    def figure(self, data: dict[str, Any], request: Request) -> hv.Layout | None:
+        items: list[MapField] = data["items"]
+        if not items:
+            return None
+        clim = colour_range([i.data for i in items], signed=items[0].signed)
+        if clim is None:
+            return None
+        maps = [map_element(i, clim=clim, units=str(i.data.attrs.get("units", ""))) for i in items]
+        return hv.Layout(maps).cols(2 if len(maps) > 1 else 1).opts(shared_axes=True, backend="bokeh")
+
+    def draw(self, data: dict[str, Any], request: Request) -> pn.viewable.Viewable:
+        figure = self.figure(data, request)
+        if figure is None:
+            return pn.pane.HTML('<div class="gs-empty">No valid values in this field for the selected period and season.</div>')
+        plot = pn.pane.HoloViews(figure, sizing_mode="stretch_width", linked_axes=True)
+        self._watch_box(plot)
+        downloads = [self._field_download(item, request) for item in data["items"]]
+        return pn.Column(
+            plot,
+            pn.Row(pn.pane.HTML('<span class="gs-hint">Fields as CF NetCDF:</span>', margin=(12, 4)), *downloads),
+            sizing_mode="stretch_width",
+        )
+
+    # ------------------------------------------------------------------ box region
+    def _watch_box(self, plot: pn.pane.HoloViews) -> None:
+        # One stream per drawing, tied to the first map; it goes away with the drawing.
+        # A plain function, not a bound method of this view, so that the stream's
+        # subscriber list does not keep the view alive (holoviz/panel#4116).
+        selection = self.selection
+        overlay = plot.object
+        first = next(iter(overlay)) if isinstance(overlay, hv.Layout) else overlay
+        image = first.get(0) if isinstance(first, hv.Overlay) else first
+
+        def set_box(bounds: tuple[float, float, float, float] | None = None) -> None:
+            if bounds is None:
+                return
+            west, south, east, north = (float(v) for v in bounds)
+            south, north = max(-90.0, min(south, north)), min(90.0, max(south, north))
+            west, east = max(-180.0, west), min(180.0, east)
+            if north - south < 1 or east - west < 1:
+                return
+            selection.region = f"box:{south:.0f},{north:.0f},{west:.0f},{east:.0f}"
+
+        hv.streams.BoundsXY(source=image, subscribers=[set_box])
+
+    # ------------------------------------------------------------------ NetCDF downloads
+    def _field_download(self, item: MapField, request: Request) -> pn.widgets.FileDownload:
+        results = self.results
+        args = (request.reference, request.variable, request.period, request.region, request.season)
+
+        async def make() -> io.BytesIO:
+            record = await results.fetch(("provenance",) + args, results.provenance, *args)
+            payload = await results.run(lambda: field_bytes(item.data, provenance=record))
+            return io.BytesIO(payload)
+
+        filename = safe_filename(request.variable, item.title.replace(" ", "-"), request.season, request.period) + ".nc"
+        return pn.widgets.FileDownload(
+            callback=make,
+            filename=filename,
+            label=item.title,
+            color="light",
+            width=min(320, 60 + 8 * len(item.title)),
+            height=34,
+            description=f"Download '{item.title}' as CF NetCDF with provenance",
+            css_classes=["gs-download-nc"],
+        )
+
