@@ -52,12 +52,26 @@ def _collection(data: Path):
     return Collection.from_path(data / "manifest.toml")
 
 
+def _span(data: Path) -> str:
+    """The years every source of a benchmark collection covers, from the file names
+    (``<var>_<source>_<YYYYMM>-<YYYYMM>.nc``)."""
+    starts: dict[str, int] = {}
+    ends: dict[str, int] = {}
+    for f in data.rglob("tas_*.nc"):
+        source = f.parent.name
+        first, last = f.stem.split("_")[-1].split("-")
+        starts[source] = min(starts.get(source, 9999), int(first[:4]))
+        ends[source] = max(ends.get(source, 0), int(last[:4]))
+    return f"{max(starts.values())}-{min(ends.values())}"
+
+
 def _score_commands(data: Path, variables: list[str], out: Path) -> list[list[str]]:
     coll = _collection(data)
     ref = coll.references[0]
     cmds = []
     for v in variables:
-        cmd = ["gridscore", "score", "--reference", f"{ref.name}={','.join(ref.paths)}", "--variable", v]
+        # the whole span, not the default 1991-2020: every value of the collection is read
+        cmd = ["gridscore", "score", "--reference", f"{ref.name}={','.join(ref.paths)}", "--variable", v, "--period", _span(data)]
         for m in coll.models:
             cmd += ["--model", f"{m.name}={','.join(m.paths)}"]
         for r in REGIONS:
@@ -124,7 +138,7 @@ def step_baseline(data: Path, variables: list[str], regions: list[str], seasons:
         for region in regions:
             for season in seasons:
                 ref = open_var(ref_src, v)
-                start = int(ref.time.dt.year.max()) - 29
+                start = int(_span(data).split("-")[0])
                 lo, hi = bands[region]
                 w = np.cos(np.deg2rad(ref.lat)) * ((ref.lat >= lo) & (ref.lat <= hi))
                 sel = lambda da: da.where(da.time.dt.month.isin(months[season]) & (da.time.dt.year >= start), drop=True)  # noqa: E731
