@@ -19,13 +19,15 @@ import xarray as xr
 
 from evaluation.export import field_bytes
 
+from evaluation.regions import parse_region
+
 from ..state import Request
 from .base import ResultView, safe_filename
 from .coastlines import coastline_path
 from .look import DIVERGING, SEQUENTIAL
 from .results import MapField
 
-__all__ = ["MapsView", "colour_range", "display_grid", "map_element"]
+__all__ = ["MapsView", "colour_range", "display_grid", "map_element", "region_outline"]
 
 #: More cells than this per map are averaged in blocks for display (a 0.25° grid has
 #: about a million); the download always carries the full field.
@@ -125,9 +127,35 @@ def map_element(item: MapField, *, clim: tuple[float, float], units: str) -> hv.
         clipping_colors={"NaN": (1.0, 1.0, 1.0, 0.0)},
         aspect=2,
         fig_inches=(7, 3.6),
+        xticks=[-180, -120, -60, 0, 60, 120, 180],
+        yticks=[-90, -60, -30, 0, 30, 60, 90],
         backend="matplotlib",
     )
     return element * coastline_path()
+
+
+def region_outline(region: str) -> hv.Overlay:
+    """Dashed rectangles around the selected region (none for global, land or ocean).
+
+    A box whose west edge lies east of its east edge crosses the date line and is drawn as
+    two rectangles; longitudes are brought into [-180, 180) like the maps'.
+    """
+    r = parse_region(region)
+    boxes: list[tuple[float, float, float, float]] = []
+    full = (r.west, r.east) == (-180.0, 180.0)
+    if not (full and r.south == -90.0 and r.north == 90.0):
+        west = ((r.west + 180.0) % 360.0) - 180.0
+        east = ((r.east + 180.0) % 360.0) - 180.0 if r.east != 180.0 else 180.0
+        if full or west < east:
+            boxes.append((-180.0 if full else west, r.south, 180.0 if full else east, r.north))
+        else:
+            boxes += [(west, r.south, 180.0, r.north), (-180.0, r.south, east, r.north)]
+    layers = [
+        hv.Bounds(b).opts(color="#111111", line_width=1.5, line_dash="dashed", backend="bokeh").opts(
+            color="#111111", linewidth=1.0, linestyle="--", backend="matplotlib")
+        for b in boxes
+    ]
+    return hv.Overlay(layers)
 
 
 _QUANTITY = {"climatology": "Mean", "difference": "Difference", "trend_map": "Trend", "trend_difference": "Trend difference"}
@@ -147,11 +175,13 @@ class MapsView(ResultView):
 
     tab = "maps"
     title = "Maps"
+    uses = ("variable", "reference", "region", "season", "period")
     explanation = (
         "Climatological fields over the selected period and season, on the reference's grid. "
         "Means use one shared colour scale; differences and trends are centred on zero "
         "(blue: below the reference or decreasing, red: above or increasing). "
-        "Hover for values; drag with the box-select tool to use a box as the region."
+        "Hover for values; the dashed outline is the selected region; drag with the box-select tool "
+        "to use a box as the region."
     )
 
     def _layout_of(self, request: Request) -> list[tuple[str, str, bool]]:
@@ -166,7 +196,7 @@ class MapsView(ResultView):
         }[request.field]
 
     def key(self, request: Request) -> Any:
-        return (request.variable, request.reference, request.models, request.season, request.period, request.field)
+        return (request.variable, request.reference, request.models, request.region, request.season, request.period, request.field)
 
     async def load(self, request: Request) -> dict[str, Any]:
         results = self.results
@@ -184,8 +214,13 @@ class MapsView(ResultView):
         clim = colour_range([i.data for i in items], signed=items[0].signed)
         if clim is None:
             return None
-        maps = [map_element(i, clim=clim, units=str(i.data.attrs.get("units", ""))) for i in items]
-        return hv.Layout(maps).cols(2 if len(maps) > 1 else 1).opts(shared_axes=True, backend="bokeh")
+        outline = region_outline(request.region)
+        maps = [map_element(i, clim=clim, units=str(i.data.attrs.get("units", ""))) * outline for i in items]
+        info = self.results.variable_info(request.variable)
+        name = f"{info.long_name} ({request.variable})" if info.long_name else request.variable
+        title = f"{name}, {request.season} {request.period}"
+        layout = hv.Layout(maps).cols(2 if len(maps) > 1 else 1)
+        return layout.opts(shared_axes=True, backend="bokeh").opts(title=title, sublabel_format="", backend="matplotlib")
 
     def draw(self, data: dict[str, Any], request: Request) -> pn.viewable.Viewable:
         figure = self.figure(data, request)

@@ -1,0 +1,281 @@
+"""Serve the dashboard: ``gridscore serve`` calls :func:`serve`.
+
+One :class:`~app.views.results.Results` is shared by every browser session of the
+server; each session gets its own :class:`~app.state.Selection`, filled from the URL
+query before anything is computed, and writes every value back into the URL.
+"""
+
+from __future__ import annotations
+
+import ipaddress
+import json
+import logging
+import os
+import secrets
+import sys
+from collections.abc import Sequence
+from pathlib import Path
+from typing import Any
+
+import panel as pn
+
+from evaluation.errors import InputError
+
+from .state import Selection, parse_query, query_string
+from .views.base import gate_page, on_document
+from .views.coastlines import coastline_segments
+from .views.look import load_extensions
+from .views.results import Results
+
+__all__ = ["build_session", "check_password", "default_collection_path", "load_results", "make_server", "serve"]
+
+log = logging.getLogger("gridscore.app")
+
+#: Shortest password accepted for sharing inside a group.
+MIN_PASSWORD_LENGTH = 8
+_LOOPBACK_NAMES = {"localhost", "localhost.localdomain", "ip6-localhost"}
+
+
+# ---------------------------------------------------------------------- the collection
+def default_collection_path() -> Path:
+    """The bundled ``sample_output/`` or, when installed without it, the demo in a cache folder.
+
+    Notes
+    -----
+    The demo scenario is generated once (about a minute) into the user cache folder and
+    reused afterwards.
+    """
+    bundled = Path(__file__).resolve().parents[1] / "sample_output"
+    if (bundled / "manifest.toml").is_file():
+        return bundled / "manifest.toml"
+    import platformdirs
+
+    from evaluation.demo import write_demo
+
+    cached = Path(platformdirs.user_cache_dir("gridscore")) / "demo"
+    if (cached / "manifest.toml").is_file():
+        return cached / "manifest.toml"
+    print(f"gridscore: writing the demo collection to {cached} (once) …", file=sys.stderr)
+    return Path(write_demo(cached))
+
+
+def load_results(path: str | os.PathLike[str] | None = None) -> Results:
+    """Open the collection at ``path`` (manifest or folder) for serving."""
+    from evaluation.catalog import Collection
+
+    collection = Collection.from_path(default_collection_path() if path is None else path)
+    return Results(collection)
+
+
+# ---------------------------------------------------------------------- access control
+def check_password(password: str | None) -> str | dict[str, str] | None:
+    """Validate the ``--password`` option before Panel's basic authentication gets it.
+
+    Parameters
+    ----------
+    password
+        A password (at least 8 characters; any user name is then accepted), or the path
+        of a JSON file mapping user names to passwords.
+
+    Returns
+    -------
+    str, dict or None
+        What to hand to Panel: the password, the user -> password mapping read from the
+        file, or ``None`` for no access control.
+
+    Raises
+    ------
+    InputError
+        A password that is too short or blank; text that looks like a file path (it
+        contains a path separator or ends in ``.json``) but names no file — Panel would
+        silently take the mistyped path as the password (holoviz/panel#4703); a file that
+        is not a JSON object of non-empty user names and passwords.
+    """
+    if password is None:
+        return None
+    text = str(password)
+    candidate = Path(text).expanduser()
+    looks_like_path = os.sep in text or "/" in text or text.lower().endswith(".json")
+    if candidate.is_file():
+        try:
+            users = json.loads(candidate.read_text(encoding="utf-8"))
+        except (OSError, UnicodeDecodeError, json.JSONDecodeError) as error:
+            raise InputError(f"cannot read the credentials file ({error})", file=str(candidate),
+                             remedy='write a JSON object such as {"ana": "a long secret"}') from None
+        if not isinstance(users, dict) or not users or not all(
+            isinstance(k, str) and k.strip() and isinstance(v, str) and len(v) >= MIN_PASSWORD_LENGTH for k, v in users.items()
+        ):
+            raise InputError("the credentials file must map user names to passwords of at least "
+                             f"{MIN_PASSWORD_LENGTH} characters", file=str(candidate),
+                             remedy='write a JSON object such as {"ana": "a long secret"}')
+        return dict(users)
+    if looks_like_path:
+        raise InputError("the password looks like a file path, but there is no such file", file=text,
+                         remedy="give the path of an existing JSON credentials file, or a plain password")
+    if not text.strip() or len(text) < MIN_PASSWORD_LENGTH:
+        raise InputError(f"the password must have at least {MIN_PASSWORD_LENGTH} characters",
+                         remedy="choose a longer password")
+    return text
+
+
+def is_loopback(address: str) -> bool:
+    """Whether the server listens only on this machine (127.0.0.0/8, ::1, localhost)."""
+    if address.strip().lower() in _LOOPBACK_NAMES:
+        return True
+    try:
+        return ipaddress.ip_address(address.strip().strip("[]")).is_loopback
+    except ValueError:
+        return False
+
+
+# ---------------------------------------------------------------------- one session
+def build_session(results: Results) -> pn.template.BaseTemplate:
+    """The page of one browser session, with the URL query applied before any computation."""
+    from .dashboard import available_tabs, build
+
+    gate_page()
+    selection = Selection(results, tabs=available_tabs(results))
+    location = pn.state.location
+    if location is not None and location.search:
+        selection.apply_query(parse_query(location.search))
+    page = build(selection, results)
+
+    async def settle() -> None:
+        key = selection.span_key
+        try:
+            span, default = await results.run(results.period_info, *key)
+            left = await results.run(results.left_out, key[0], key[1], None)
+        except InputError as error:
+            selection.notify(error.message)
+            return
+
+        if selection.span_key != key:  # a newer choice settles itself
+            return
+        # Parameter changes only: what they change on the page goes through `on_document`.
+        selection.settle(span, default)
+        for reason in left:
+            selection.notify(f"Left out of the {key[1]} comparison: {reason}")
+
+    def span_cleared(event: Any) -> None:
+        if event.new is None:
+            pn.state.execute(settle)
+
+    def write_url(*events: Any) -> None:
+        query = selection.query()
+        if query and pn.state.location is not None:
+            pn.state.location.search = query_string(query)
+
+    doc = pn.state.curdoc
+    selection.param.watch(span_cleared, "span")
+    # Through the page gate: a URL written while the page loads could be dropped, and
+    # writing the same value again later would then change nothing.
+    selection.param.watch(lambda *events: on_document(doc, write_url), ["request", "tab"])
+    pn.state.execute(settle)
+    return page
+
+
+# ---------------------------------------------------------------------- the server
+def _prepare(results: Results) -> None:
+    load_extensions()
+    coastline_segments()  # read the land fraction once, on this thread, before sessions start
+
+
+def make_server(
+    results: Results,
+    *,
+    port: int = 0,
+    address: str = "127.0.0.1",
+    allow_websocket_origin: Sequence[str] = (),
+    show: bool = False,
+    password: str | dict[str, str] | None = None,
+    threaded: bool = False,
+    start: bool = True,
+    server_id: str | None = None,
+    **server_options: Any,
+) -> Any:
+    """A Panel server of the dashboard at ``/`` (with ``/liveness``); for tests and :func:`serve`.
+
+    ``server_options`` go to Bokeh's server (for instance ``check_unused_sessions`` and
+    ``unused_session_lifetime`` in milliseconds, which tests shorten).
+    """
+    _prepare(results)
+    origins = list(allow_websocket_origin) or None
+    if origins is not None:
+        # The address the person opens must be allowed too, or the page loads without data.
+        origins += [f"{address}:{port}", f"localhost:{port}"] if port else []
+    options: dict[str, Any] = {}
+    if password is not None:
+        options.update(basic_auth=password, cookie_secret=secrets.token_urlsafe(32))
+    if server_id is not None:
+        options.update(server_id=server_id)
+    options.update(server_options)
+    return pn.serve(
+        {"/": lambda: build_session(results)},
+        port=port,
+        address=address,
+        websocket_origin=origins,
+        show=show,
+        start=start,
+        threaded=threaded,
+        title="gridscore",
+        liveness=True,
+        **options,
+    )
+
+
+def serve(
+    path: str | os.PathLike[str] | None = None,
+    *,
+    port: int = 5006,
+    address: str = "127.0.0.1",
+    allow_websocket_origin: Sequence[str] = (),
+    show: bool = False,
+    scheduler: str | None = None,
+    password: str | None = None,
+) -> None:
+    """Serve the dashboard of the collection at ``path`` until interrupted.
+
+    Parameters
+    ----------
+    path
+        A ``manifest.toml`` or a data folder; ``None`` serves the bundled sample.
+    port, address
+        Where to listen (default ``127.0.0.1:5006``, this machine only).
+    allow_websocket_origin
+        Extra ``host[:port]`` names the page may be opened under (for a research group);
+        never ``*``.
+    show
+        Open the dashboard in the default browser.
+    scheduler
+        Address of a running dask.distributed scheduler for the computations.
+    password
+        A shared password or a JSON file of user -> password (see :func:`check_password`).
+
+    Raises
+    ------
+    InputError
+        Bad password option, unreadable collection, unreachable scheduler, ``*`` as origin.
+    """
+    from evaluation import engine
+
+    auth = check_password(password)
+    if any(o.strip() == "*" for o in allow_websocket_origin):
+        raise InputError("--allow-websocket-origin '*' would let any web page drive this server",
+                         remedy="list the host names (and ports) people use, e.g. --allow-websocket-origin host:5006")
+    if not is_loopback(address) and auth is None:
+        print(
+            f"gridscore: WARNING: serving on {address}, reachable from other machines, without access control. "
+            "Anyone who can reach this port can use the dashboard; add --password to require one.",
+            file=sys.stderr,
+        )
+    results = load_results(path)
+    host = "localhost" if is_loopback(address) else address
+    print(f"gridscore: serving {getattr(results.collection, 'title', '') or 'the collection'}", file=sys.stderr)
+    print(f"gridscore: open http://{host}:{port}/", flush=True)
+    if auth is not None:
+        print("gridscore: the dashboard asks for the password (any user name is accepted with a single password)", file=sys.stderr)
+    if scheduler:
+        with engine.connect(address=scheduler):
+            make_server(results, port=port, address=address, allow_websocket_origin=allow_websocket_origin, show=show, password=auth)
+    else:
+        make_server(results, port=port, address=address, allow_websocket_origin=allow_websocket_origin, show=show, password=auth)

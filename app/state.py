@@ -1,0 +1,450 @@
+"""The selection state of one dashboard session and its URL query.
+
+A :class:`Selection` holds what the person picked (variable, reference, model runs,
+region, season, period, map field, tab).  Controls write these parameters; after
+validation the selection publishes a frozen :class:`Request`, and the views draw only
+that, so a half-made choice (a variable whose period is not checked yet) never reaches
+the core.
+
+The URL query carries every value, defaults included, under the names ``variable``,
+``reference``, ``models`` (comma-separated), ``region``, ``season``, ``period``
+(``YYYY-YYYY``), ``field`` and ``tab``.  Query values are validated against the options
+before they are applied; a bad value falls back to the default and leaves a notice.
+
+This module does not import Panel: the state can be built and tested without a server.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass
+from typing import Protocol
+from urllib.parse import quote, unquote, unquote_plus
+
+import param
+
+from evaluation.errors import InputError
+from evaluation.regions import REGIONS, parse_region
+from evaluation.timeaxis import SEASONS, Period, parse_period, parse_season
+
+__all__ = [
+    "FIELDS",
+    "TABS",
+    "QUERY_NAMES",
+    "Options",
+    "Request",
+    "Selection",
+    "join_models",
+    "parse_query",
+    "query_string",
+    "split_models",
+]
+
+#: Map fields: URL value -> label.
+FIELDS: dict[str, str] = {
+    "model_mean": "Run mean",
+    "reference_mean": "Reference mean",
+    "difference": "Run minus reference",
+    "model_trend": "Run trend",
+    "trend_difference": "Run trend minus reference trend",
+}
+
+#: Tabs: URL value -> label, in the order the dashboard shows them.
+TABS: dict[str, str] = {
+    "maps": "Maps",
+    "zonal": "Zonal mean",
+    "series": "Time series",
+    "cycle": "Seasonal cycle",
+    "scores": "Scores",
+    "taylor": "Taylor diagram",
+    "overview": "Overview",
+    "budget": "Energy budget",
+}
+
+#: The URL query names, in the order they are written.
+QUERY_NAMES: tuple[str, ...] = ("variable", "reference", "models", "region", "season", "period", "field", "tab")
+
+#: How many runs a fresh session shows: enough to compare, few enough to read the maps.
+DEFAULT_RUNS = 3
+#: Longest piece of a rejected query value repeated in a notice.
+_ECHO = 40
+
+
+class Options(Protocol):
+    """What the selection needs to know about the collection being served."""
+
+    def variables(self) -> list[str]: ...
+
+    def references(self, variable: str) -> list[str]: ...
+
+    def models(self, variable: str) -> list[str]: ...
+
+
+@dataclass(frozen=True)
+class Request:
+    """A validated selection: what the views ask the core for."""
+
+    variable: str
+    reference: str
+    models: tuple[str, ...]
+    region: str
+    season: str
+    period: str
+    field: str
+
+    def query(self, *, tab: str) -> dict[str, str]:
+        """Every URL value of this request, defaults included.
+
+        ``models`` is already URL-encoded: each name percent-encoded (a comma in a name
+        becomes ``%2C``), the names separated by plain commas.
+        """
+        return {
+            "variable": self.variable,
+            "reference": self.reference,
+            "models": join_models(self.models),
+            "region": self.region,
+            "season": self.season,
+            "period": self.period,
+            "field": self.field,
+            "tab": tab,
+        }
+
+
+def _echo(value: str) -> str:
+    value = " ".join(str(value).split())
+    return value if len(value) <= _ECHO else value[: _ECHO - 1] + "…"
+
+
+def join_models(names: Sequence[str]) -> str:
+    """The ``models`` URL value: percent-encoded names separated by commas."""
+    return ",".join(quote(n, safe="") for n in names)
+
+
+def split_models(value: str) -> list[str]:
+    """The names of a ``models`` URL value (see :func:`join_models`), blanks dropped."""
+    return [n for n in (unquote(part).strip() for part in value.split(",")) if n]
+
+
+def _sentence(problem: str) -> str:
+    """A core problem text ("unknown region 'x'") as the start of a notice, shortened."""
+    text = _echo(problem) if len(problem) > 3 * _ECHO else problem
+    return text[:1].upper() + text[1:]
+
+
+def parse_query(search: str) -> dict[str, str]:
+    """The query part of a URL (with or without the leading ``?``) as name -> text.
+
+    Notes
+    -----
+    A name given twice keeps its last value; blank values are kept (they fall back to
+    the default with a notice, like any other bad value).  Percent-escapes are decoded,
+    except in ``models``, whose names are decoded one by one after splitting at the
+    commas (:func:`split_models`), so that a comma inside a run's name survives.
+    """
+    query: dict[str, str] = {}
+    for part in search.lstrip("?").split("&"):
+        if not part:
+            continue
+        raw_name, _, raw_value = part.partition("=")
+        name = unquote_plus(raw_name)
+        query[name] = raw_value.replace("+", " ") if name == "models" else unquote_plus(raw_value)
+    return query
+
+
+def query_string(query: Mapping[str, str]) -> str:
+    """``?name=value&...`` with commas and colons left readable (``models=a,b``, ``box:``)."""
+    parts = []
+    for name, value in query.items():
+        text = str(value) if name == "models" else quote(str(value), safe=",:")
+        parts.append(f"{quote(name)}={text}")
+    return "?" + "&".join(parts)
+
+
+class Selection(param.Parameterized):
+    """The choices of one session.
+
+    Parameters
+    ----------
+    options
+        The collection's variables, references and runs (``app.views.results.Results``).
+    tabs
+        The tab values the dashboard offers (a subset of :data:`TABS`, in order).
+
+    Notes
+    -----
+    ``request`` stays ``None`` until :meth:`settle` has checked the period against the
+    years the chosen reference and runs share; the views wait for it.
+    """
+
+    variable = param.Selector(objects=[], doc="The compared variable.")
+    reference = param.Selector(objects=[], doc="The reference dataset.")
+    models = param.ListSelector(default=[], objects=[], doc="The model runs shown.")
+    region = param.String(default="global", doc="A region id of the core or box:S,N,W,E.")
+    season = param.Selector(default="ANN", objects=list(SEASONS), doc="The season.")
+    period = param.String(default="", doc="YYYY-YYYY within the common years.")
+    field = param.Selector(default="difference", objects=list(FIELDS), doc="What the maps show.")
+    tab = param.Selector(default="maps", objects=list(TABS), doc="The view on display.")
+
+    span = param.ClassSelector(class_=Period, default=None, allow_None=True, doc="Years every source covers.")
+    default_period = param.ClassSelector(class_=Period, default=None, allow_None=True)
+    request = param.ClassSelector(class_=Request, default=None, allow_None=True, doc="Validated selection.")
+    notices = param.List(default=[], item_type=str, doc="Messages for the person (plain text).")
+
+    def __init__(self, options: Options, *, tabs: Sequence[str] = tuple(TABS)) -> None:
+        super().__init__()
+        self._options = options
+        self._wanted_period: str | None = None
+        self._busy = False
+        variables = options.variables()
+        if not variables:
+            raise InputError(
+                "the collection has no variable that a model run and a reference both provide",
+                remedy="add a reference (or a run) holding the same variable",
+            )
+        self.param.tab.objects = [t for t in TABS if t in tabs]
+        self.param.tab.default = self.param.tab.objects[0]
+        self.tab = self.param.tab.default
+        self.param.variable.objects = variables
+        self.param.variable.default = variables[0]
+        self._set_variable(variables[0])
+        self.param.watch(self._variable_changed, ["variable"])
+        self.param.watch(self._span_source_changed, ["reference"])
+        self.param.watch(self._choice_changed, ["models", "region", "season", "period", "field"])
+
+    # ------------------------------------------------------------------ options
+    def _set_variable(self, variable: str) -> None:
+        """Point reference and models at the sources that hold ``variable``."""
+        references = self._options.references(variable)
+        models = self._options.models(variable)
+        with param.parameterized.discard_events(self):
+            self.variable = variable
+            self.param.reference.objects = references
+            self.param.reference.default = references[0]
+            if self.reference not in references:
+                self.reference = references[0]
+            self.param.models.objects = models
+            self.param.models.default = models[:DEFAULT_RUNS]
+            kept = [m for m in models if m in (self.models or [])]
+            self.models = kept or models[:DEFAULT_RUNS]
+
+    def defaults(self) -> dict[str, str]:
+        """The value of every URL name when nothing is asked for (the period once settled)."""
+        variable = self.param.variable.default
+        return {
+            "variable": variable,
+            "reference": self._options.references(variable)[0],
+            "models": join_models(self._options.models(variable)[:DEFAULT_RUNS]),
+            "region": self.param.region.default,
+            "season": self.param.season.default,
+            "period": str(self.default_period) if self.default_period else "",
+            "field": self.param.field.default,
+            "tab": self.param.tab.default,
+        }
+
+    # ------------------------------------------------------------------ notices
+    def notify(self, text: str) -> None:
+        """Add a message for the person (shown as plain text, never as markup)."""
+        self.notices = [*self.notices, " ".join(str(text).split())]
+
+    def dismiss(self) -> None:
+        self.notices = []
+
+    # ------------------------------------------------------------------ URL query
+    def apply_query(self, query: Mapping[str, str]) -> None:
+        """Apply URL values, each checked against the options; bad ones leave a notice.
+
+        Parameters
+        ----------
+        query
+            URL name -> text (see :func:`parse_query`).  Names not in
+            :data:`QUERY_NAMES` are ignored with a notice.
+
+        Notes
+        -----
+        The period is only parsed here; :meth:`settle` checks it against the common years
+        once they are known, so a valid link never shows the default period first.
+        """
+        self._busy = True
+        try:
+            self._apply_query(query)
+        finally:
+            self._busy = False
+
+    def _apply_query(self, query: Mapping[str, str]) -> None:
+        unknown = [k for k in query if k not in QUERY_NAMES]
+        if unknown:
+            self.notify(f"Link parameter {', '.join(repr(_echo(k)) for k in unknown)} is not known and was ignored.")
+        if "variable" in query:
+            value = query["variable"].strip()
+            if value in self.param.variable.objects:
+                self._set_variable(value)
+            else:
+                self.notify(f"Variable '{_echo(value)}' is not in this collection; showing {self.variable}.")
+        if "reference" in query:
+            value = query["reference"].strip()
+            if value in self.param.reference.objects:
+                with param.parameterized.discard_events(self):
+                    self.reference = value
+            else:
+                self.notify(f"Reference '{_echo(value)}' has no {self.variable} here; showing {self.reference}.")
+        if "models" in query:
+            names = list(dict.fromkeys(split_models(query["models"])))
+            known = [n for n in names if n in self.param.models.objects]
+            bad = [n for n in names if n not in known]
+            if bad:
+                self.notify(f"Run {', '.join(repr(_echo(n)) for n in bad)} has no {self.variable} here and was left out.")
+            with param.parameterized.discard_events(self):
+                if known:
+                    self.models = [m for m in self.param.models.objects if m in known]
+                else:
+                    self.models = list(self.param.models.default)
+                    if not bad:
+                        self.notify("The link names no model run; showing the default runs.")
+        if "region" in query:
+            try:
+                region = parse_region(query["region"]).id
+            except InputError as error:
+                self.notify(f"{_sentence(error.problem)}; showing {self.param.region.default}.")
+                region = self.param.region.default
+            with param.parameterized.discard_events(self):
+                self.region = region
+        if "season" in query:
+            try:
+                season = parse_season(query["season"])
+            except InputError:
+                self.notify(f"Season '{_echo(query['season'])}' is not known; showing {self.param.season.default}.")
+                season = self.param.season.default
+            with param.parameterized.discard_events(self):
+                self.season = season
+        if "period" in query:
+            try:
+                self._wanted_period = str(parse_period(query["period"]))
+            except InputError:
+                self.notify(f"Period '{_echo(query['period'])}' is not of the form YYYY-YYYY; showing the default period.")
+                self._wanted_period = None
+        if "field" in query:
+            value = query["field"].strip()
+            with param.parameterized.discard_events(self):
+                if value in FIELDS:
+                    self.field = value
+                else:
+                    self.notify(f"Map field '{_echo(value)}' is not known; showing '{FIELDS[self.param.field.default]}'.")
+                    self.field = self.param.field.default
+        if "tab" in query:
+            value = query["tab"].strip()
+            if value in self.param.tab.objects:
+                self.tab = value
+            else:
+                self.notify(f"Tab '{_echo(value)}' is not offered; showing {TABS[self.param.tab.default]}.")
+
+    def query(self) -> dict[str, str]:
+        """The URL values of the published request and the tab (empty before :meth:`settle`)."""
+        return {} if self.request is None else self.request.query(tab=self.tab)
+
+    # ------------------------------------------------------------------ settling
+    @property
+    def span_key(self) -> tuple[str, str]:
+        """What the common years depend on: every run of a variable is compared at once."""
+        return (self.reference, self.variable)
+
+    def settle(self, span: Period, default: Period) -> None:
+        """Check the period against the common years and publish the request.
+
+        Parameters
+        ----------
+        span
+            The years every source of :attr:`span_key` covers.
+        default
+            The period the core's default rule gives for them.
+
+        Notes
+        -----
+        A period outside ``span`` (from a link, or kept from another variable) falls back
+        to ``default`` with a notice; an empty period takes ``default`` silently.
+        """
+        wanted = self._wanted_period if self._wanted_period is not None else self.period
+        self._wanted_period = None
+        period = default
+        if wanted:
+            try:
+                asked = parse_period(wanted)
+            except InputError:
+                self.notify(f"Period '{_echo(wanted)}' is not of the form YYYY-YYYY; showing {default}.")
+            else:
+                if span.covers(asked):
+                    period = asked
+                else:
+                    self.notify(f"Period {asked} lies outside the years all sources cover ({span}); showing {default}.")
+        with param.parameterized.discard_events(self):
+            self.span = span
+            self.default_period = default
+            self.period = str(period)
+        self.param.trigger("span")
+        self.publish()
+
+    def publish(self) -> None:
+        """Publish the current choices as the request (when they differ from the last one)."""
+        if self.span is None:
+            return
+        request = Request(
+            variable=self.variable,
+            reference=self.reference,
+            models=tuple(m for m in self.param.models.objects if m in self.models),
+            region=self.region,
+            season=self.season,
+            period=self.period,
+            field=self.field,
+        )
+        if request != self.request:
+            self.request = request
+
+    # ------------------------------------------------------------------ watchers
+    def _variable_changed(self, event: param.parameterized.Event) -> None:
+        if self._busy:
+            return
+        self._set_variable(event.new)
+        self._span_source_changed(event)
+
+    def _span_source_changed(self, event: param.parameterized.Event) -> None:
+        # The common years may differ for another variable or reference: the request waits
+        # until `settle` has checked the period (the dashboard fetches the years off-loop).
+        if self._busy:
+            return
+        self.span = None
+
+    def _choice_changed(self, event: param.parameterized.Event) -> None:
+        if self._busy or self.span is None:
+            return
+        if event.name == "region":
+            try:
+                canonical = parse_region(event.new).id
+            except InputError as error:
+                self.notify(f"{_sentence(error.problem)}; kept {event.old}.")
+                with param.parameterized.discard_events(self):
+                    self.region = event.old
+                self.param.trigger("region")
+                return
+            if canonical != event.new:
+                self.region = canonical  # re-enters with the canonical spelling
+                return
+        if event.name == "period":
+            try:
+                asked = parse_period(event.new)
+            except InputError:
+                asked = None
+            if asked is None or not self.span.covers(asked):
+                self.notify(f"Period '{_echo(event.new)}' must lie within {self.span}; kept {event.old}.")
+                with param.parameterized.discard_events(self):
+                    self.period = event.old
+                self.param.trigger("period")
+                return
+            if str(asked) != event.new:
+                self.period = str(asked)
+                return
+        if event.name == "models" and not event.new:
+            self.notify("Pick at least one model run; kept the previous choice.")
+            with param.parameterized.discard_events(self):
+                self.models = list(event.old)
+            self.param.trigger("models")
+            return
+        self.publish()

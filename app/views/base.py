@@ -1,0 +1,276 @@
+"""What every result view shares: drawing the published request, off the event loop.
+
+A view computes only while its tab is on display, shows a loading indicator meanwhile,
+drops results that a newer request has overtaken, and turns an
+:class:`~evaluation.errors.InputError` into a readable notice instead of a traceback.
+Views that draw a figure also offer it as PNG and SVG, drawn on the server by
+HoloViews' matplotlib backend from the same elements the page shows.
+"""
+
+from __future__ import annotations
+
+import html
+import io
+import logging
+import re
+import weakref
+from collections.abc import Callable, Hashable
+from typing import Any, ClassVar
+
+import holoviews as hv
+import panel as pn
+import param
+from panel.viewable import Viewer
+
+from evaluation.errors import InputError
+from evaluation.regions import parse_region
+
+from ..state import Request, Selection
+from .results import Results
+
+__all__ = ["PageGate", "ResultView", "caption", "error_box", "gate_page", "on_document", "safe_filename", "text_html"]
+
+log = logging.getLogger("gridscore.app")
+
+
+def text_html(text: Any) -> str:
+    """Text from a file or a person, escaped for an HTML pane (holoviz/panel#5516)."""
+    return html.escape(str(text), quote=True)
+
+
+def caption(text: str) -> pn.pane.HTML:
+    """A short explanation under a view's title (``text`` is our own, escaped anyway)."""
+    return pn.pane.HTML(f'<div class="gs-caption">{text_html(text)}</div>', margin=(0, 10, 6, 10))
+
+
+def error_box(text: str) -> pn.pane.HTML:
+    return pn.pane.HTML(f'<div class="gs-error">{text_html(text)}</div>', margin=10)
+
+
+class PageGate:
+    """Holds back model changes of one session until its page has loaded in the browser.
+
+    Panel drops the property changes made after the browser has pulled the document but
+    before the page reports that it has loaded, taking them to be part of a document that
+    was already sent (seen here: a view left in its loading state for good).  Changes
+    made in that window are therefore queued and applied once the page has loaded.
+    """
+
+    def __init__(self) -> None:
+        self.loaded = False
+        self.pending: list[Callable[[], None]] = []
+
+    def open(self) -> None:
+        self.loaded = True
+        pending, self.pending = self.pending, []
+        for change in pending:
+            change()
+
+
+_GATES: weakref.WeakKeyDictionary[Any, PageGate] = weakref.WeakKeyDictionary()
+
+
+def gate_page() -> None:
+    """Start holding back this session's model changes until its page has loaded."""
+    doc = pn.state.curdoc
+    if doc is None or getattr(doc, "session_context", None) is None:
+        return
+    gate = _GATES[doc] = PageGate()
+    pn.state.onload(gate.open)
+
+
+def on_document(doc: Any, change: Callable[[], None]) -> None:
+    """Make model changes under the session's document lock, once the page has loaded.
+
+    Coroutines run without the document lock; their changes are handed to Bokeh as a
+    next-tick callback instead.  Before the page has loaded they wait in the session's
+    :class:`PageGate`.  Outside a server the change is made at once.
+    """
+    if doc is None or getattr(doc, "session_context", None) is None:
+        change()
+        return
+    gate = _GATES.get(doc)
+    if gate is not None and not gate.loaded:
+        gate.pending.append(change)
+    else:
+        doc.add_next_tick_callback(change)
+
+
+def safe_filename(*parts: str) -> str:
+    """A download file name from names that come from the manifest (no path, no odd signs)."""
+    joined = "_".join(p for p in parts if p)
+    return re.sub(r"[^A-Za-z0-9._-]+", "-", joined).strip("-.") or "gridscore"
+
+
+class ResultView(Viewer):
+    """Base of the views that draw one request.
+
+    Subclasses set :attr:`tab` and implement :meth:`load` (async, fetching through
+    :class:`Results`) and :meth:`draw` (on the event loop).  A subclass that returns a
+    HoloViews object from :meth:`figure` gets PNG and SVG downloads.
+    """
+
+    tab: ClassVar[str] = ""
+    title: ClassVar[str] = ""
+    explanation: ClassVar[str] = ""
+    #: Which parts of the selection this view depends on (shown above the drawing).
+    uses: ClassVar[tuple[str, ...]] = ("variable", "reference", "region", "season", "period")
+
+    selection = param.ClassSelector(class_=Selection)
+    results = param.ClassSelector(class_=Results)
+
+    def __init__(self, **params: Any) -> None:
+        super().__init__(**params)
+        self._generation = 0
+        self._drawn: Hashable | None = None
+        self._last: tuple[Any, Request] | None = None
+        self._body = pn.Column(sizing_mode="stretch_width", min_height=320, css_classes=[f"gs-view-{self.tab}"])
+        self._doc = pn.state.curdoc
+        self._context = pn.pane.HTML("", margin=(0, 10, 4, 10), sizing_mode="stretch_width")
+        self._figure_buttons = pn.Row(*self._figure_downloads(), width=160, height=44, visible=False)
+        self.selection.param.watch(self._changed, ["request", "tab"])
+        self._layout = pn.Column(
+            pn.Row(pn.pane.HTML(f"<h3 style='margin:4px 0'>{text_html(self.title)}</h3>", margin=(0, 10)),
+                   pn.layout.HSpacer(), self._figure_buttons, sizing_mode="stretch_width"),
+            caption(self.explanation),
+            self._context,
+            *self.controls(),
+            self._body,
+            sizing_mode="stretch_width",
+        )
+
+    # ------------------------------------------------------------------ for subclasses
+    def controls(self) -> list[pn.viewable.Viewable]:
+        """Widgets of this view only (not part of the shared link)."""
+        return []
+
+    def key(self, request: Request) -> Hashable:
+        """What the drawing depends on; a new request with the same key is not redrawn."""
+        return request
+
+    async def load(self, request: Request) -> Any:
+        raise NotImplementedError
+
+    def draw(self, data: Any, request: Request) -> pn.viewable.Viewable:
+        raise NotImplementedError
+
+    def figure(self, data: Any, request: Request) -> hv.core.Dimensioned | None:
+        """The view's figure as HoloViews elements (used for the PNG/SVG downloads)."""
+        return None
+
+    def context(self, request: Request) -> str:
+        """One line saying what is shown: the parts of the request in :attr:`uses`."""
+        parts = []
+        if "variable" in self.uses:
+            info = self.results.variable_info(request.variable)
+            parts.append(f"{info.long_name} ({request.variable})" if info.long_name else request.variable)
+        if "reference" in self.uses:
+            parts.append(f"against {request.reference}")
+        if "models" in self.uses:
+            parts.append(", ".join(request.models))
+        if "region" in self.uses:
+            parts.append(parse_region(request.region).label)
+        if "season" in self.uses:
+            parts.append(request.season)
+        if "period" in self.uses:
+            parts.append(request.period)
+        return " · ".join(parts)
+
+    def export_figure(self, data: Any, request: Request) -> hv.core.Dimensioned | None:
+        """What the PNG/SVG downloads draw with matplotlib; by default :meth:`figure`."""
+        return self.figure(data, request)
+
+    def figure_name(self, request: Request) -> str:
+        return safe_filename(self.tab, request.variable, request.reference, request.region, request.season, request.period)
+
+    # ------------------------------------------------------------------ refreshing
+    def _changed(self, event: param.parameterized.Event) -> None:
+        self.update()
+
+    def update(self, *, force: bool = False) -> None:
+        """Redraw if this view is on display and its request changed."""
+        request = self.selection.request
+        if request is None or self.selection.tab != self.tab:
+            return
+        if not force and self.key(request) == self._drawn:
+            return
+        pn.state.execute(self.refresh)
+
+    async def refresh(self) -> None:
+        """Load the current request off the loop, then draw it; a newer refresh wins."""
+        request = self.selection.request
+        if request is None:
+            return
+        self._generation += 1
+        generation = self._generation
+        on_document(self._doc, lambda: setattr(self._body, "loading", True))
+        try:
+            outcome: tuple[str, Any] = ("data", await self.load(request))
+        except InputError as error:
+            outcome = ("error", error.message)
+        except Exception as error:  # a bug must not take the page down; the log has details
+            log.exception("view %s failed for %s", self.tab, request)
+            outcome = ("error", f"This view could not be drawn ({type(error).__name__}: {error}).")
+        if generation == self._generation:
+            on_document(self._doc, lambda: self._show(outcome, request, generation))
+
+    def _show(self, outcome: tuple[str, Any], request: Request, generation: int) -> None:
+        """Put the drawing on the page (under the document lock)."""
+        if generation != self._generation:
+            return
+        kind, value = outcome
+        if kind == "data":
+            try:
+                shown = self.draw(value, request)
+                self._last = (value, request)
+                self._figure_buttons.visible = self.figure(value, request) is not None
+            except Exception as error:
+                log.exception("view %s could not draw %s", self.tab, request)
+                kind, value = "error", f"This view could not be drawn ({type(error).__name__}: {error})."
+        if kind == "error":
+            shown = error_box(value)
+            self._last = None
+            self._figure_buttons.visible = False
+        self._body.objects = [shown]
+        self._context.object = f'<div class="gs-hint"><b>Showing:</b> {text_html(self.context(request))}</div>'
+        self._drawn = self.key(request)
+        for button in self._figure_buttons:
+            button.filename = f"{self.figure_name(request)}.{button.filename.rsplit('.', 1)[-1]}"
+        self._body.loading = False
+
+    # ------------------------------------------------------------------ figure downloads
+    def _figure_downloads(self) -> list[pn.widgets.FileDownload]:
+        buttons = []
+        for fmt in ("png", "svg"):
+            button = pn.widgets.FileDownload(
+                callback=self._figure_callback(fmt),
+                filename=f"figure.{fmt}",
+                label=fmt.upper(),
+                color="light",
+                width=70,
+                height=34,
+                margin=(4, 4),
+                description=f"Download this figure as {fmt.upper()} (drawn on the server for reports)",
+                css_classes=[f"gs-download-{fmt}"],
+            )
+            buttons.append(button)
+        return buttons
+
+    def _figure_callback(self, fmt: str):
+        def make() -> io.BytesIO:
+            if self._last is None:
+                raise InputError("nothing drawn yet", remedy="wait until the figure is on the page")
+            data, request = self._last
+            figure = self.export_figure(data, request)
+            buffer = io.BytesIO()
+            # Plot building is not thread-safe (holoviz/holoviews#6162): this runs on the
+            # event loop, like the drawing of the page itself.
+            options = {"dpi": 150} if fmt == "png" else {}
+            hv.save(figure, buffer, fmt=fmt, backend="matplotlib", **options)
+            buffer.seek(0)
+            return buffer
+
+        return make
+
+    def __panel__(self) -> pn.viewable.Viewable:
+        return self._layout

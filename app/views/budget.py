@@ -1,0 +1,154 @@
+"""Energy budget at the top of the atmosphere for the selected runs.
+
+The numbers (net flux and its drift, planetary albedo, effective emissivity, the
+zero-dimensional equilibrium temperature) come from ``evaluation.budget``; the view shows
+them beside published estimates and draws each run's yearly net flux with its trend.
+"""
+
+from __future__ import annotations
+
+import io
+from typing import Any
+
+import holoviews as hv
+import numpy as np
+import pandas as pd
+import panel as pn
+import xarray as xr
+from bokeh.models.widgets.tables import NumberFormatter
+
+from evaluation import budget
+from evaluation.errors import InputError
+from evaluation.trends import ols_trend
+
+from ..state import Request
+from .base import ResultView, safe_filename, text_html
+from .lines import curve, line_figure
+from .results import Results
+from .scores import TABLE_CSS
+
+__all__ = ["BudgetView", "budget_available", "budget_runs"]
+
+_LABELS = {
+    "toa_net": "Net TOA flux",
+    "toa_net_drift": "Drift of net flux",
+    "albedo": "Planetary albedo",
+    "emissivity": "Effective emissivity",
+    "solar_constant": "Solar constant",
+    "t_surface": "Surface temperature",
+    "t_equilibrium": "Equilibrium temperature",
+    "t_difference": "Equilibrium minus surface",
+}
+
+
+def budget_runs(results: Results, names: tuple[str, ...] | list[str]) -> list[str]:
+    """The runs among ``names`` holding all four budget fields (by name or standard name)."""
+    return [n for n in names if all(results.holds(n, f.name, f.standard_name) for f in budget.BUDGET_FIELDS)]
+
+
+def budget_available(results: Results) -> bool:
+    return bool(budget_runs(results, [s.name for s in results.collection.models]))
+
+
+def _table(results: Results, runs: tuple[str, ...], period: str) -> tuple[pd.DataFrame, str]:
+    """The budget table of the runs for ``period``, or their own default period if one lacks it."""
+    sources = [results.source(n) for n in runs]
+    try:
+        return budget.budget_table(sources, period=period), ""
+    except InputError as error:
+        table = budget.budget_table(sources, period=None)
+        return table, f"{error.message}; showing {table['period'].iloc[0]} instead."
+
+
+def _series(results: Results, name: str, period: str) -> xr.DataArray:
+    return budget.budget_series(results.source(name), period=period)
+
+
+class BudgetView(ResultView):
+    """Is each run's energy budget closed, and does it drift?"""
+
+    tab = "budget"
+    title = "Energy budget at the top of the atmosphere"
+    uses = ("models", "period")
+    explanation = (
+        "Global annual means over the period: net downward flux (incoming minus reflected "
+        "shortwave minus outgoing longwave; near +0.7 W m-2 is observed), its drift, planetary "
+        "albedo, effective emissivity and the equilibrium temperature of a zero-dimensional "
+        "Stefan-Boltzmann balance. Below: published estimates and each run's yearly net flux."
+    )
+
+    def key(self, request: Request) -> Any:
+        return (request.models, request.period)
+
+    async def load(self, request: Request) -> dict[str, Any]:
+        results = self.results
+        runs = tuple(budget_runs(results, request.models))
+        if not runs:
+            raise InputError(
+                "none of the selected runs holds rsdt, rsut, rlut and tas",
+                remedy="tick a run that provides the four fields of the budget",
+            )
+        table, note = await results.fetch(("budget", runs, request.period), _table, results, runs, request.period)
+        period = str(table["period"].iloc[0])
+        series = {}
+        for name in runs:
+            series[name] = await results.fetch(("budget-series", name, period), _series, results, name, period)
+        return {"table": table, "note": note, "series": series, "period": period}
+
+    def figure(self, data: dict[str, Any], request: Request) -> hv.Overlay:
+        xdim = hv.Dimension("year", label="Year")
+        ydim = hv.Dimension("toa_net", label="Net downward TOA flux", unit="W m-2")
+        curves = []
+        for name, da in data["series"].items():
+            years = da["year"].values.astype("float64")
+            colour = self.results.colour(name)
+            fit = ols_trend(da)
+            label = f"{name} ({fit.slope * 100:+.2f} W m-2/century)" if np.isfinite(fit.slope) else name
+            curves.append(curve(years, da.values, label=label, colour=colour, xdim=xdim, ydim=ydim))
+            if np.isfinite(fit.slope):
+                curves.append(curve(years, fit.intercept + fit.slope * years, label=label, colour=colour, xdim=xdim, ydim=ydim, dash="dashed"))
+        zero = hv.HLine(0.0).opts(color="#6b7280", line_width=1, line_dash="dotted", backend="bokeh").opts(
+            color="#6b7280", linewidth=0.8, linestyle=":", backend="matplotlib")
+        return line_figure([*curves, zero], title=f"Global-mean net TOA flux, {data['period']}")
+
+    def figure_name(self, request: Request) -> str:
+        return safe_filename("budget", request.period)
+
+    def draw(self, data: dict[str, Any], request: Request) -> pn.viewable.Viewable:
+        table: pd.DataFrame = data["table"]
+        wide = table.pivot(index="model", columns="metric", values="value").reindex(
+            index=list(dict.fromkeys(table["model"])), columns=list(budget.BUDGET_METRICS)
+        )
+        wide = wide.reset_index().rename(columns={"model": "Run"})
+        titles = {"Run": "Run"}
+        formatters = {}
+        for metric, units in budget.BUDGET_METRICS.items():
+            titles[metric] = text_html(_LABELS[metric]) + (f"<br><small>{text_html(units)}</small>" if units != "1" else "")
+            formatters[metric] = NumberFormatter(format="0.000" if units == "1" else "0.00", nan_format="–", text_align="right")
+        runs = pn.widgets.Tabulator(wide, show_index=False, disabled=True, selectable=False, titles=titles,
+                                    formatters=formatters, layout="fit_columns", sizing_mode="stretch_width", theme="simple",
+                                    widths={"Run": 130}, stylesheets=[TABLE_CSS])
+        observed = budget.observed_table().pivot_table(index=["reference", "period"], columns="metric", values="value", sort=False)
+        observed = observed.reset_index().rename(columns={"reference": "Published estimate", "period": "Period"})
+        obs_titles = {m: text_html(_LABELS.get(m, m)) for m in observed.columns if m not in ("Published estimate", "Period")}
+        obs_formatters = {m: NumberFormatter(format="0.000" if m == "albedo" else "0.0", text_align="right") for m in obs_titles}
+        estimates = pn.widgets.Tabulator(observed, show_index=False, disabled=True, selectable=False, titles=obs_titles,
+                                         formatters=obs_formatters, layout="fit_columns", sizing_mode="stretch_width", theme="simple",
+                                         widths={"Published estimate": 360}, stylesheets=[TABLE_CSS])
+        parts: list[Any] = []
+        if data["note"]:
+            parts.append(pn.pane.HTML(f'<div class="gs-notice">{text_html(data["note"])}</div>', margin=(0, 10, 6, 10)))
+        download = pn.widgets.FileDownload(
+            callback=lambda: io.BytesIO(table.to_csv(index=False).encode("utf-8")),
+            filename=safe_filename("budget", data["period"]) + ".csv",
+            label="CSV", color="light", width=100, height=34,
+            description="Download the budget table (tidy: model, period, metric, value, units)",
+        )
+        parts += [
+            runs,
+            pn.Row(pn.pane.HTML('<span class="gs-hint">Download the table:</span>', margin=(12, 4, 0, 10)), download),
+            pn.pane.HTML('<div class="gs-hint">Published global annual means (W m-2, values from memory, rounded):</div>', margin=(8, 10, 0, 10)),
+            estimates,
+            pn.pane.HoloViews(self.figure(data, request), sizing_mode="stretch_width"),
+        ]
+        return pn.Column(*parts, sizing_mode="stretch_width")

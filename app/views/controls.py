@@ -1,0 +1,209 @@
+"""The sidebar: what to compare, where and when, what the maps show, and the share link.
+
+Widgets write the :class:`~app.state.Selection`; the selection's validated values flow
+back into the widgets, so a link, a drawn box or a rejected value all show up here.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+import panel as pn
+import param
+from panel.viewable import Viewer
+
+from evaluation.regions import REGIONS, parse_region
+from evaluation.timeaxis import MONTH_NAMES
+
+from ..state import FIELDS, Selection
+from .base import on_document, text_html
+from .look import ACCENT
+from .results import Results
+
+__all__ = ["Controls", "SEASON_LABELS"]
+
+SEASON_LABELS: dict[str, str] = {
+    "ANN": "Annual mean (ANN)",
+    "DJF": "Dec–Feb (DJF)",
+    "MAM": "Mar–May (MAM)",
+    "JJA": "Jun–Aug (JJA)",
+    "SON": "Sep–Nov (SON)",
+    **{m: m.capitalize() for m in MONTH_NAMES},
+}
+
+# Clipboard access needs a secure context (https or localhost); elsewhere fall back to a
+# selected text area and the older copy command, and say so if both fail.
+_COPY_JS = """
+const url = window.location.href;
+function done(text) { button.label = text; setTimeout(() => { button.label = "Copy link to this view"; }, 2500); }
+function fallback() {
+  const area = document.createElement("textarea");
+  area.value = url; document.body.appendChild(area); area.select();
+  let ok = false;
+  try { ok = document.execCommand("copy"); } catch (e) { ok = false; }
+  document.body.removeChild(area);
+  done(ok ? "Link copied" : "Copy the address bar");
+}
+if (navigator.clipboard && window.isSecureContext) {
+  navigator.clipboard.writeText(url).then(() => done("Link copied"), fallback);
+} else { fallback(); }
+"""
+
+
+def _section(title: str) -> pn.pane.HTML:
+    return pn.pane.HTML(f'<div class="gs-section-title">{text_html(title)}</div>', margin=(8, 10, 0, 10))
+
+
+def _hint(text: str) -> pn.pane.HTML:
+    return pn.pane.HTML(f'<div class="gs-hint">{text_html(text)}</div>', margin=(0, 10, 4, 10))
+
+
+class Controls(Viewer):
+    """All the controls of the selection, for the sidebar."""
+
+    selection = param.ClassSelector(class_=Selection)
+    results = param.ClassSelector(class_=Results)
+
+    def __init__(self, **params: Any) -> None:
+        super().__init__(**params)
+        sel, res = self.selection, self.results
+        self.variable = pn.widgets.Select(
+            label="Variable", options={res.variable_info(v).label: v for v in sel.param.variable.objects}, value=sel.variable,
+            css_classes=["gs-variable"],
+        )
+        self.reference = pn.widgets.Select(
+            label="Reference", options=list(sel.param.reference.objects), value=sel.reference, css_classes=["gs-reference"]
+        )
+        self.models = pn.widgets.CheckBoxGroup(
+            label="Model runs", options=list(sel.param.models.objects), value=list(sel.models), inline=False, css_classes=["gs-models"]
+        )
+        self.region = pn.widgets.Select(
+            label="Region", options=self._region_options(), value=sel.region, css_classes=["gs-region"]
+        )
+        self.box = pn.widgets.TextInput(
+            label="Box (south, north, west, east)", placeholder="e.g. 30,60,-10,40", value=self._box_text(sel.region),
+            css_classes=["gs-box"],
+        )
+        self.season = pn.widgets.Select(
+            label="Season",
+            groups={
+                "Year": {SEASON_LABELS["ANN"]: "ANN"},
+                "Seasons": {SEASON_LABELS[s]: s for s in ("DJF", "MAM", "JJA", "SON")},
+                "Months": {SEASON_LABELS[m]: m for m in MONTH_NAMES},
+            },
+            value=sel.season,
+            css_classes=["gs-season"],
+        )
+        self.period = pn.widgets.IntRangeSlider(
+            label="Period", start=1900, end=2000, value=(1900, 2000), step=1, disabled=True, css_classes=["gs-period"]
+        )
+        self.period_note = pn.pane.HTML("", margin=(0, 10))
+        self.reset_period = pn.widgets.Button(label="Default period", color="light", width=130, height=30, disabled=True)
+        self.field = pn.widgets.RadioBoxGroup(
+            label="Map field", options={label: key for key, label in FIELDS.items()}, value=sel.field, inline=False,
+            css_classes=["gs-field"],
+        )
+        self.copy = pn.widgets.Button(
+            label="Copy link to this view", color="primary", sizing_mode="stretch_width", css_classes=["gs-copy"]
+        )
+        self.copy.js_on_click(args={"button": self.copy}, code=_COPY_JS)
+        self.copy.stylesheets = [f":host .bk-btn-primary {{ background-color: {ACCENT}; border-color: {ACCENT}; }}"]
+
+        self.variable.param.watch(lambda e: setattr(sel, "variable", e.new), "value")
+        self.reference.param.watch(lambda e: setattr(sel, "reference", e.new), "value")
+        self.models.param.watch(self._models_picked, "value")
+        self.region.param.watch(self._region_picked, "value")
+        self.box.param.watch(self._box_typed, "value")
+        self.season.param.watch(lambda e: setattr(sel, "season", e.new), "value")
+        self.period.param.watch(self._period_picked, "value_throttled")
+        self.reset_period.on_click(self._period_reset)
+        self.field.param.watch(lambda e: setattr(sel, "field", e.new), "value")
+        doc = pn.state.curdoc
+        sel.param.watch(
+            lambda *events: on_document(doc, self._show),
+            ["variable", "reference", "models", "region", "season", "period", "field", "span"],
+        )
+        self._show()
+
+        self._layout = pn.Column(
+            _section("Compare"),
+            self.variable,
+            self.reference,
+            pn.pane.HTML('<div class="gs-hint" style="margin-top:4px">Model runs</div>', margin=(0, 10)),
+            self.models,
+            _section("Where and when"),
+            self.region,
+            self.box,
+            _hint("Type a box and press Enter, or drag with the box-select tool on a map."),
+            self.season,
+            self.period,
+            pn.Row(self.period_note, pn.layout.HSpacer(), self.reset_period, sizing_mode="stretch_width"),
+            _section("Maps show"),
+            self.field,
+            _section("Share"),
+            self.copy,
+            _hint("The address bar always holds the whole view: send it to a colleague to show the same picture."),
+            sizing_mode="stretch_width",
+        )
+
+    # ------------------------------------------------------------------ widget -> selection
+    def _models_picked(self, event: param.parameterized.Event) -> None:
+        self.selection.models = list(event.new)
+
+    def _region_picked(self, event: param.parameterized.Event) -> None:
+        if event.new and event.new != self.selection.region:
+            self.selection.region = event.new
+
+    def _box_typed(self, event: param.parameterized.Event) -> None:
+        text = event.new.strip()
+        if not text:
+            return
+        self.selection.region = text if text.lower().startswith("box:") else f"box:{text}"
+
+    def _period_picked(self, event: param.parameterized.Event) -> None:
+        start, end = event.new
+        self.selection.period = f"{start:04d}-{end:04d}"
+
+    def _period_reset(self, event: param.parameterized.Event) -> None:
+        if self.selection.default_period is not None:
+            self.selection.period = str(self.selection.default_period)
+
+    # ------------------------------------------------------------------ selection -> widgets
+    def _region_options(self) -> dict[str, str]:
+        options = {r.label: r.id for r in REGIONS.values()}
+        region = self.selection.region
+        if region not in REGIONS:
+            options[parse_region(region).label] = region
+        return options
+
+    @staticmethod
+    def _box_text(region: str) -> str:
+        return region[4:] if region.startswith("box:") else ""
+
+    def _show(self, *events: param.parameterized.Event) -> None:
+        sel = self.selection
+        self.reference.options = list(sel.param.reference.objects)
+        self.reference.value = sel.reference
+        self.models.options = list(sel.param.models.objects)
+        self.models.value = [m for m in sel.param.models.objects if m in sel.models]
+        self.variable.value = sel.variable
+        self.region.options = self._region_options()
+        self.region.value = sel.region
+        if sel.region.startswith("box:"):
+            self.box.value = self._box_text(sel.region)
+        self.season.value = sel.season
+        self.field.value = sel.field
+        span = sel.span
+        if span is None:
+            self.period.disabled = True
+            self.reset_period.disabled = True
+            self.period_note.object = '<span class="gs-hint">checking the years…</span>'
+            return
+        start, end = (int(y) for y in sel.period.split("-"))
+        self.period.param.update(start=span.start, end=max(span.end, span.start + 1), value=(start, end), disabled=span.start == span.end)
+        self.reset_period.disabled = sel.period == str(sel.default_period)
+        years = end - start + 1
+        self.period_note.object = f'<span class="gs-hint">{start}–{end}, {years} year{"s" if years != 1 else ""}</span>'
+
+    def __panel__(self) -> pn.viewable.Viewable:
+        return self._layout

@@ -1,0 +1,63 @@
+"""The seasonal cycle: the monthly climatology of the regional mean, for every source."""
+
+from __future__ import annotations
+
+from typing import Any
+
+import holoviews as hv
+import panel as pn
+
+from evaluation.regions import parse_region
+
+from ..state import Request
+from .base import ResultView
+from .lines import curve, line_figure
+
+__all__ = ["CycleView"]
+
+_MONTHS = [(i, m) for i, m in enumerate(("Jan", "Feb", "Mar", "Apr", "May", "Jun", "Jul", "Aug", "Sep", "Oct", "Nov", "Dec"), start=1)]
+
+
+class CycleView(ResultView):
+    """Twelve monthly means of the regional mean over the period, one line per source."""
+
+    tab = "cycle"
+    title = "Seasonal cycle"
+    uses = ("variable", "reference", "region", "period")
+    explanation = (
+        "The mean of each calendar month over the period, averaged over the region. It shows "
+        "whether a run has the right amplitude and timing of the year's cycle (the season "
+        "control does not apply here)."
+    )
+
+    def key(self, request: Request) -> Any:
+        return (request.variable, request.reference, request.models, request.region, request.period)
+
+    async def load(self, request: Request) -> dict[str, Any]:
+        results = self.results
+        cycles = {}
+        for name in (request.reference, *request.models):
+            args = (request.reference, request.variable, request.period, request.region, name)
+            cycles[name] = await results.fetch(("cycle",) + args, results.seasonal_cycle, *args)
+        return cycles
+
+    def figure(self, data: dict[str, Any], request: Request) -> hv.Overlay:
+        first = next(iter(data.values()))
+        units = str(first.attrs.get("units", ""))
+        info = self.results.variable_info(request.variable)
+        xdim = hv.Dimension("month", label="Month")
+        ydim = hv.Dimension("value", label=info.long_name or request.variable, unit=units)
+        curves = [
+            curve(da["month"].values, da.values, label=name, colour=self.results.colour(name), xdim=xdim, ydim=ydim,
+                  reference=name == request.reference)
+            for name, da in data.items()
+        ]
+        region = parse_region(request.region).label
+        title = f"{region}: monthly climatology of {request.variable}, {request.period}"
+        return line_figure(curves, title=title, xticks=_MONTHS, xlim=(0.7, 12.3))
+
+    def figure_name(self, request: Request) -> str:
+        return super().figure_name(request).replace(f"_{request.season}_", "_")
+
+    def draw(self, data: dict[str, Any], request: Request) -> pn.viewable.Viewable:
+        return pn.pane.HoloViews(self.figure(data, request), sizing_mode="stretch_width")

@@ -1,0 +1,354 @@
+"""The one door from the dashboard to the evaluation core, shared by every session.
+
+A :class:`Results` object is made once per server.  It knows the served collection,
+keeps one :class:`~evaluation.scoring.Comparison` per reference × variable × period
+(every run of the collection that holds the variable at once, so that ticking a run on
+or off, or opening the overview of all runs, reuses the reductions already made) and a
+bounded cache of every product the views draw.
+
+Every call into the core runs on one worker thread: the netCDF-C/HDF5 libraries are not
+thread-safe (pydata/xarray#4100), and one worker keeps two browser sessions from
+reducing the same files twice at once.  A product already in the cache is answered on
+the event loop without waiting behind a computation that is running.
+"""
+
+from __future__ import annotations
+
+import asyncio
+import re
+import threading
+from collections import OrderedDict
+from collections.abc import Callable, Hashable, Sequence
+from concurrent.futures import ThreadPoolExecutor
+from dataclasses import dataclass
+from typing import Any, TypeVar
+
+import pandas as pd
+import xarray as xr
+from bokeh.colors import named
+
+from evaluation import io
+from evaluation.errors import InputError
+from evaluation.regions import parse_region
+from evaluation.scoring import Comparison, Source
+from evaluation.timeaxis import Period, parse_period
+
+from .look import REFERENCE_COLOUR, run_colour
+
+__all__ = ["BoundedCache", "MapField", "Results", "VariableInfo", "is_colour"]
+
+T = TypeVar("T")
+_HEX = re.compile(r"^#(?:[0-9a-f]{3}|[0-9a-f]{6})$")
+_NAMED = frozenset(named.__all__)
+_MISSING = object()
+
+
+class BoundedCache:
+    """A thread-safe least-recently-used mapping with a fixed number of entries.
+
+    ``functools.lru_cache`` cannot be asked whether a key is present without computing
+    it; the dashboard needs exactly that to answer cached selections on the event loop.
+
+    Notes
+    -----
+    Storing beyond ``max_items`` drops the least recently used entry.  ``None`` is a
+    valid value.
+    """
+
+    def __init__(self, *, max_items: int) -> None:
+        if max_items < 1:
+            raise ValueError("max_items must be at least 1")
+        self.max_items = max_items
+        self._data: OrderedDict[Hashable, Any] = OrderedDict()
+        self._lock = threading.Lock()
+
+    def get(self, key: Hashable, default: Any = _MISSING) -> Any:
+        with self._lock:
+            if key in self._data:
+                self._data.move_to_end(key)
+                return self._data[key]
+        return default
+
+    def put(self, key: Hashable, value: Any) -> None:
+        with self._lock:
+            self._data[key] = value
+            self._data.move_to_end(key)
+            while len(self._data) > self.max_items:
+                self._data.popitem(last=False)
+
+    def __contains__(self, key: Hashable) -> bool:
+        with self._lock:
+            return key in self._data
+
+    def __len__(self) -> int:
+        with self._lock:
+            return len(self._data)
+
+    def clear(self) -> None:
+        with self._lock:
+            self._data.clear()
+
+
+def is_colour(text: str) -> bool:
+    """A manifest colour the plots can use: ``#rgb``, ``#rrggbb`` or a CSS colour name."""
+    text = str(text).strip().lower()
+    return bool(_HEX.match(text)) or text in _NAMED
+
+
+def _blames(error: InputError, source: Source) -> bool:
+    """Whether ``error`` is about ``source`` (named by source name or by one of its files)."""
+    if error.file is None:
+        return False
+    named = error.file.split(" (+")[0]  # InputError shortens lists to "first (+n more)"
+    if named == source.name:
+        return True
+    try:
+        return named in io.expand_paths(source.paths, source=source.name)
+    except InputError:
+        return False
+
+
+@dataclass(frozen=True)
+class VariableInfo:
+    """How a variable is named in the menus (texts come from files: show them as text)."""
+
+    name: str
+    long_name: str
+    units: str
+    standard_name: str = ""
+
+    @property
+    def label(self) -> str:
+        # Units are left out: the comparison may convert them (precipitation to mm day-1).
+        return self.name if not self.long_name or self.long_name == self.name else f"{self.long_name} ({self.name})"
+
+
+@dataclass(frozen=True)
+class MapField:
+    """One map: whose field it is, what it shows and the field itself."""
+
+    source: str
+    title: str
+    data: xr.DataArray
+    signed: bool  # differences and trends: diverging palette symmetric about zero
+    quantity: str = "Value"  # what a value of the map is ("Mean", "Difference", "Trend")
+
+
+class Results:
+    """Products of the core for one collection, computed once and kept in bounded caches.
+
+    Parameters
+    ----------
+    collection
+        The served collection (``evaluation.catalog.Collection``).
+    max_items
+        Entries of the product cache (maps, tables, series); a 1° map is about 0.5 MB.
+    max_comparisons
+        Comparisons kept open (each holds its reduced seasons in memory).
+    regrid
+        Remapping method passed to every comparison.
+    """
+
+    def __init__(self, collection: Any, *, max_items: int = 512, max_comparisons: int = 24, regrid: str = "conservative") -> None:
+        self.collection = collection
+        self.regrid = regrid
+        self.products = BoundedCache(max_items=max_items)
+        self._comparisons = BoundedCache(max_items=max_comparisons)
+        self._lock = threading.RLock()
+        self._worker = ThreadPoolExecutor(max_workers=1, thread_name_prefix="gridscore-core")
+        self._variables = self._list_variables()
+
+    # ------------------------------------------------------------------ the collection
+    def _list_variables(self) -> dict[str, dict[str, VariableInfo]]:
+        """variable -> source name -> how that source describes it (files read once)."""
+        found: dict[str, dict[str, VariableInfo]] = {}
+        with self._lock:
+            for src in (*self.collection.references, *self.collection.models):
+                listing = io.variables_in(io.expand_paths(src.paths, source=src.name))
+                for name, meta in listing.items():
+                    if meta.get("has_time") == "False":
+                        continue  # fixed fields (cell area, land fraction) are not compared
+                    found.setdefault(name, {})[src.name] = VariableInfo(
+                        name, meta.get("long_name", ""), meta.get("units", ""), meta.get("standard_name", "")
+                    )
+        return found
+
+    def variables(self) -> list[str]:
+        """Variables that at least one run and one reference hold, in the collection's order."""
+        offered = list(self.collection.variables())
+        return [v for v in offered if self.references(v) and self.models(v)]
+
+    def variable_info(self, variable: str) -> VariableInfo:
+        """Name, long name and units as the first reference holding it describes them."""
+        by_source = self._variables.get(variable, {})
+        for src in self.collection.references:
+            if src.name in by_source:
+                return by_source[src.name]
+        return next(iter(by_source.values()), VariableInfo(variable, "", ""))
+
+    def holds(self, source: str, name: str, standard_name: str = "") -> bool:
+        """Whether a source has a variable of this name or CF standard name."""
+        for variable, by_source in self._variables.items():
+            info = by_source.get(source)
+            if info is not None and (variable == name or (standard_name and info.standard_name == standard_name)):
+                return True
+        return False
+
+    def references(self, variable: str) -> list[str]:
+        holders = self._variables.get(variable, {})
+        return [s.name for s in self.collection.references if s.name in holders]
+
+    def models(self, variable: str) -> list[str]:
+        holders = self._variables.get(variable, {})
+        return [s.name for s in self.collection.models if s.name in holders]
+
+    def source(self, name: str) -> Source:
+        return self.collection.source(name)
+
+    def colour(self, name: str) -> str:
+        """The line colour of a source: black for references, the manifest's or a palette colour for runs."""
+        if name in {s.name for s in self.collection.references}:
+            return REFERENCE_COLOUR
+        names = [s.name for s in self.collection.models]
+        wanted = getattr(self.source(name), "colour", None)
+        if wanted and is_colour(wanted):
+            return str(wanted).strip().lower()
+        return run_colour(names.index(name) if name in names else 0)
+
+    # ------------------------------------------------------------------ running
+    async def run(self, function: Callable[..., T], *args: Any) -> T:
+        """Run a core call on the worker thread and wait for it without blocking the loop."""
+        loop = asyncio.get_running_loop()
+        return await loop.run_in_executor(self._worker, self._locked, function, args)
+
+    def _locked(self, function: Callable[..., T], args: Sequence[Any]) -> T:
+        with self._lock:
+            return function(*args)
+
+    async def fetch(self, key: tuple, function: Callable[..., T], *args: Any) -> T:
+        """A cached product: answered at once when present, else computed off the loop."""
+        value = self.products.get(key)
+        if value is not _MISSING:
+            return value
+        return await self.run(self._product, key, function, args)
+
+    def product(self, key: tuple, function: Callable[..., T], *args: Any) -> T:
+        """The same as :meth:`fetch`, on the calling thread (for tests and exports)."""
+        with self._lock:
+            return self._product(key, function, args)
+
+    def _product(self, key: tuple, function: Callable[..., T], args: Sequence[Any]) -> T:
+        value = self.products.get(key)
+        if value is _MISSING:  # another session may have made it while this one queued
+            value = function(*args)
+            self.products.put(key, value)
+        return value
+
+    def close(self) -> None:
+        self._worker.shutdown(wait=False, cancel_futures=True)
+
+    # ------------------------------------------------------------------ comparisons
+    def comparison(self, reference: str, variable: str, period: str | None = None) -> Comparison:
+        """The comparison of every run holding ``variable`` against ``reference``.
+
+        Runs that the core rejects (unreadable, or not covering ``period``) are left out
+        and listed by :meth:`left_out`; a problem of the reference raises its InputError.
+        ``period=None`` is the core's default rule; asking for the default period by its
+        years gives the same object.
+        """
+        with self._lock:
+            return self._entry(reference, variable, period)[0]
+
+    def left_out(self, reference: str, variable: str, period: str | None = None) -> tuple[str, ...]:
+        """The runs that comparison could not use, each as ``"name: reason"``."""
+        with self._lock:
+            return self._entry(reference, variable, period)[1]
+
+    def _entry(self, reference: str, variable: str, period: str | None) -> tuple[Comparison, tuple[str, ...]]:
+        if period is not None:
+            period = str(parse_period(period))
+            default = self._entry(reference, variable, None)
+            if str(default[0].period) == period:
+                return default
+        key = (reference, variable, period)
+        entry = self._comparisons.get(key)
+        if entry is not _MISSING:
+            return entry
+        runs = [self.source(n) for n in self.models(variable)]
+        if not runs:
+            raise InputError(f"no model run holds '{variable}'", remedy="choose another variable")
+        left: list[str] = []
+        while True:
+            try:
+                cmp = Comparison(reference=self.source(reference), models=runs, variable=variable, period=period, regrid=self.regrid)
+                break
+            except InputError as error:
+                culprit = next((r.name for r in runs if _blames(error, r)), None)
+                if culprit is None or len(runs) == 1:
+                    raise
+                left.append(f"{culprit}: {error.problem}")
+                runs = [r for r in runs if r.name != culprit]
+        entry = (cmp, tuple(left))
+        self._comparisons.put(key, entry)
+        return entry
+
+    def period_info(self, reference: str, variable: str) -> tuple[Period, Period]:
+        """``(span, default period)`` of the years every source of the comparison covers."""
+        cmp = self.comparison(reference, variable, None)
+        return cmp.span, cmp.period
+
+    # ------------------------------------------------------------------ products (worker thread)
+    def scores(self, reference: str, variable: str, period: str, region: str, season: str) -> pd.DataFrame:
+        """The tidy score table of every run of the comparison (the views pick theirs)."""
+        cmp = self.comparison(reference, variable, period)
+        return cmp.scores(regions=[parse_region(region).id], seasons=[season])
+
+    def provenance(self, reference: str, variable: str, period: str, region: str, season: str) -> dict:
+        cmp = self.comparison(reference, variable, period)
+        return cmp.provenance(regions=[parse_region(region).id], seasons=[season])
+
+    def map_field(self, reference: str, variable: str, period: str, season: str, kind: str, name: str) -> xr.DataArray:
+        """One field of :class:`~evaluation.scoring.Comparison`: ``kind`` is the method name."""
+        cmp = self.comparison(reference, variable, period)
+        method = {
+            "climatology": cmp.climatology,
+            "difference": cmp.difference,
+            "trend_map": cmp.trend_map,
+            "trend_difference": cmp.trend_difference,
+        }[kind]
+        return method(name, season).load()
+
+    def zonal_mean(self, reference: str, variable: str, period: str, season: str, name: str) -> xr.DataArray:
+        return self.comparison(reference, variable, period).zonal_mean(name, season).load()
+
+    def regional_series(self, reference: str, variable: str, period: str, region: str, season: str, name: str) -> xr.DataArray:
+        return self.comparison(reference, variable, period).regional_series(name, parse_region(region).id, season).load()
+
+    def seasonal_cycle(self, reference: str, variable: str, period: str, region: str, name: str) -> xr.DataArray:
+        return self.comparison(reference, variable, period).seasonal_cycle(name, parse_region(region).id).load()
+
+    def units(self, reference: str, variable: str, period: str) -> str:
+        return self.comparison(reference, variable, period).units
+
+    def overview(self, reference: str, period: str, regions: tuple[str, ...], seasons: tuple[str, ...]) -> pd.DataFrame:
+        """Scores of every run for every variable of the collection (for the summary heat map).
+
+        The selected reference is used where it holds the variable, else the first
+        reference that does; the selected period where every source covers it, else the
+        default period of that variable.  Variables the core cannot score are skipped.
+        """
+        tables = []
+        for variable in self.variables():
+            refs = self.references(variable)
+            ref = reference if reference in refs else refs[0]
+            try:
+                try:
+                    cmp = self.comparison(ref, variable, period)
+                except InputError:
+                    cmp = self.comparison(ref, variable, None)
+                tables.append(cmp.scores(regions=list(regions), seasons=list(seasons)))
+            except InputError:
+                continue
+        if not tables:
+            return pd.DataFrame(columns=["model", "reference", "variable", "region", "season", "period", "metric", "value", "units"])
+        return pd.concat(tables, ignore_index=True)

@@ -1,0 +1,205 @@
+"""The score table of the selected runs, with the best value per column marked.
+
+Numbers come from ``Comparison.scores``; the downloads are the core's exporters
+(``evaluation.export.table_bytes``) with the comparison's provenance, built on the server
+from the whole table (Tabulator's own download would export only what the page holds).
+"""
+
+from __future__ import annotations
+
+import io
+import math
+from typing import Any
+
+import numpy as np
+import pandas as pd
+import panel as pn
+from bokeh.models.widgets.tables import NumberFormatter
+
+from evaluation.export import METRIC_ORDER, table_bytes, wide_table
+from evaluation.metrics import METRICS
+from evaluation.regions import parse_region
+
+from ..state import Request
+from .base import ResultView, safe_filename, text_html
+
+__all__ = ["ScoresView", "best_rows", "number_format"]
+
+#: Table downloads offered: exporter format -> button label.
+DOWNLOADS = {"csv": "CSV", "xlsx": "Excel", "md": "Markdown", "tex": "LaTeX"}
+#: Compact numeric table: wrapped header titles, tabular figures.
+TABLE_CSS = """
+:host .tabulator-col-title { white-space: normal !important; text-overflow: clip !important; line-height: 1.2;
+  padding-right: 14px !important; }
+:host .tabulator-cell { font-variant-numeric: tabular-nums; font-size: 13px; }
+:host .tabulator-col { font-size: 12px; }
+"""
+_BEST_STYLE = "background-color: #d7f0ec; font-weight: 700; color: #0b4f4c"
+
+
+def best_rows(values: pd.Series, metric: str) -> list[bool]:
+    """Which entries of a metric column are best, by the registry's rule.
+
+    Notes
+    -----
+    ``high``/``low`` take the largest/smallest value, ``zero`` the smallest magnitude
+    (bias), ``one`` the value closest to one (standard-deviation and variability ratios).
+    Metrics without a better direction mark nothing; NaN is never best; ties are all
+    marked.
+    """
+    rule = METRICS[metric].best if metric in METRICS else None
+    v = pd.to_numeric(values, errors="coerce").to_numpy(dtype="float64")
+    if rule is None or not np.isfinite(v).any():
+        return [False] * len(v)
+    score = {"high": -v, "low": v, "zero": np.abs(v), "one": np.abs(v - 1.0)}[rule]
+    best = np.nanmin(score)
+    return [bool(np.isfinite(s) and np.isclose(s, best, rtol=1e-12, atol=0.0)) for s in score]
+
+
+def number_format(values: pd.Series, metric: str) -> str:
+    """A numbro format with sensible digits for a column (p-values: three decimals).
+
+    Notes
+    -----
+    Four significant digits of the column's largest magnitude; scientific notation below
+    0.001 (fluxes in kg m-2 s-1).  NaN-only columns get three decimals.
+    """
+    if metric.endswith("pvalue"):
+        return "0.000"
+    v = pd.to_numeric(values, errors="coerce").to_numpy(dtype="float64")
+    finite = np.abs(v[np.isfinite(v)])
+    top = float(finite.max()) if finite.size else 0.0
+    if top == 0.0:
+        return "0.000"
+    if top < 1e-3:
+        return "0.000e+0"
+    decimals = min(4, max(0, 3 - math.floor(math.log10(top))))
+    return "0,0" if decimals == 0 else "0,0." + "0" * decimals
+
+
+#: The table is shown in two parts so that every column stays readable without scrolling.
+GROUPS: dict[str, tuple[str, ...]] = {
+    "Climatology": ("mean", "ref_mean", "bias", "rmse", "crmse", "corr", "std_ratio", "taylor_skill", "rel_error"),
+    "Trends and variability": ("trend", "ref_trend", "trend_pvalue", "ref_trend_pvalue", "iav_ratio"),
+}
+
+
+def score_widget(shown: pd.DataFrame, units: dict[str, str]) -> pn.widgets.Tabulator:
+    """A sortable table of runs × metrics with formatted numbers and the best values marked."""
+    metrics = list(units)
+    titles = {"Run": "Run"}
+    formatters: dict[str, Any] = {}
+    for m in metrics:
+        label = METRICS[m].label if m in METRICS else m
+        unit = units[m]
+        # Tabulator writes titles as HTML; units come from files, so escape them.
+        titles[m] = text_html(label) + (f"<br><small>{text_html(unit)}</small>" if unit and unit != "1" else "")
+        formatters[m] = NumberFormatter(format=number_format(shown[m], m), nan_format="–", text_align="right")
+    tooltips = {m: METRICS[m].description for m in metrics if m in METRICS}
+    marks = {m: best_rows(shown[m], m) for m in metrics}
+
+    def highlight(column: pd.Series) -> list[str]:
+        flags = marks.get(str(column.name), [False] * len(column))
+        return [_BEST_STYLE if f else "" for f in flags]
+
+    widget = pn.widgets.Tabulator(
+        shown,
+        show_index=False,
+        disabled=True,
+        selectable=False,
+        titles=titles,
+        formatters=formatters,
+        header_tooltips=tooltips,
+        frozen_columns=["Run"],
+        layout="fit_columns",
+        sizing_mode="stretch_width",
+        theme="simple",
+        widths={"Run": 140},
+        stylesheets=[TABLE_CSS],
+    )
+    widget.style.apply(highlight, axis=0, subset=metrics)
+    return widget
+
+
+class ScoresView(ResultView):
+    """Sortable scores of each selected run for the region, season and period."""
+
+    tab = "scores"
+    title = "Scores"
+    explanation = (
+        "Area-weighted statistics of each run against the reference for the selected region, "
+        "season and period. The best value of each column is highlighted (bias: nearest zero; "
+        "ratios: nearest one). Click a header to sort; hover a header for the definition."
+    )
+
+    def key(self, request: Request) -> Any:
+        return (request.variable, request.reference, request.models, request.region, request.season, request.period)
+
+    async def load(self, request: Request) -> dict[str, Any]:
+        results = self.results
+        args = (request.reference, request.variable, request.period, request.region, request.season)
+        tidy = await results.fetch(("scores",) + args, results.scores, *args)
+        record = await results.fetch(("provenance",) + args, results.provenance, *args)
+        left = await results.run(results.left_out, request.reference, request.variable, request.period)
+        mine = tidy[tidy["model"].isin(request.models)].reset_index(drop=True)
+        return {"tidy": mine, "provenance": record, "left_out": left, "runs": int(tidy["model"].nunique())}
+
+    def table(self, tidy: pd.DataFrame) -> tuple[pd.DataFrame, dict[str, str]]:
+        """The shown frame (one row per run, one column per metric) and each column's units."""
+        wide = wide_table(tidy)
+        metrics = [m for m in METRIC_ORDER if m in wide.columns]
+        shown = wide[["model", *metrics]].rename(columns={"model": "Run"})
+        units = tidy.drop_duplicates("metric").set_index("metric")["units"].to_dict()
+        return shown, {m: str(units.get(m, "")) for m in metrics}
+
+    def draw(self, data: dict[str, Any], request: Request) -> pn.viewable.Viewable:
+        tidy: pd.DataFrame = data["tidy"]
+        if tidy.empty:
+            return pn.pane.HTML('<div class="gs-empty">No scores for this selection.</div>')
+        shown, units = self.table(tidy)
+        tables = []
+        for heading, group in GROUPS.items():
+            metrics = [m for m in group if m in units]
+            if metrics:
+                tables.append(pn.pane.HTML(f'<div class="gs-section-title">{text_html(heading)}</div>', margin=(6, 10, 2, 10)))
+                tables.append(score_widget(shown[["Run", *metrics]], {m: units[m] for m in metrics}))
+        others = [m for m in units if not any(m in g for g in GROUPS.values())]
+        if others:
+            tables.append(score_widget(shown[["Run", *others]], {m: units[m] for m in others}))
+        region = parse_region(request.region)
+        context = (
+            f"Region {region.label}: {region.definition}. Relative error compares each run's RMSE with the "
+            f"median over all {data['runs']} runs of the collection (Gleckler et al. 2008)."
+        )
+        parts: list[Any] = [pn.pane.HTML(f'<div class="gs-hint">{text_html(context)}</div>', margin=(0, 10, 6, 10))]
+        if data["left_out"]:
+            text = "Left out of this comparison: " + "; ".join(data["left_out"])
+            parts.append(pn.pane.HTML(f'<div class="gs-notice">{text_html(text)}</div>', margin=(0, 10, 6, 10)))
+        parts += [*tables, self._downloads(data, request)]
+        return pn.Column(*parts, sizing_mode="stretch_width")
+
+    def _downloads(self, data: dict[str, Any], request: Request) -> pn.Row:
+        tidy, record = data["tidy"], data["provenance"]
+        base = safe_filename("scores", request.variable, request.reference, request.region, request.season, request.period)
+        results = self.results
+        buttons = []
+        for fmt, label in DOWNLOADS.items():
+
+            async def make(fmt: str = fmt) -> io.BytesIO:
+                payload = await results.run(lambda: table_bytes(tidy, fmt, provenance=record))
+                return io.BytesIO(payload)
+
+            buttons.append(
+                pn.widgets.FileDownload(
+                    callback=make,
+                    filename=f"{base}.{fmt}",
+                    label=label,
+                    color="light",
+                    width=120,
+                    height=34,
+                    description=f"Download the table as {label} with its provenance",
+                    css_classes=[f"gs-download-{fmt}"],
+                )
+            )
+        note = pn.pane.HTML('<span class="gs-hint">Download the table:</span>', margin=(12, 4, 0, 10))
+        return pn.Row(note, *buttons)

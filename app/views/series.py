@@ -1,0 +1,68 @@
+"""Regional-mean time series of every source, with their fitted linear trends."""
+
+from __future__ import annotations
+
+from typing import Any
+
+import holoviews as hv
+import numpy as np
+import panel as pn
+
+from evaluation.regions import parse_region
+from evaluation.trends import ols_trend
+from evaluation.units import trend_units
+
+from ..state import Request
+from .base import ResultView
+from .lines import curve, line_figure
+
+__all__ = ["SeriesView"]
+
+
+class SeriesView(ResultView):
+    """Yearly (or seasonal) regional means over the period, one line per source."""
+
+    tab = "series"
+    title = "Time series"
+    explanation = (
+        "The area-weighted mean over the region for each year of the period (for a season, the "
+        "season's mean in each year; DJF belongs to the year of its January). Dashed lines are "
+        "least-squares trends; the legend gives them per decade."
+    )
+
+    def key(self, request: Request) -> Any:
+        return (request.variable, request.reference, request.models, request.region, request.season, request.period)
+
+    async def load(self, request: Request) -> dict[str, Any]:
+        results = self.results
+        series = {}
+        for name in (request.reference, *request.models):
+            args = (request.reference, request.variable, request.period, request.region, request.season, name)
+            series[name] = await results.fetch(("series",) + args, results.regional_series, *args)
+        return series
+
+    def figure(self, data: dict[str, Any], request: Request) -> hv.Overlay:
+        first = next(iter(data.values()))
+        units = str(first.attrs.get("units", ""))
+        info = self.results.variable_info(request.variable)
+        xdim = hv.Dimension("year", label="Year")
+        ydim = hv.Dimension("value", label=info.long_name or request.variable, unit=units)
+        curves = []
+        for name, da in data.items():
+            years = da["year"].values.astype("float64")
+            colour = self.results.colour(name)
+            fit = ols_trend(da)  # the core's trend: regressed on the year coordinate
+            per_decade = f"{fit.slope * 10:+.3g} {trend_units(units)}" if np.isfinite(fit.slope) else "no trend"
+            is_ref = name == request.reference
+            curves.append(curve(years, da.values, label=f"{name} ({per_decade})", colour=colour, xdim=xdim, ydim=ydim, reference=is_ref))
+            if np.isfinite(fit.slope):
+                curves.append(
+                    curve(years, fit.intercept + fit.slope * years, label=f"{name} ({per_decade})", colour=colour,
+                          xdim=xdim, ydim=ydim, dash="dashed")
+                )
+        region = parse_region(request.region).label
+        title = f"{region}: {request.variable}, {request.season} means {request.period}"
+        return line_figure(curves, title=title)
+
+    def draw(self, data: dict[str, Any], request: Request) -> pn.viewable.Viewable:
+        return pn.pane.HoloViews(self.figure(data, request), sizing_mode="stretch_width")
