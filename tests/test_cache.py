@@ -125,3 +125,16 @@ def test_threaded_and_distributed_engines_agree(sources):
     with connect(workers=2):
         distributed = _scores(ref, run, None)
     pd.testing.assert_frame_equal(threaded, distributed, rtol=1e-12)
+
+
+@pytest.mark.slow
+def test_dashboard_links_to_the_dask_dashboard_on_a_cluster(sources):
+    from app.server import load_results
+    from app.views.about import About
+    from evaluation.engine import connect
+
+    results = load_results(None)
+    assert "dask dashboard" not in About(results=results)._pane.object  # threads: nothing to link
+    with connect(workers=1) as client:
+        text = About(results=results)._pane.object
+        assert "dask dashboard" in text and client.dashboard_link in text

@@ -46,6 +46,14 @@ class About(Viewer):
             + f'<details style="margin-top:6px"><summary class="gs-hint">{len(rows)} sources</summary>'
             f'<ul style="padding-left:4px;list-style:none;margin:4px 0">{"".join(rows)}</ul></details>'
         )
+        from evaluation.engine import dashboard_link
+
+        link = dashboard_link()
+        if link:  # computations run on a dask.distributed cluster: show where to watch them
+            body += (
+                f'<div class="gs-hint" style="margin-top:6px">Computing on a dask cluster: '
+                f'<a href="{text_html(link)}" target="_blank" rel="noopener">dask dashboard</a></div>'
+            )
         self._pane = pn.pane.HTML(body, sizing_mode="stretch_width", margin=(12, 10))
 
     def __panel__(self) -> pn.viewable.Viewable:
