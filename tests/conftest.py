@@ -71,3 +71,10 @@ def raise_if_computed():
             yield scheduler
 
     return guard
+
+
+def pytest_collection_modifyitems(config, items):
+    """Run the browser tests last: Playwright's sync API keeps an asyncio loop running in
+    the main thread for the rest of the session, which tests that drive Panel code
+    directly (asyncio.run) cannot share."""
+    items.sort(key=lambda item: "browser" in item.nodeid.split("::")[0].split("/"))
