@@ -199,11 +199,6 @@ def make_server(
     ``unused_session_lifetime`` in milliseconds, which tests shorten).
     """
     _prepare(results)
-    # Every stylesheet and script from this server, never a CDN (the page must work with no
-    # internet): pin Bokeh's resource setting, which Panel consults for each new model.
-    from bokeh.settings import settings as bokeh_settings
-
-    bokeh_settings.resources.set_value("server")
     origins = list(allow_websocket_origin) or None
     if origins is not None:
         # The address the person opens must be allowed too, or the page loads without data.
