@@ -129,11 +129,30 @@ def is_loopback(address: str) -> bool:
 
 
 # ---------------------------------------------------------------------- one session
+def _serve_own_stylesheets() -> None:
+    """Point this session's stylesheet links at the server from the start.
+
+    Panel learns where its CSS lives only when it renders the page, after the
+    components were built; stylesheets made before (or restyled in between) keep links
+    to Panel's CDN, which fails on a closed network (seen here: loading.css requested from
+    the CDN).  Setting the same value Panel sets later, before anything is built, keeps
+    every link on this server.
+    """
+    from panel.io.resources import LOCAL_DIST
+
+    doc = pn.state.curdoc
+    if doc is None or doc.session_context is None:
+        return
+    local = f"{pn.state.rel_path}/{LOCAL_DIST}" if pn.state.rel_path else LOCAL_DIST
+    doc.template_variables.setdefault("dist_url", local)
+
+
 def build_session(results: Results) -> pn.template.BaseTemplate:
     """The page of one browser session, with the URL query applied before any computation."""
     from .dashboard import available_tabs, build
 
     gate_page()
+    _serve_own_stylesheets()
     selection = Selection(results, tabs=available_tabs(results))
     location = pn.state.location
     if location is not None and location.search:
@@ -178,6 +197,7 @@ def build_session(results: Results) -> pn.template.BaseTemplate:
 def _prepare(results: Results) -> None:
     load_extensions()
     coastline_segments()  # read the land fraction once, on this thread, before sessions start
+    results.warm()
 
 
 def make_server(
@@ -195,8 +215,9 @@ def make_server(
 ) -> Any:
     """A Panel server of the dashboard at ``/`` (with ``/liveness``); for tests and :func:`serve`.
 
-    ``server_options`` go to Bokeh's server (for instance ``check_unused_sessions`` and
-    ``unused_session_lifetime`` in milliseconds, which tests shorten).
+    ``server_options`` go to Bokeh's server (for instance
+    ``check_unused_sessions_milliseconds`` and ``unused_session_lifetime_milliseconds``,
+    which tests shorten).
     """
     _prepare(results)
     origins = list(allow_websocket_origin) or None

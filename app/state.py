@@ -24,7 +24,7 @@ from urllib.parse import quote, unquote, unquote_plus
 import param
 
 from evaluation.errors import InputError
-from evaluation.regions import REGIONS, parse_region
+from evaluation.regions import parse_region
 from evaluation.timeaxis import SEASONS, Period, parse_period, parse_season
 
 __all__ = [

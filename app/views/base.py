@@ -66,6 +66,14 @@ class PageGate:
         for change in pending:
             change()
 
+    def close(self, session_context: Any) -> None:
+        """Forget the queued changes of a session that ended before its page loaded.
+
+        The queued callbacks refer to the session's views and so to its document; left
+        in place they would keep every object of the session alive (panel#4116).
+        """
+        self.pending = []
+
 
 _GATES: weakref.WeakKeyDictionary[Any, PageGate] = weakref.WeakKeyDictionary()
 
@@ -77,6 +85,7 @@ def gate_page() -> None:
         return
     gate = _GATES[doc] = PageGate()
     pn.state.onload(gate.open)
+    doc.on_session_destroyed(gate.close)
 
 
 def on_document(doc: Any, change: Callable[[], None]) -> None:
@@ -217,6 +226,12 @@ class ResultView(Viewer):
     def _show(self, outcome: tuple[str, Any], request: Request, generation: int) -> None:
         """Put the drawing on the page (under the document lock)."""
         if generation != self._generation:
+            return
+        if self.selection.tab != self.tab:
+            # The person moved to another tab meanwhile.  A hidden tab's models are detached
+            # from the document, and Panel would give new ones stylesheets from its CDN
+            # (a request that fails offline); draw when the tab is shown again instead.
+            self._drawn = None
             return
         kind, value = outcome
         if kind == "data":

@@ -18,7 +18,6 @@ import panel as pn
 import xarray as xr
 
 from evaluation.export import field_bytes
-
 from evaluation.regions import parse_region
 
 from ..state import Request

@@ -19,7 +19,7 @@ import re
 import threading
 from collections import OrderedDict
 from collections.abc import Callable, Hashable, Sequence
-from concurrent.futures import ThreadPoolExecutor
+from concurrent.futures import Future, ThreadPoolExecutor
 from dataclasses import dataclass
 from typing import Any, TypeVar
 
@@ -243,6 +243,25 @@ class Results:
             value = function(*args)
             self.products.put(key, value)
         return value
+
+    def warm(self) -> Future:
+        """Start reducing what a fresh session shows first, on the worker thread.
+
+        The first variable's comparison against its first reference is opened and its
+        annual means reduced, so that the first visitor does not wait for them.  Problems
+        are left for the session to report (it asks for the same things).
+        """
+
+        def job() -> None:
+            try:
+                variables = self.variables()
+                if variables:
+                    variable = variables[0]
+                    self.comparison(self.references(variable)[0], variable).prepare(["ANN"])
+            except InputError:
+                pass
+
+        return self._worker.submit(self._locked, job, ())
 
     def close(self) -> None:
         self._worker.shutdown(wait=False, cancel_futures=True)

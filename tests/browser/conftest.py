@@ -93,7 +93,8 @@ def serving(results: Any) -> Iterator[str]:
 
     port = free_port()
     thread = make_server(
-        results, port=port, address="127.0.0.1", threaded=True, check_unused_sessions=250, unused_session_lifetime=500
+        results, port=port, address="127.0.0.1", threaded=True,
+        check_unused_sessions_milliseconds=250, unused_session_lifetime_milliseconds=500,
     )
     url = f"http://127.0.0.1:{port}"
     deadline = time.monotonic() + 30

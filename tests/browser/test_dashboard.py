@@ -177,8 +177,6 @@ def test_region_season_period_update_the_table(browser, served, screenshots: Pat
     session.close()
 
 
-@pytest.mark.xfail(strict=False, reason="known open problem: on some runs Panel requests loading.css from its CDN "
-                   "for a model drawn while its tab is hidden, a console error on this offline machine")
 def test_shared_link_reproduces_the_view(browser, served) -> None:
     url, _ = served
     first = open_dashboard(browser, url + "/")
@@ -347,8 +345,6 @@ def test_map_hover_and_box_select(browser, served) -> None:
     session.close()
 
 
-@pytest.mark.xfail(strict=False, reason="known open problem: on a loaded 2-core machine the session clean-up "
-                   "can outlast the test's wait")
 def test_closed_sessions_are_released(browser, served) -> None:
     """Open and close sessions; their selection state must not stay in memory (panel#4116)."""
     import gc
