@@ -4,19 +4,119 @@ Every conversion the tool needs is affine (``y = a x + b``: K ↔ °C, Pa ↔ hP
 kg m-2 s-1 ↔ mm/day), so the factors are taken from pint once and applied lazily to
 dask arrays.  A precipitation mass flux becomes a depth rate through the density of
 liquid water, 1000 kg m-3 (common practice).
+
+A value only ever changes when both units describe the same quantity.  Three things
+keep a unit string from being read as something it does not mean:
+
+* :data:`SPELLINGS`, the spellings real files carry, each mapped to the CF/UDUNITS
+  string it means (``deg. C`` is degrees Celsius; left to a parser it is an angle times
+  a Celsius degree, 57.3 times too large, in pint and in UDUNITS alike);
+* :data:`AMBIGUOUS`, spellings refused outright because the registries disagree on
+  them (``C`` is the coulomb in UDUNITS and pint, degrees Celsius in cf-xarray);
+* angles (degree, radian) count as a dimension of their own, although pint and UDUNITS
+  take them as dimensionless, so that a field in ``degrees`` is never turned into a
+  fraction by a factor of π/180; and a month or a year, which have no fixed length,
+  are never converted into days or seconds.
 """
 
 from __future__ import annotations
 
+import re
 from functools import lru_cache
 
 import xarray as xr
 
 from .errors import InputError
 
-__all__ = ["WATER_DENSITY", "registry", "parse_units", "conversion", "convert", "trend_units", "cf_units"]
+__all__ = [
+    "WATER_DENSITY",
+    "SPELLINGS",
+    "AMBIGUOUS",
+    "registry",
+    "canonical",
+    "parse_units",
+    "quantity_kind",
+    "conversion",
+    "convert",
+    "trend_units",
+    "cf_units",
+]
 
 WATER_DENSITY = 1000.0  # kg m-3, liquid water (common practice for precipitation depth)
+
+
+def _spellings(canonical_form: str, *written: str) -> dict[str, str]:
+    return {w: canonical_form for w in (canonical_form, *written)}
+
+
+#: Unit spellings found in real files -> the CF/UDUNITS string they mean.  Keys are
+#: matched after white space is collapsed; case matters (``Pa`` is not ``PA``).  Where
+#: UDUNITS or pint read a spelling differently, the comment says so and why the table
+#: wins.
+SPELLINGS: dict[str, str] = {
+    # Celsius.  'deg C', 'deg. C', 'degrees C', 'degrees Celsius': pint/UDUNITS read an
+    # angle times a Celsius degree (or a coulomb); the files mean degrees Celsius.
+    **_spellings(
+        "degC", "deg C", "deg. C", "deg.C", "degrees C", "degree C", "degree_C", "degrees_C", "deg_C",
+        "degree_Celsius", "degrees_Celsius", "degree Celsius", "degrees Celsius", "Celsius", "celsius",
+        "°C", "℃", "º C", "ºC", "° C", "DegC", "degc",
+    ),
+    # Kelvin.  'deg K', 'degrees K': an angle times a kelvin in pint and UDUNITS (×0.01745).
+    **_spellings(
+        "K", "kelvin", "Kelvin", "kelvins", "deg K", "deg. K", "degrees K", "degree K", "degK", "deg_K",
+        "degrees_K", "degree_K", "degreesK", "°K",
+    ),
+    # Fahrenheit ('F' alone is the farad: see AMBIGUOUS).
+    **_spellings("degF", "deg F", "deg. F", "degrees F", "degree F", "degree_F", "degrees_F", "Fahrenheit", "°F", "℉"),
+    # Pressure.  'mb' is the millibarn (an area) in pint and UDUNITS; in meteorological
+    # files it is always the millibar.
+    **_spellings("hPa", "mb", "mbar", "millibar", "millibars", "hectopascal", "hectopascals"),
+    **_spellings("Pa", "pascal", "pascals", "N m-2", "N/m2", "N/m^2", "N m**-2"),
+    # Precipitation and other water fluxes.
+    **_spellings("mm day-1", "mm/day", "mm d-1", "mm/d", "mm day^-1", "mm day**-1", "mm per day", "mm.day-1"),
+    **_spellings("mm h-1", "mm/h", "mm/hr", "mm hr-1", "mm h**-1"),
+    **_spellings("mm s-1", "mm/s", "mm s**-1", "mm sec-1"),
+    **_spellings(
+        "kg m-2 s-1", "kg/m2/s", "kg/m^2/s", "kg m^-2 s^-1", "kg m**-2 s**-1", "kg/(m2 s)", "kg/(m^2 s)",
+        "kg m-2s-1", "kgm-2s-1", "kg.m-2.s-1", "kg/m2s",
+    ),
+    **_spellings("kg m-2", "kg/m2", "kg/m^2", "kg m**-2", "kg m^-2"),
+    # Radiative and heat fluxes.
+    **_spellings("W m-2", "W/m^2", "W/m2", "W m**-2", "W m^-2", "W/m**2", "W.m-2", "Wm-2", "watt/m2", "Watts/m2", "watts/m2", "W/sq m"),
+    # Dimensionless.
+    **_spellings("1", "", "-", "fraction", "none", "dimensionless", "unitless", "0-1", "frac"),
+    **_spellings("%", "percent", "percentage", "per cent"),
+    # Wind.  'ms-1' is a per-millisecond frequency in pint and UDUNITS; in climate files
+    # it means metres per second.
+    **_spellings("m s-1", "m/s", "ms-1", "m s**-1", "m s^-1", "m/sec", "m.s-1", "m sec-1", "meters/second", "metres/second"),
+    # Humidity and other mass ratios.
+    **_spellings("g kg-1", "g/kg", "g kg**-1", "g kg^-1"),
+    **_spellings("kg kg-1", "kg/kg", "kg kg**-1", "kg kg^-1"),
+    # Geopotential height ('gpm', geopotential metre: numerically a metre in CF practice).
+    **_spellings("m", "gpm", "metre", "meter", "metres", "meters"),
+    **_spellings("dam", "gpdm", "decametre", "decameter"),
+    **_spellings("m2 s-2", "m2/s2", "m^2/s^2", "m**2 s**-2", "m^2 s^-2"),
+}
+
+#: Spellings refused whatever they are compared with: the registries disagree.
+AMBIGUOUS: dict[str, str] = {
+    "C": "'C' is the coulomb in UDUNITS and pint (cf-xarray reads degrees Celsius) — write 'degC' for degrees Celsius",
+    "F": "'F' is the farad in UDUNITS and pint — write 'degF' for degrees Fahrenheit",
+    "deg": "'deg' alone is an angle — write 'degC' or 'K' for a temperature, 'degrees' for an angle",
+    "mon": "'mon' is no unit UDUNITS or pint knows — write the unit of the quantity itself",
+}
+
+# Root units of pint counted as a dimension: an angle never becomes a pure number.
+_ANGLE_ROOT = "radian"
+# Time units without a fixed length in a calendar: a conversion through them would
+# assume some mean month or year (pint: 1/12 of 365.25 days; UDUNITS: 1/12 of a
+# tropical year) and be silently wrong for any given month.
+_CALENDAR_TIME = {"month", "year", "common_year", "leap_year", "julian_year", "gregorian_year", "decade", "century"}
+_SPACE = re.compile(r"\s+")
+
+
+def _key(text: str) -> str:
+    return _SPACE.sub(" ", str(text)).strip()
 
 
 @lru_cache(maxsize=1)
@@ -27,29 +127,92 @@ def registry():
     return cf_xarray.units.units
 
 
+def canonical(text: str) -> str:
+    """The CF/UDUNITS string a unit spelling means: ``deg. C`` -> ``degC``, ``mb`` -> ``hPa``.
+
+    Spellings outside :data:`SPELLINGS` are returned with white space collapsed.
+    """
+    key = _key(text)
+    return SPELLINGS.get(key, key)
+
+
 @lru_cache(maxsize=256)
 def parse_units(text: str):
-    """A pint Unit for a CF unit string, or :class:`InputError`."""
+    """A pint Unit for a CF unit string, or :class:`InputError`.
+
+    Notes
+    -----
+    Refused: spellings in :data:`AMBIGUOUS`, strings no registry reads, and products of
+    an angle with a temperature (``degrees Kelvin``-like spellings outside the table).
+    """
     ureg = registry()
-    cleaned = str(text).strip()
-    if cleaned in ("", "1", "-", "none", "fraction"):
+    key = _key(text)
+    if key in AMBIGUOUS:
+        raise InputError(f"ambiguous units '{text}'", remedy=AMBIGUOUS[key])
+    cleaned = SPELLINGS.get(key, key)
+    if cleaned == "1":
         return ureg.dimensionless
-    if cleaned in ("%", "percent"):
+    if cleaned == "%":
         return ureg.percent
     try:
-        return ureg.Unit(cleaned)
+        unit = ureg.Unit(cleaned)
     except Exception:
         try:
-            return ureg.Quantity(cleaned).units
+            unit = ureg.Quantity(cleaned).units
         except Exception:
             raise InputError(f"cannot read the units '{text}'", remedy="use a CF/UDUNITS unit string such as 'K', 'kg m-2 s-1' or 'W m-2'") from None
+    if _angle_power(unit) and unit.dimensionality.get("[temperature]", 0):
+        raise InputError(
+            f"the units '{text}' read as an angle times a temperature",
+            remedy="write 'degC' for degrees Celsius or 'K' for kelvin",
+        )
+    return unit
+
+
+def _angle_power(unit) -> float:
+    return float(registry().get_root_units(unit)[1]._units.get(_ANGLE_ROOT, 0))
+
+
+def _calendar_power(unit) -> float:
+    return float(sum(p for name, p in unit._units.items() if name in _CALENDAR_TIME))
+
+
+# Readable names of the dimensions met in climate files, for messages.
+_KINDS = {
+    "[temperature]": "a temperature",
+    "[mass] / [length] / [time] ** 2": "a pressure",
+    "[length] / [time]": "a speed or depth rate",
+    "[mass] / [length] ** 2 / [time]": "a mass flux",
+    "[mass] / [time] ** 3": "an energy flux",
+    "[mass] / [length] ** 2": "a mass per area",
+    "[length]": "a length",
+    "[length] ** 2": "an area",
+    "[time]": "a time",
+    "[current] * [time]": "an electric charge",
+    "[current]": "an electric current",
+}
+
+
+def quantity_kind(text: str) -> str:
+    """What a unit string measures, in words (``'a temperature'``, ``'an angle'``).
+
+    Raises :class:`InputError` for units :func:`parse_units` refuses.
+    """
+    unit = parse_units(text)
+    if _angle_power(unit):
+        return "an angle" if not unit.dimensionality else f"an angle times {unit.dimensionality}"
+    if not unit.dimensionality:
+        return "a pure number"
+    return _KINDS.get(str(unit.dimensionality), str(unit.dimensionality))
 
 
 @lru_cache(maxsize=256)
 def conversion(source: str, target: str) -> tuple[float, float]:
     """Factors ``(a, b)`` with ``target_value = a * source_value + b``.
 
-    Raises :class:`InputError` when the units describe different quantities.
+    Raises :class:`InputError` when the units describe different quantities (angles
+    count as a dimension of their own), when a month or year would have to be given a
+    length, or when either unit is refused by :func:`parse_units`.
     """
     ureg = registry()
     src, tgt = parse_units(source), parse_units(target)
@@ -62,14 +225,22 @@ def conversion(source: str, target: str) -> tuple[float, float]:
     elif src.dimensionality == depth_rate and tgt.dimensionality == mass_flux:
         density = WATER_DENSITY
         src = src * ureg.Unit("kg m-3")
+    refused = InputError(
+        f"units '{source}' ({quantity_kind(source)}) cannot be converted to '{target}' ({quantity_kind(target)})",
+        remedy="check that both sources hold the same quantity (e.g. a temperature in K or degC)",
+    )
+    if src.dimensionality != tgt.dimensionality or _angle_power(src) != _angle_power(tgt):
+        raise refused
+    if _calendar_power(src) != _calendar_power(tgt):
+        raise InputError(
+            f"units '{source}' cannot be converted to '{target}': a month or a year has no fixed length",
+            remedy="convert with the month lengths of the file's calendar first, or give both in the same units",
+        )
     try:
         zero = ureg.Quantity(0.0, src).to(tgt).magnitude
         one = ureg.Quantity(1.0, src).to(tgt).magnitude
     except Exception:
-        raise InputError(
-            f"units '{source}' cannot be converted to '{target}'",
-            remedy="check that both sources hold the same quantity (e.g. a temperature in K or degC)",
-        ) from None
+        raise refused from None
     a = (one - zero) * density
     b = zero
     return float(a), float(b)
@@ -86,21 +257,26 @@ def convert(da: xr.DataArray, target: str, *, source: str | None = None) -> xr.D
     units = da.attrs.get("units")
     if units is None:
         raise InputError(f"variable '{da.name}' has no units attribute", file=source, remedy="add a CF units attribute")
-    if str(units).strip() == str(target).strip():
-        return da
     try:
+        # also for equal strings: an ambiguous or unreadable unit is refused, not passed on
         a, b = conversion(str(units), str(target))
     except InputError as err:
         raise InputError(err.problem, file=source, remedy=err.remedy) from None
-    out = da * a + b if b != 0.0 else da * a
+    if a == 1.0 and b == 0.0:
+        out = da.copy(deep=False)
+    else:
+        out = da * a + b if b != 0.0 else da * a
     out.attrs = {**da.attrs, "units": target}
     out.name = da.name
     return out
 
 
 def cf_units(text: str) -> str:
-    """A CF-style unit string for display and files (``K``, ``W m-2``, ``kg m-2 s-1``)."""
-    return str(text).strip()
+    """A CF-style unit string for display and files (``K``, ``W m-2``, ``kg m-2 s-1``).
+
+    Known spellings become their :data:`SPELLINGS` form (``deg. C`` -> ``degC``).
+    """
+    return canonical(text)
 
 
 def trend_units(units: str) -> str:
@@ -108,7 +284,7 @@ def trend_units(units: str) -> str:
 
     A trend of a temperature in °C is a temperature difference, which is the kelvin.
     """
-    u = str(units).strip()
+    u = canonical(units)
     if u.lower() in ("degc", "deg_c", "celsius", "degree_celsius", "degrees_celsius", "°c"):
         u = "K"
     return f"{u}/decade"

@@ -93,3 +93,49 @@ def test_convert_incompatible_names_the_source():
 def test_trend_units(units, expected):
     # a trend of a Celsius temperature is a temperature difference, expressed in kelvin (SI brochure)
     assert trend_units(units) == expected
+
+
+# ---------------------------------------------------------------------------- spellings
+
+
+@pytest.mark.parametrize(("text", "form"), [("deg. C", "degC"), ("deg  C", "degC"), ("mb", "hPa"), ("kg/m2/s", "kg m-2 s-1"), ("W/m2", "W m-2"), ("ms-1", "m s-1"), ("banana", "banana")])
+def test_canonical_forms(text, form):
+    from evaluation.units import canonical, cf_units
+
+    assert canonical(text) == form == cf_units(text)
+
+
+@pytest.mark.parametrize(("text", "needle"), [("C", "coulomb"), ("F", "farad"), ("deg", "angle"), (" C ", "coulomb")])
+def test_ambiguous_spellings_are_refused_with_the_reason(text, needle):
+    with pytest.raises(InputError) as err:
+        parse_units(text)
+    assert needle in err.value.message and "ambiguous" in err.value.message
+
+
+def test_an_angle_times_a_temperature_is_refused():
+    # outside the table, e.g. 'degree kelvin': pint reads degree * kelvin (×π/180)
+    with pytest.raises(InputError, match="angle times a temperature"):
+        parse_units("degree kelvin")
+
+
+def test_convert_refuses_an_ambiguous_unit_even_when_both_sides_say_it():
+    with pytest.raises(InputError, match="ambiguous") as err:
+        convert(_field([1.0], "C"), "C", source="run-c")
+    assert err.value.file == "run-c"
+
+
+def test_convert_of_equal_units_keeps_values_and_sets_the_canonical_label():
+    out = convert(_field([1.5, np.nan], "deg. C"), "degC")
+    np.testing.assert_array_equal(out.values, [1.5, np.nan])
+    assert out.attrs["units"] == "degC" and out.name == "v"
+
+
+def test_refusal_names_both_quantities():
+    with pytest.raises(InputError) as err:
+        conversion("degrees", "K")
+    assert "an angle" in err.value.message and "a temperature" in err.value.message
+
+
+def test_trend_units_of_a_celsius_spelling():
+    # a trend of a Celsius temperature is a temperature difference: kelvin (SI brochure)
+    assert trend_units("deg. C") == "K/decade"

@@ -131,3 +131,148 @@ def test_cli_converts_runs_into_the_reference_units(nc_file, grid_factory, times
     assert v["mean"] == pytest.approx(run_k, rel=1e-12)
     assert v["bias"] == pytest.approx(run_k - ref_k, rel=1e-9)
     assert set(table.loc[table["metric"] == "trend", "units"]) == {"K/decade"}
+
+
+# ---------------------------------------------------------------------------- spellings in real files
+
+# Each spelling files carry, with what it means written as a pint expression by hand
+# (not taken from evaluation.units), and the SI unit of its quantity.  Source: pint's
+# default registry for the arithmetic; the meanings are common practice in climate files.
+KELVIN, PASCAL, MS, FLUX, WM2, ONE = "kelvin", "pascal", "meter / second", "kilogram / meter ** 2 / second", "watt / meter ** 2", "dimensionless"
+MEANINGS = {
+    "deg C": ("degree_Celsius", KELVIN), "deg. C": ("degree_Celsius", KELVIN), "degrees C": ("degree_Celsius", KELVIN),
+    "degree_C": ("degree_Celsius", KELVIN), "degC": ("degree_Celsius", KELVIN), "Celsius": ("degree_Celsius", KELVIN),
+    "degrees Celsius": ("degree_Celsius", KELVIN), "°C": ("degree_Celsius", KELVIN), "deg_C": ("degree_Celsius", KELVIN),
+    "deg K": ("kelvin", KELVIN), "degrees K": ("kelvin", KELVIN), "K": ("kelvin", KELVIN), "kelvin": ("kelvin", KELVIN),
+    "degK": ("kelvin", KELVIN),
+    "degF": ("degree_Fahrenheit", KELVIN), "deg F": ("degree_Fahrenheit", KELVIN), "Fahrenheit": ("degree_Fahrenheit", KELVIN),
+    "mb": ("millibar", PASCAL), "mbar": ("millibar", PASCAL), "millibars": ("millibar", PASCAL), "hPa": ("hectopascal", PASCAL),
+    "Pa": ("pascal", PASCAL), "N m-2": ("newton / meter ** 2", PASCAL),
+    "mm/day": ("millimeter / day", MS), "mm d-1": ("millimeter / day", MS), "mm day-1": ("millimeter / day", MS),
+    "mm/s": ("millimeter / second", MS), "mm/h": ("millimeter / hour", MS),
+    "kg/m2/s": ("kilogram / meter ** 2 / second", FLUX), "kg m-2 s-1": ("kilogram / meter ** 2 / second", FLUX),
+    "kg m**-2 s**-1": ("kilogram / meter ** 2 / second", FLUX),
+    "W/m^2": ("watt / meter ** 2", WM2), "W/m2": ("watt / meter ** 2", WM2), "W m**-2": ("watt / meter ** 2", WM2),
+    "W m-2": ("watt / meter ** 2", WM2),
+    "fraction": ("dimensionless", ONE), "percent": ("percent", ONE), "%": ("percent", ONE), "1": ("dimensionless", ONE),
+    "g/kg": ("gram / kilogram", ONE), "kg/kg": ("kilogram / kilogram", ONE), "g kg-1": ("gram / kilogram", ONE),
+    "kg kg-1": ("kilogram / kilogram", ONE),
+    "m/s": ("meter / second", MS), "ms-1": ("meter / second", MS), "m s-1": ("meter / second", MS), "m s**-1": ("meter / second", MS),
+    "gpm": ("meter", "meter"), "m": ("meter", "meter"),
+}
+SI_CF = {KELVIN: "K", PASCAL: "Pa", MS: "m s-1", FLUX: "kg m-2 s-1", WM2: "W m-2", ONE: "1", "meter": "m"}
+
+
+@pytest.mark.parametrize("spelling", sorted(MEANINGS))
+def test_every_spelling_converts_as_its_meaning_says(spelling):
+    # Source: pint's default registry applied to the meaning written by hand; rtol 1e-12.
+    meaning, si = MEANINGS[spelling]
+    a, b = conversion(spelling, SI_CF[si])
+    np.testing.assert_allclose(a * X + b, UREG.Quantity(X, meaning).to(si).magnitude, rtol=1e-12, atol=1e-9)
+
+
+@pytest.mark.parametrize("spelling", sorted(MEANINGS))
+def test_no_spelling_changes_a_value_on_its_own(spelling):
+    # Common practice: a spelling of a unit is the same unit, so reading it in its
+    # canonical form is the identity (never 180/π or π/180 from a stray angle).
+    from evaluation.units import canonical
+
+    assert conversion(spelling, canonical(spelling)) == (1.0, 0.0)
+
+
+def test_handbook_values_through_the_spellings():
+    # SI brochure (BIPM, 9th ed.): 0 °C = 273.15 K; 32 °F = 0 °C = 273.15 K (value from
+    # memory); 1 mbar = 1 hPa = 100 Pa (SI prefixes); 1 kg m-2 s-1 of water = 86 400
+    # mm/day (common practice, 1000 kg m-3).
+    def value(x, source, target):
+        a, b = conversion(source, target)
+        return a * x + b
+
+    for celsius in ("deg C", "deg. C", "degrees C", "degree_C", "degC", "Celsius"):
+        assert value(0.0, celsius, "K") == pytest.approx(273.15, abs=1e-12)
+        assert value(273.15, "K", celsius) == pytest.approx(0.0, abs=1e-12)
+    for kelvin in ("deg K", "degrees K", "K", "kelvin"):
+        assert value(273.15, kelvin, "K") == 273.15
+    assert value(32.0, "degF", "K") == pytest.approx(273.15, abs=1e-12)
+    for mb in ("mb", "mbar", "millibars", "hPa"):
+        assert value(1.0, mb, "Pa") == pytest.approx(100.0, rel=1e-15)
+        assert value(1.0, mb, "hPa") == 1.0
+    for flux in ("kg/m2/s", "kg m-2 s-1"):
+        for depth in ("mm/day", "mm d-1"):
+            assert value(1.0, flux, depth) == pytest.approx(86400.0, rel=1e-15)
+    for ratio, pct in (("fraction", "percent"), ("1", "%")):
+        assert value(0.25, ratio, pct) == pytest.approx(25.0, rel=1e-15)
+
+
+# Spellings that pint and UDUNITS read as something else than the files mean.  Source:
+# pint's default registry and UDUNITS-2 (through cf_units) for what they read.
+def test_pint_and_udunits_misread_these_spellings():
+    cf_units = pytest.importorskip("cf_units")
+    # pint: 'deg C' is degree * coulomb, 'degrees K' is degree * kelvin (×π/180), 'mb' the millibarn
+    assert UREG.Unit("deg C").dimensionality == UREG.Unit("coulomb").dimensionality
+    assert UREG.Quantity(1.0, "degrees * kelvin").to("kelvin").magnitude == pytest.approx(np.pi / 180.0)
+    assert UREG.Unit("mb") == UREG.Unit("millibarn")
+    # UDUNITS-2: 'degrees K' is 0.01745 K, 'mb' an area, 'ms-1' a frequency (per millisecond)
+    assert cf_units.Unit("degrees K").convert(1.0, "K") == pytest.approx(np.pi / 180.0)
+    assert not cf_units.Unit("mb").is_convertible("Pa") and cf_units.Unit("mb").is_convertible("m2")
+    assert cf_units.Unit("ms-1").is_convertible("s-1")
+    # gridscore reads them as the files mean (checked against pint above)
+    assert conversion("degrees K", "K") == (1.0, 0.0)
+    assert conversion("mb", "Pa") == pytest.approx((100.0, 0.0))
+    assert conversion("ms-1", "m s-1") == (1.0, 0.0)
+
+
+def test_canonical_forms_mean_the_same_in_udunits():
+    # Source: UDUNITS-2 through cf_units: every form the table maps to is read by UDUNITS
+    # with the factor and offset pint gives; rtol 1e-12.
+    cf_units = pytest.importorskip("cf_units")
+    from evaluation.units import SPELLINGS
+
+    for form in sorted(set(SPELLINGS.values())):
+        udunits = cf_units.Unit(form)
+        si = next(t for t in ("K", "Pa", "m s-1", "kg m-2 s-1", "W m-2", "1", "m", "kg m-2", "m2 s-2") if udunits.is_convertible(t))
+        a, b = conversion(form, si)
+        np.testing.assert_allclose(a * X + b, udunits.convert(X, si), rtol=1e-12, atol=1e-9, err_msg=form)
+
+
+TRAPS = [
+    ("deg", "K"),          # an angle, not a temperature
+    ("degrees", "K"),      # an angle, not a temperature
+    ("degrees", "1"),      # an angle is not a pure number (pint: ×π/180)
+    ("radian", "%"),
+    ("C", "K"),            # the coulomb in UDUNITS and pint
+    ("F", "K"),            # the farad
+    ("PA", "Pa"),          # petaampere: symbols are case-sensitive
+    ("mm/month", "mm day-1"),   # a month has no fixed length
+    ("kg m-2 yr-1", "kg m-2 s-1"),
+    ("mb", "m2"),          # the millibar is a pressure, not an area
+    ("ms-1", "s-1"),
+    ("mon", "s"),
+]
+
+
+@pytest.mark.parametrize(("source", "target"), TRAPS)
+def test_traps_are_refused_never_converted(source, target):
+    # Source: pint's dimensional analysis treats these pairs as convertible or reads them
+    # as other quantities; the files mean different quantities (common practice).
+    with pytest.raises(InputError) as err:
+        conversion(source, target)
+    assert source in err.value.message
+
+
+def test_a_reference_in_deg_dot_c_and_a_run_in_kelvin_through_the_cli(nc_file, grid_factory, times_factory, score_cli):
+    # Source: pint's default registry, 288.15 K = 15 °C (SI brochure); uniform constant
+    # fields, so the mean is the field value; rtol 1e-12.  pint alone reads 'deg. C' as
+    # degree * coulomb and an earlier reading gave 16 510 (×180/π).
+    grid = grid_factory(30.0, 60.0)
+    times = times_factory(2001, 2002, "standard")
+    shape = (len(times), grid["lat"].size, grid["lon"].size)
+    ref = nc_file("ref_c.nc", {"tas": (np.full(shape, 14.0), {"units": "deg. C", "standard_name": "air_temperature"})}, grid=grid, times=times)
+    run = nc_file("run_k.nc", {"tas": (np.full(shape, 288.15), {"units": "K", "standard_name": "air_temperature"})}, grid=grid, times=times)
+    table = score_cli(["--reference", f"obs={ref}", "--model", f"run-k={run}", "--variable", "tas"])
+    v = dict(zip(table["metric"], table["value"], strict=True))
+    run_c = UREG.Quantity(288.15, "kelvin").to("degree_Celsius").magnitude
+    assert v["mean"] == pytest.approx(run_c, rel=1e-12)
+    assert v["ref_mean"] == pytest.approx(14.0, rel=1e-12)
+    assert v["bias"] == pytest.approx(run_c - 14.0, rel=1e-9)
+    assert set(table.loc[table["metric"] == "mean", "units"]) == {"degC"}
