@@ -27,6 +27,7 @@ from dataclasses import dataclass
 import numpy as np
 import xarray as xr
 
+from . import timecoding
 from .errors import InputError
 from .grid import cell_area, infer_bounds
 
@@ -43,22 +44,14 @@ __all__ = [
     "check_files",
 ]
 
-CF_CALENDARS = (
-    "standard",
-    "gregorian",
-    "proleptic_gregorian",
-    "noleap",
-    "365_day",
-    "all_leap",
-    "366_day",
-    "360_day",
-    "julian",
-)
+CF_CALENDARS = timecoding.CF_CALENDARS
 
 # CF criteria as plain tables (cf-conventions 1.10, sections 4.1-4.4).
 _LAT_UNITS = {"degrees_north", "degree_north", "degree_n", "degrees_n", "degreen", "degreesn"}
 _LON_UNITS = {"degrees_east", "degree_east", "degree_e", "degrees_e", "degreee", "degreese"}
-_TIME_UNITS = re.compile(r"^\s*\w+\s+since\s+", re.IGNORECASE)
+# "UNIT since DATE", or a bare time unit (origin in a separate attribute, or none at all:
+# such a time axis must still be found so that it is refused for its true reason)
+_TIME_UNITS = re.compile(r"^\s*(\w+\s+since\s+|(days?|hours?|months?|mon|years?)\s*$)", re.IGNORECASE)
 _AXIS_CRITERIA = {
     "lat": {"standard_name": {"latitude"}, "axis": "Y", "units": _LAT_UNITS},
     "lon": {"standard_name": {"longitude"}, "axis": "X", "units": _LON_UNITS},
@@ -174,6 +167,7 @@ def _listing(path: str) -> dict[str, dict[str, str]]:
                         "long_name": str(var.attrs.get("long_name", "")),
                         "has_time": str(any(find_axis(ds, "time") == d for d in var.dims)),
                         "cells": str(int(ds.sizes[lat]) * int(ds.sizes[lon])),
+                        **_level_listing(ds, var, (lat, lon, find_axis(ds, "time"))),
                     }
     except InputError:
         raise
@@ -181,6 +175,19 @@ def _listing(path: str) -> dict[str, dict[str, str]]:
         raise _unreadable(path, exc) from None
     _LISTING_CACHE[ident] = out
     return out
+
+
+def _level_listing(ds: xr.Dataset, var: xr.DataArray, horizontal_and_time: tuple) -> dict[str, str]:
+    """``levels`` (``1000, 850, 500 hPa``; empty without levels) and ``level_problem``
+    (why the vertical axis cannot be used; empty when it can) of a listed variable."""
+    from .levels import vertical_block
+
+    extra = [d for d in var.dims if d not in horizontal_and_time]
+    if not extra:
+        return {"levels": "", "level_problem": ""}
+    action, axis, text = vertical_block(ds, var, extra)
+    levels = axis.listing() if axis is not None and action != "squeeze" else ""
+    return {"levels": levels, "level_problem": text if action == "refuse" else ""}
 
 
 def _check_complete(path: str) -> None:
@@ -292,23 +299,26 @@ def open_source(
             )
     else:
         files_to_open = files
-    if chunks is None:
-        cells = max([int(m.get("cells", 0)) for p in files_to_open for m in _listing(p).values()] + [1])
-        chunks = {"time": _time_chunk(cells)}
-    coder = xr.coders.CFDatetimeCoder(use_cftime=True)
     timed = [p for p in files_to_open if any(m["has_time"] == "True" for m in _listing(p).values())]
     untimed = [p for p in files_to_open if p not in timed]
+    if chunks is None:
+        cells = max([int(m.get("cells", 0)) for p in files_to_open for m in _listing(p).values()] + [1])
+        chunks = {"time": _time_chunk(cells, _steps_per_month(timed[0]) if timed else 1.0)}
+    # times are decoded per file by evaluation.timecoding (calendar spellings, reference
+    # dates, months since, separate time origins, bounds midpoints), not by xarray
+    raw = {"decode_times": False, "decode_timedelta": False}
     try:
         with _OPEN_LOCK:
             parts = []
             if timed:
                 if len(timed) == 1:
-                    parts.append(xr.open_dataset(timed[0], decode_times=coder, chunks=chunks))
+                    parts.append(timecoding.decode(xr.open_dataset(timed[0], chunks=chunks, **raw), file=timed[0]))
                 else:
                     parts.append(
                         xr.open_mfdataset(
                             timed,
-                            decode_times=coder,
+                            **raw,
+                            preprocess=timecoding.decode,
                             chunks=chunks,
                             combine="by_coords",
                             data_vars="minimal",
@@ -319,14 +329,20 @@ def open_source(
                         )
                     )
             for p in untimed:
-                parts.append(xr.open_dataset(p, decode_times=coder, chunks={}))
+                parts.append(timecoding.decode(xr.open_dataset(p, chunks={}, **raw), file=p))
     except InputError:
         raise
     except Exception as exc:
         raise _classify_open_error(files_to_open, exc) from None
     ds = parts[0] if len(parts) == 1 else xr.merge(parts, compat="override", join="override", combine_attrs="drop_conflicts")
     ds.attrs.setdefault("gridscore_files", "\n".join(files_to_open))
-    return normalise(ds, source=source or (files_to_open[0] if len(files_to_open) == 1 else None), files=files_to_open)
+    out = normalise(ds, source=source or (files_to_open[0] if len(files_to_open) == 1 else None), files=files_to_open)
+    return timecoding.canonical(out)
+
+
+def _steps_per_month(path: str) -> float:
+    with _OPEN_LOCK, xr.open_dataset(path, decode_times=False, decode_timedelta=False) as raw:
+        return timecoding.steps_per_month(raw)
 
 
 def _require_horizontal_axes(path: str) -> None:
@@ -341,26 +357,37 @@ def _require_horizontal_axes(path: str) -> None:
         )
 
 
-def _time_chunk(cells: int) -> int:
-    """Time steps per dask chunk: whole years, about GRIDSCORE_CHUNK_MB of float64."""
+def _time_chunk(cells: int, steps_per_month: float = 1.0) -> int:
+    """Time steps per dask chunk, about GRIDSCORE_CHUNK_MB of float64.
+
+    Whole years of steps when a year fits in the budget, else whole months (daily or
+    6-hourly data at high resolution); ``steps_per_month`` is 1 for monthly data.
+    A chunk boundary inside a month (months of unequal length) costs nothing but
+    a second read: the monthly means are group sums across chunks.
+    """
     budget = float(os.environ.get("GRIDSCORE_CHUNK_MB", 64)) * 2**20
-    years = int(budget // (12 * max(cells, 1) * 8))
-    return 12 * max(1, years)
+    per_month = max(1, int(round(steps_per_month)))
+    months = int(budget // (per_month * max(cells, 1) * 8))
+    if months >= 12:
+        return 12 * per_month * (months // 12)
+    return per_month * max(1, months)
 
 
 def _classify_open_error(files: Sequence[str], exc: BaseException) -> InputError:
-    text = " ".join(str(exc).split())
+    """A reader or combine failure as one untruncated line naming its real cause.
+
+    Time decoding problems never arrive here: :mod:`evaluation.timecoding` raises them
+    as :class:`InputError` with the attribute to change.
+    """
+    text = " ".join(str(exc).split()) or type(exc).__name__
     where = files[0] if len(files) == 1 else f"{files[0]} (+{len(files) - 1} more)"
-    if "calendar" in text.lower():
+    lowered = text.lower()
+    if len(files) > 1 and any(word in lowered for word in ("monotonic", "concat", "combine", "overlap")):
         return InputError(
-            f"unknown or unsupported calendar ({text[:120]})",
+            f"the files do not fit together along time or space ({text})",
             file=where,
-            remedy=f"set the time variable's calendar attribute to one of {', '.join(CF_CALENDARS)}",
+            remedy="give files of one source with the same grid and non-overlapping times",
         )
-    if "unable to decode time" in text.lower() or "since" in text.lower():
-        return InputError(f"cannot decode the time axis ({text[:120]})", file=where, remedy="give time CF units such as 'days since 1850-01-01'")
-    if len(files) > 1 and ("monotonic" in text.lower() or "concat" in text.lower() or "combine" in text.lower()):
-        return InputError(f"the files do not fit together ({text[:120]})", file=where, remedy="give files of one source with the same grid and non-overlapping times")
     return _unreadable(where, exc)
 
 
@@ -401,15 +428,8 @@ def normalise(ds: xr.Dataset, *, source: str | os.PathLike[str] | None = None, f
     if time_name is not None:
         rename[time_name] = "time"
     out = out.rename({k: v for k, v in rename.items() if k != v})
-    for v in out.data_vars:
-        extra = [d for d in out[v].dims if d not in ("time", "lat", "lon")]
-        if extra:
-            # a single level (e.g. height = 2 m) is squeezed; several levels are not ours to pick
-            if all(out.sizes[d] == 1 for d in extra):
-                out[v] = out[v].squeeze(extra, drop=True)
-            else:
-                out = out.drop_vars(v)
-    leftover = [d for d in out.dims if d not in ("time", "lat", "lon")]
+    out, refused, vertical_dims = _vertical(ds, out)
+    leftover = [d for d in out.dims if d not in ("time", "lat", "lon", *vertical_dims)]
     if leftover:
         out = out.drop_dims(leftover, errors="ignore")
 
@@ -438,7 +458,52 @@ def normalise(ds: xr.Dataset, *, source: str | os.PathLike[str] | None = None, f
     if "time" in out.dims:
         _check_time(out, where)
     out.attrs = dict(ds.attrs)
+    if refused:
+        out.attrs[REFUSED_ATTR] = refused
     return out
+
+
+#: Dataset attribute of a normalised dataset: variable -> why it cannot be scored.
+REFUSED_ATTR = "gridscore_refused"
+
+
+def _vertical(ds: xr.Dataset, out: xr.Dataset) -> tuple[xr.Dataset, dict[str, str], list[str]]:
+    """Vertical axes of the kept variables (see :mod:`evaluation.levels`).
+
+    A single level is squeezed (its text kept in the variable's attribute
+    ``gridscore_single_level``); one vertical axis of several levels becomes the
+    dimension ``level`` (``level_<name>`` for each axis when variables of one file use
+    different axes, renamed to ``level`` by :func:`get_variable`); anything else is
+    dropped and its reason recorded, so that asking for it names the true problem.
+    """
+    from .levels import LEVEL_DIM, level_coordinate, vertical_block
+
+    refused: dict[str, str] = {}
+    kept: dict[str, object] = {}
+    for v in list(out.data_vars):
+        extra = [d for d in out[v].dims if d not in ("time", "lat", "lon")]
+        if not extra:
+            continue
+        action, axis, text = vertical_block(ds, out[v], extra)
+        if action == "squeeze":
+            out[v] = out[v].squeeze(extra, drop=True)
+            if text:
+                out[v].attrs["gridscore_single_level"] = text
+        elif action == "keep":
+            kept[axis.name] = axis  # type: ignore[union-attr]
+        else:
+            levels = f" (levels {axis.listing()})" if axis is not None else ""
+            refused[str(v)] = f"variable '{v}' cannot be scored: {text}{levels}"
+            out = out.drop_vars(v)
+    dims = []
+    for name, axis in kept.items():
+        dim = LEVEL_DIM if len(kept) == 1 else f"{LEVEL_DIM}_{name}"
+        if name != dim:
+            out = out.rename_dims({name: dim})
+        coord = level_coordinate(axis, ds)  # type: ignore[arg-type]
+        out = out.assign_coords({dim: (dim, coord.values, coord.attrs)})
+        dims.append(dim)
+    return out, refused, dims
 
 
 def _cell_area_for(ds: xr.Dataset, out: xr.Dataset, keep: list, lat_name: str, lon_name: str, order: np.ndarray, where) -> xr.DataArray:
@@ -461,23 +526,26 @@ def _cell_area_for(ds: xr.Dataset, out: xr.Dataset, keep: list, lat_name: str, l
 
 
 def _check_time(ds: xr.Dataset, where) -> None:
+    """Refuse a decoded time axis that is not increasing, or monthly data with two steps in a month."""
     t = ds["time"]
-    calendar = t.encoding.get("calendar", t.attrs.get("calendar", "standard"))
-    if str(calendar).lower() not in CF_CALENDARS:
-        raise InputError(f"unknown calendar '{calendar}'", file=where, remedy=f"use one of {', '.join(CF_CALENDARS)}")
     if t.size and not hasattr(t.values[0], "calendar"):
         raise InputError("the time axis did not decode to dates", file=where, remedy="give the time variable CF units such as 'days since 1850-01-01'")
-    if t.size > 2:
-        months = np.array([v.year * 12 + v.month for v in t.values])
-        steps = np.diff(months)
-        if np.any(steps == 0):
+    if t.size > 1:
+        values = t.values
+        if any(b <= a for a, b in zip(values[:-1], values[1:], strict=True)):
             raise InputError(
-                "the data are not monthly means (several time steps in one month)",
+                "the time axis is not increasing (steps out of order or repeated)",
                 file=where,
-                remedy="give monthly means (e.g. average to months first, e.g. xarray's resample(time='MS').mean())",
+                remedy="sort the time axis, and give files whose times do not overlap",
             )
-        if np.any(steps < 0):
-            raise InputError("the time axis is not increasing", file=where, remedy="sort the files or the time axis")
+        if timecoding.frequency(t) == "monthly":
+            months = np.array([v.year * 12 + v.month for v in values])
+            if np.any(np.diff(months) == 0):
+                raise InputError(
+                    "two time steps fall in one month of data that are otherwise monthly",
+                    file=where,
+                    remedy="give one value per month, or add time:bounds so that each step's interval is known",
+                )
 
 
 def get_variable(ds: xr.Dataset, name: str, *, source: str | None = None) -> xr.DataArray:
@@ -487,10 +555,17 @@ def get_variable(ds: xr.Dataset, name: str, *, source: str | None = None) -> xr.
     files do not store it.  Raises :class:`InputError` listing the variables found.
     """
     if name in ds.data_vars:
-        return ds[name]
+        return _one_level_dim(ds[name])
     for vname, var in ds.data_vars.items():
         if _matches(var.variable, str(vname), name):
-            return var.rename(name)
+            return _one_level_dim(var.rename(name))
+    refused = ds.attrs.get(REFUSED_ATTR, {})
+    if name in refused:
+        raise InputError(
+            refused[name],
+            file=source or ds.attrs.get("gridscore_files", "").split("\n")[0] or None,
+            remedy="give the variable on pressure, height or depth levels with CF attributes (axis, positive, units)",
+        )
     try:
         from .derived import derive
     except ImportError:  # the registry is optional for the core
@@ -505,6 +580,12 @@ def get_variable(ds: xr.Dataset, name: str, *, source: str | None = None) -> xr.
         file=source or ds.attrs.get("gridscore_files", "").split("\n")[0] or None,
         remedy="choose a variable the files hold",
     )
+
+
+def _one_level_dim(da: xr.DataArray) -> xr.DataArray:
+    """A variable's vertical dimension under its canonical name ``level``."""
+    named = [d for d in da.dims if str(d).startswith("level_") and d in da.coords and "level_kind" in da[d].attrs]
+    return da.rename({named[0]: "level"}) if named else da
 
 
 def check_files(paths: Sequence[str]) -> tuple[list[str], list[str]]:

@@ -207,9 +207,10 @@ def test_time_without_units_is_an_input_error(tmp_path):
     assert err.value.remedy
 
 
-def test_daily_data_are_refused(cf_file):
-    path = cf_file("daily.nc", months=[(2000, 1)] * 3, dlat=30.0)  # three steps within one month
-    with pytest.raises(InputError, match="not monthly"):
+def test_repeated_time_steps_are_refused(cf_file):
+    # three steps with the same stamp: no frequency can place them (daily data are read, see test_timecoding)
+    path = cf_file("repeated.nc", months=[(2000, 1)] * 3, dlat=30.0)
+    with pytest.raises(InputError, match="not increasing"):
         io.open_source(str(path))
 
 
