@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import argparse
 import contextlib
+import dataclasses
 import glob
 import os
 import sys
@@ -32,6 +33,8 @@ def _source_arg(text: str, *, role: str, default_name: str | None = None):
     from evaluation.scoring import Source
 
     name, sep, path = text.partition("=")
+    if sep and default_name is not None and _names_files(text):
+        sep = ""  # an unnamed path that itself holds '=' (a folder 'a=b')
     if not sep:
         if default_name is None:
             raise InputError(f"'{text}' is not NAME=PATH", remedy="write --model NAME=PATH, e.g. --model run-a='runs/a/*.nc'")
@@ -39,8 +42,38 @@ def _source_arg(text: str, *, role: str, default_name: str | None = None):
     name, path = name.strip(), path.strip()
     if not name or not path:
         raise InputError(f"'{text}' is not NAME=PATH", remedy="write --model NAME=PATH, e.g. --model run-a='runs/a/*.nc'")
-    paths = tuple(p for p in path.split(",") if p) if not glob.has_magic(path) and "," in path else (path,)
+    # comma-separated files, unless the whole text names files (a folder 'b,c')
+    paths = tuple(p for p in path.split(",") if p) if "," in path and not _names_files(path) else (path,)
     return Source(name=name, role=role, paths=paths)
+
+
+def _names_files(text: str) -> bool:
+    """Whether ``text`` as a whole is an existing file or a glob matching one."""
+    text = os.path.expanduser(text.strip())
+    return bool(glob.glob(text)) if glob.has_magic(text) else os.path.isfile(text)
+
+
+def _with_names_in_files(sources: list, pairs: Sequence[str], *, variable: str) -> list:
+    """Sources with ``--variable-in NAME=STORED`` applied: NAME's files hold ``variable`` as STORED.
+
+    NAME is split off at the first '=' (source names never hold one); STORED is taken
+    verbatim, so a name in the files may hold any character.
+    """
+    from evaluation.errors import InputError
+
+    stored: dict[str, str] = {}
+    for text in pairs:
+        name, sep, in_files = text.partition("=")
+        name, in_files = name.strip(), in_files.strip()
+        known = [s.name for s in sources]
+        if not sep or not name or not in_files:
+            raise InputError(f"'{text}' is not NAME=VARIABLE", remedy=f"write --variable-in NAME=VARIABLE, e.g. --variable-in {known[-1]}=TS")
+        if name not in known:
+            raise InputError(f"--variable-in names no source '{name}'", remedy=f"use one of {', '.join(known)}")
+        if stored.get(name, in_files) != in_files:
+            raise InputError(f"--variable-in gives two names for '{name}'", remedy="give one --variable-in per source")
+        stored[name] = in_files
+    return [dataclasses.replace(s, variables={**s.variables, variable: stored[s.name]}) if s.name in stored else s for s in sources]
 
 
 def _name_from_path(path: str) -> str:
@@ -91,14 +124,15 @@ def _cmd_score(args) -> int:
 
     reference = _source_arg(args.reference, role="reference", default_name="reference")
     models = [_source_arg(m, role="model") for m in args.model]
+    reference, *models = _with_names_in_files([reference, *models], args.variable_in or [], variable=args.variable)
     if any(m.name == reference.name for m in models):
-        reference = type(reference)(name=f"{reference.name} (reference)", role="reference", paths=reference.paths)
+        reference = dataclasses.replace(reference, name=f"{reference.name} (reference)")
     regions = args.region or ["global"]
     seasons = args.season or ["ANN"]
     with _scheduler(args), _progress(True):
         table, provenance = score_table(
             reference=reference, models=models, variable=args.variable, regions=regions, seasons=seasons,
-            period=args.period, regrid=args.regrid,
+            period=args.period, regrid=args.regrid, level=args.level,
         )
     period = table["period"].iloc[0] if len(table) else args.period
     units = table.loc[table["metric"] == "mean", "units"].iloc[0] if len(table) else ""
@@ -106,7 +140,8 @@ def _cmd_score(args) -> int:
         write_table(table, args.output, provenance=provenance)
         print(f"wrote {len(table)} rows to {args.output}", file=sys.stderr)
     else:
-        _print_wide(table, title=f"{args.variable} against {reference.name}, {period} ({units})")
+        level = f" at {table['level'].iloc[0]}" if len(table) and table["level"].iloc[0] else ""
+        _print_wide(table, title=f"{args.variable}{level} against {reference.name}, {period} ({units})")
     return EXIT_OK
 
 
@@ -205,6 +240,8 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--reference", required=True, metavar="PATH", help="reference file, quoted glob, or NAME=PATH")
     p.add_argument("--model", required=True, action="append", metavar="NAME=PATH", help="a run (repeatable); PATH may be a quoted glob")
     p.add_argument("--variable", required=True, metavar="VAR", help="variable name or CF standard_name")
+    p.add_argument("--level", metavar="VALUE+UNITS", help="one vertical level of a variable on levels, e.g. 850hPa, 85000Pa, 2m (interpolated where a source lacks it)")
+    p.add_argument("--variable-in", action="append", metavar="NAME=VARIABLE", help="source NAME stores the variable under another name, e.g. run-a=TS (repeatable)")
     p.add_argument("--region", action="append", metavar="ID", help="global tropics nh-extratropics sh-extratropics arctic antarctic land ocean box:S,N,W,E (repeatable)")
     p.add_argument("--season", action="append", metavar="S", help="ANN DJF MAM JJA SON JAN … DEC (repeatable)")
     p.add_argument("--period", metavar="YYYY-YYYY", help="inclusive years; default 1991-2020 when covered, else the common years")

@@ -47,7 +47,7 @@ __all__ = [
 ]
 
 #: The identifying columns of a score: one wide-table row per combination.
-KEY_COLUMNS: tuple[str, ...] = ("model", "reference", "variable", "region", "season", "period")
+KEY_COLUMNS: tuple[str, ...] = ("model", "reference", "variable", "level", "region", "season", "period")
 #: The contract columns of the tidy score table, in order.
 TIDY_COLUMNS: tuple[str, ...] = (*KEY_COLUMNS, "metric", "value", "units")
 #: The metric keys in registry order (evaluation.metrics.METRICS), the order the wide
@@ -237,7 +237,7 @@ def _metric_order(metrics: Iterable[str]) -> list[str]:
 
 
 def wide_table(tidy: pd.DataFrame) -> pd.DataFrame:
-    """One row per model x reference x variable x region x season x period, one column per metric.
+    """One row per model x reference x variable x level x region x season x period, one column per metric.
 
     Parameters
     ----------
@@ -270,7 +270,7 @@ def wide_table(tidy: pd.DataFrame) -> pd.DataFrame:
         wide = table.pivot(index=keys, columns="metric", values="value")
     except ValueError as error:  # pandas refuses duplicate index/column pairs
         raise InputError(
-            "the score table holds the same model, reference, variable, region, season, "
+            "the score table holds the same model, reference, variable, level, region, season, "
             "period and metric more than once",
             remedy="drop the duplicate rows before exporting",
         ) from error

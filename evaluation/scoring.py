@@ -15,7 +15,7 @@ less.
 from __future__ import annotations
 
 import threading
-from collections.abc import Iterable, Sequence
+from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass, field
 
 import dask
@@ -27,6 +27,7 @@ from . import io
 from .cache import Cache, default_cache
 from .errors import InputError
 from .export import TIDY_COLUMNS
+from .levels import LEVEL_DIM, interpolate_levels, parse_level, section_scores, section_weights, select_level
 from .grid import REGRID_METHODS, grid_of, regrid, same_grid
 from .metrics import METRICS, pattern_stats, relative_errors, weighted_mean, zonal_mean
 from .regions import parse_region, region_weights
@@ -40,7 +41,8 @@ from .timeaxis import (
     parse_season,
     season_means,
 )
-from .units import convert, trend_units
+from .timecoding import COMPLETENESS_RULE, frequency
+from .units import cf_units, convert, trend_units
 
 __all__ = ["Source", "Comparison", "TIDY_COLUMNS", "score_table", "preferred_units"]
 
@@ -66,12 +68,20 @@ class Source:
     paths: tuple[str, ...]
     colour: str | None = None
     description: str = ""
+    # compared variable -> the name this source's files store it under ({"tas": "TS"});
+    # left out of the hash so that a Source stays usable as a key
+    variables: Mapping[str, str] = field(default_factory=dict, hash=False)
 
     def __post_init__(self) -> None:
         if isinstance(self.paths, str):
             object.__setattr__(self, "paths", (self.paths,))
         else:
             object.__setattr__(self, "paths", tuple(str(p) for p in self.paths))
+        object.__setattr__(self, "variables", {str(k): str(v) for k, v in dict(self.variables).items()})
+
+    def name_in_files(self, variable: str) -> str:
+        """The name (or standard_name) under which this source's files hold ``variable``."""
+        return self.variables.get(variable, variable)
 
 
 @dataclass
@@ -81,6 +91,7 @@ class _Prepared:
     files: list[str]
     seasons: dict[str, xr.DataArray] = field(default_factory=dict)  # on target grid, in memory
     cycle: xr.DataArray | None = None  # (month, lat, lon) on target grid
+    kind: str = "monthly"  # monthly | annual | climatology (evaluation.timecoding.frequency)
 
 
 class Comparison:
@@ -123,6 +134,7 @@ class Comparison:
         period: Period | str | None = None,
         regrid: str = "conservative",
         units: str | None = None,
+        level: str | None = None,
         cache: Cache | None | bool = True,
     ) -> None:
         if not models:
@@ -142,45 +154,82 @@ class Comparison:
         self._grids: dict[str, xr.Dataset] = {}
         self._cache = default_cache() if cache is True else (cache or None)
 
+        # the level asked for (``850hPa``); ``self.level`` is its canonical text ("850 hPa")
+        self._level_request = parse_level(level) if level else None
+        self._columns: dict[str, xr.DataArray] = {}  # every level, for zonal sections
+        self._sections: dict[tuple[str, str], xr.DataArray] = {}
         ref = self._open(reference)
+        self.level = str(ref.attrs.get("level", ""))
         self.standard_name = ref.attrs.get("standard_name")
         self.long_name = ref.attrs.get("long_name", variable)
         stored = ref.attrs.get("units")
         if stored is None:
             raise InputError(f"variable '{variable}' has no units attribute", file=io.expand_paths(reference.paths, source=reference.name), remedy="add a CF units attribute")
-        self.units = units or preferred_units(self.standard_name, str(stored))
+        self.units = cf_units(units or preferred_units(self.standard_name, str(stored)))  # 'deg. C' -> 'degC'
+        #: what could not be scored: {source, season, reason} ("all" seasons for a run left out whole)
+        self.omissions: list[dict[str, str]] = []
+        #: plain sentences about how the numbers were made (printed by the CLI, kept in the provenance)
+        self.notes: list[str] = []
         self._sources: dict[str, Source] = {reference.name: reference}
         self._prepared: dict[str, _Prepared] = {reference.name: self._prepare_source(reference, ref)}
+        if self._prepared[reference.name].kind == "annual":
+            self.notes.append(f"the reference '{reference.name}' holds annual means: only ANN can be scored")
+        failures: list[InputError] = []
         for m in self.models:
-            self._sources[m.name] = m
-            self._prepared[m.name] = self._prepare_source(m, self._open(m))
-        spans = [self._prepared[n].span for n in self._sources]
-        if period is None:
-            self.period = default_period(spans, names=list(self._sources))
-        else:
-            self.period = parse_period(period)
-            for name, span in zip(self._sources, spans, strict=True):
-                if span is None or not span.covers(self.period):
+            try:
+                prepared = self._prepare_source(m, self._open(m))
+                if prepared.kind == "climatology":
                     raise InputError(
-                        f"'{name}' does not cover the period {self.period} (its complete years: {span or 'none'})",
-                        file=self._prepared[name].files,
-                        remedy=f"choose a period within {span}" if span else "give at least twelve consecutive months",
+                        f"'{m.name}' is a 12-month climatology, which can serve as the reference only",
+                        file=prepared.files,
+                        remedy="give the run's monthly, daily or annual time series",
                     )
+            except InputError as err:
+                failures.append(err)
+                self._omit(m.name, "all", err.message)
+                continue
+            self._sources[m.name] = m
+            self._prepared[m.name] = prepared
+        self.models = [m for m in self.models if m.name in self._prepared]
+        self._require_runs(failures)
+        self.period = self._choose_period(period, failures)
+        self._require_runs(failures)
+        spans = [p.span for p in self._prepared.values() if p.kind != "climatology"]
         self.span = self._overlap(spans)  # the years every source covers
+        self._note_time_kinds()
         self._target_grid = self._grids[reference.name]
 
     # ------------------------------------------------------------------ opening
     def _open(self, src: Source) -> xr.DataArray:
-        ds = io.open_source(src.paths, variables=[self.variable], source=src.name)
+        stored_as = src.name_in_files(self.variable)  # e.g. 'TS' for 'tas' (Source.variables)
+        ds = io.open_source(src.paths, variables=[stored_as], source=src.name)
         self._grids[src.name] = grid_of(ds)
-        da = io.get_variable(ds, self.variable, source=src.name)
+        da = io.get_variable(ds, stored_as, source=src.name)
+        if stored_as != self.variable:
+            da = da.rename(self.variable)
         if "time" not in da.dims:
             # name the files, not only the source: the message must say which file to fix
             files = io.expand_paths(src.paths, source=src.name)
             raise InputError(f"variable '{self.variable}' of '{src.name}' has no time axis", file=files, remedy="give monthly time series")
         if "sftlf" in ds.data_vars or any(ds[v].attrs.get("standard_name") == "land_area_fraction" for v in ds.data_vars):
             self._land[src.name] = _land_from(ds)
-        return da
+        return self._one_level(src, da)
+
+    def _one_level(self, src: Source, da: xr.DataArray) -> xr.DataArray:
+        """The variable on the level asked for, right after it is taken from the files
+        (native grid, before the time reduction; see :func:`evaluation.levels.select_level`)."""
+        files = io.expand_paths(src.paths, source=src.name)
+        if LEVEL_DIM in da.dims:
+            kind = da[LEVEL_DIM].attrs.get("level_kind")
+            first = next(iter(self._columns.values()), None)
+            if first is not None and first[LEVEL_DIM].attrs.get("level_kind") != kind:
+                raise InputError(
+                    f"'{src.name}' holds '{self.variable}' on {kind} levels, the reference on {first[LEVEL_DIM].attrs.get('level_kind')} levels",
+                    file=files,
+                    remedy="compare sources on the same kind of vertical axis",
+                )
+            self._columns[src.name] = da
+        return select_level(da, self._level_request, source=src.name, files=files)
 
     def _prepare_source(self, src: Source, da: xr.DataArray) -> _Prepared:
         files = io.expand_paths(src.paths, source=src.name)
@@ -189,7 +238,85 @@ class Comparison:
         except InputError as err:
             raise InputError(f"{err.problem} (source '{src.name}')", file=files, remedy=err.remedy) from None
         span = complete_years(da["time"])
-        return _Prepared(monthly=da, span=span, files=files)
+        return _Prepared(monthly=da, span=span, files=files, kind=frequency(da["time"]))
+
+    # ------------------------------------------------------------------ partial tables
+    def _omit(self, source: str, season: str, reason: str) -> None:
+        entry = {"source": source, "season": season, "reason": " ".join(str(reason).split())}
+        if entry not in self.omissions:
+            self.omissions.append(entry)
+
+    def _omitted(self, source: str, season: str) -> str | None:
+        """The reason a source (or the reference, for every run) has no rows for a season."""
+        for o in self.omissions:
+            if o["source"] in (source, self.reference.name) and o["season"] in (season, "all"):
+                return o["reason"]
+        return None
+
+    def _require_runs(self, failures: list[InputError]) -> None:
+        """Refuse when no run is left to score (with the one reason, or all of them)."""
+        if self.models:
+            return
+        if len(failures) == 1:
+            raise failures[0]
+        raise InputError(
+            "no run could be scored: " + "; ".join(f.message for f in failures),
+            remedy="fix the runs' files as each reason says",
+        )
+
+    def _choose_period(self, period: Period | str | None, failures: list[InputError]) -> Period:
+        """The period: asked for, or the default rule over the sources that have years.
+
+        A run without a complete year, or not covering an asked-for period, is left out
+        (an omission); the reference failing either way is refused.
+        """
+        ref = self.reference.name
+        dated = {n: p for n, p in self._prepared.items() if p.kind != "climatology"}
+        for name, prep in list(dated.items()):
+            if prep.span is None:
+                err = InputError("no complete year of monthly data", file=prep.files, remedy="give at least twelve consecutive months")
+                if name == ref:
+                    raise err
+                failures.append(err)
+                self._drop_run(name, err.message)
+                del dated[name]
+        if not self.models:
+            return Period(0, 0)
+        if period is None:
+            return default_period([p.span for p in dated.values()], names=list(dated))
+        chosen = parse_period(period)
+        for name, prep in dated.items():
+            if not prep.span.covers(chosen):  # type: ignore[union-attr]
+                err = InputError(
+                    f"'{name}' does not cover the period {chosen} (its complete years: {prep.span})",
+                    file=prep.files,
+                    remedy=f"choose a period within {prep.span}",
+                )
+                if name == ref:
+                    raise err
+                failures.append(err)
+                self._drop_run(name, err.message)
+        return chosen
+
+    def _drop_run(self, name: str, reason: str) -> None:
+        self._omit(name, "all", reason)
+        self._prepared.pop(name, None)
+        self._sources.pop(name, None)
+        self.models = [m for m in self.models if m.name != name]
+
+    def _note_time_kinds(self) -> None:
+        ref = self._prepared[self.reference.name]
+        if ref.kind == "climatology":
+            years = ref.monthly["time"].attrs.get("gridscore_climatology_years")
+            self.notes.append(
+                f"the reference '{self.reference.name}' is a 12-month climatology"
+                + (f" of {years}" if years else " (its years are not stated)")
+                + f"; the runs' means over {self.period} are compared with it, and ref_trend, ref_trend_pvalue "
+                "and iav_ratio, which need the reference's years, are left empty"
+            )
+        monthly_from = [n for n, p in self._prepared.items() if p.monthly["time"].attrs.get("gridscore_from") == "sub-monthly"]
+        if monthly_from:
+            self.notes.append(f"monthly means built from sub-monthly steps for {', '.join(monthly_from)}: {COMPLETENESS_RULE}")
 
     @staticmethod
     def _overlap(spans: Iterable[Period | None]) -> Period:
@@ -219,6 +346,11 @@ class Comparison:
             for name, prep in self._prepared.items():
                 wanted = [s for s in seasons if s not in prep.seasons] + (["_cycle"] if cycle and prep.cycle is None else [])
                 for s in wanted:
+                    if s != "_cycle" and self._omitted(name, s) is not None:
+                        continue
+                    if prep.kind == "annual" and s != "ANN":
+                        self._omit(name, s, "annual means (one value per year): only ANN can be scored")
+                        continue
                     hit = self._cache.get(self._cache_key(name, s)) if self._cache else None
                     if hit is not None:
                         done.append((name, s, hit))
@@ -239,22 +371,22 @@ class Comparison:
                         self._cache.put(self._cache_key(name, s), value)
                     done.append((name, s, value))
             for name, s, value in done:
+                if s != "_cycle" and value.sizes.get("year", 0) == 0:
+                    # a partial table: this source and season have no rows, the others do
+                    where = "in the climatology" if self._prepared[name].kind == "climatology" else f"within {self.period}"
+                    self._omit(name, s, f"no complete {s} season {where} (a season needs all its months)")
+                    continue
                 value = self._to_target(value, name)
                 if s == "_cycle":
                     self._prepared[name].cycle = value
                 else:
-                    if value.sizes.get("year", 0) == 0:
-                        raise InputError(
-                            f"no complete {s} season within {self.period}",
-                            file=name,
-                            remedy="choose a longer period or another season",
-                        )
                     self._prepared[name].seasons[s] = value
 
     def _cache_key(self, name: str, what: str) -> str:
         prep = self._prepared[name]
         files = [vars(f) for f in io.file_identity(prep.files)]
-        return Cache.key(kind="reduction-v1", files=files, variable=self.variable, units=self.units, what=what, period=str(self.period))
+        stored_as = self._sources[name].name_in_files(self.variable)
+        return Cache.key(kind="reduction-v1", files=files, variable=self.variable, stored_as=stored_as, units=self.units, what=what, period=str(self.period), level=self.level)
 
     def _to_target(self, da: xr.DataArray, name: str) -> xr.DataArray:
         grid = self._target_grid
@@ -270,6 +402,9 @@ class Comparison:
         season = parse_season(season)
         if season not in prep.seasons:
             self.prepare([season])
+        if season not in prep.seasons:
+            reason = self._omitted(name, season) or f"no {season} values"
+            raise InputError(f"'{name}' has no {season} values: {reason}", file=prep.files, remedy="choose another season")
         return prep.seasons[season]
 
     # ------------------------------------------------------------------ masks and weights
@@ -290,6 +425,10 @@ class Comparison:
         """
         run_series = self.season_series(name, season)
         ref_series = self.season_series(self.reference.name, season)
+        if self._prepared[self.reference.name].kind == "climatology":
+            # the reference has no years: its climatology stands beside each of the run's years
+            ref_series = ref_series.isel(year=0, drop=True).expand_dims(year=run_series["year"].values).transpose(*run_series.dims)
+            return run_series, ref_series
         years = np.intersect1d(run_series["year"].values, ref_series["year"].values)
         return run_series.sel(year=years), ref_series.sel(year=years)
 
@@ -301,7 +440,8 @@ class Comparison:
 
     # ------------------------------------------------------------------ fields
     def _attrs(self, what: str, season: str) -> dict:
-        return {"units": self.units, "long_name": f"{self.long_name} — {what}", "season": season, "period": str(self.period), "variable": self.variable}
+        return {"units": self.units, "long_name": f"{self.long_name} — {what}", "season": season, "period": str(self.period), "variable": self.variable,
+                **({"level": self.level} if self.level else {})}
 
     def climatology(self, name: str, season: str) -> xr.DataArray:
         """Climatological mean ``(lat, lon)`` over the period; a run is masked with the reference."""
@@ -350,6 +490,88 @@ class Comparison:
         """Zonal mean ``(lat)`` of the climatology (run masked with the reference)."""
         out = zonal_mean(self.climatology(name, season))
         out.attrs = self._attrs(f"{name} zonal mean", season)
+        return out
+
+    # ------------------------------------------------------------------ vertical sections
+    @property
+    def has_levels(self) -> bool:
+        """Whether the reference holds the variable on several levels (a section can be drawn)."""
+        return self.reference.name in self._columns
+
+    def _column_climatology(self, name: str, season: str) -> xr.DataArray:
+        """Climatology ``(level, lat, lon)`` of every level of one source on the target grid."""
+        if (name, season) in self._sections:
+            return self._sections[(name, season)]
+        column = self._columns.get(name)
+        if column is None:
+            raise InputError(
+                f"'{name}' holds '{self.variable}' on a single level; a vertical section needs several",
+                file=self._prepared[name].files,
+                remedy="choose a variable stored on pressure, height or depth levels",
+            )
+        key = self._cache_key(name, f"levels-{season}")
+        means = self._cache.get(key) if self._cache else None
+        if means is None:
+            means = season_means(convert(column, self.units, source=name), season, self.period).compute()
+            if self._cache is not None:
+                self._cache.put(key, means)
+        if means.sizes.get("year", 0) == 0:
+            raise InputError(f"no complete {season} season within {self.period}", file=name, remedy="choose a longer period or another season")
+        out = climatology(self._to_target(means, name))
+        self._sections[(name, season)] = out
+        return out
+
+    def zonal_section(self, name: str, season: str) -> xr.Dataset:
+        """Zonal-mean section ``(level, lat)`` of a run and the reference, and its scores.
+
+        Returns
+        -------
+        Dataset
+            ``run``, ``reference`` and ``difference`` (run minus reference) on the
+            reference's levels and the target grid's latitudes, ``weight`` (Δp × Δ sin φ,
+            :func:`evaluation.levels.section_weights`); attributes ``bias`` and ``rmse``
+            (:func:`evaluation.levels.section_scores`), ``units``, ``level_kind``.
+
+        Notes
+        -----
+        Every level of each source is reduced to its season climatology on its own grid,
+        remapped onto the target grid, then brought onto the reference's levels (linear in
+        ln p, or in height/depth).  The vertical interpolation is a weighted sum of two
+        levels with fixed weights, linear in the data, so doing it after the time mean
+        gives the same numbers as before it, NaN included.  Levels of the reference
+        outside a run's levels are NaN (no extrapolation).  Cells missing in either
+        source (below the surface, outside the levels) are left out of both zonal means.
+        """
+        self._check_name(name)
+        season = parse_season(season)
+        with self._lock:
+            ref = self._column_climatology(self.reference.name, season)
+            run = ref if name == self.reference.name else self._column_climatology(name, season)
+        if run is not ref:
+            run = interpolate_levels(run, ref[LEVEL_DIM].values, units=str(ref[LEVEL_DIM].attrs["units"]))
+        mask = run.notnull() & ref.notnull()
+        zonal_ref, zonal_run = zonal_mean(ref.where(mask)), zonal_mean(run.where(mask))
+        grid = self._target_grid
+        if "lat_bnds" in grid.coords:
+            lat_bnds = grid["lat_bnds"].values
+        else:
+            from .grid import infer_bounds
+
+            lat_bnds = infer_bounds(grid["lat"].values, kind="lat")
+        weight = section_weights(zonal_ref, lat_bnds)
+        scores = section_scores(zonal_run, zonal_ref, weight)
+        out = xr.Dataset(
+            {"run": zonal_run, "reference": zonal_ref, "difference": zonal_run - zonal_ref, "weight": weight},
+        ).transpose(LEVEL_DIM, "lat")
+        for var in ("run", "reference", "difference"):
+            out[var].attrs = {"units": self.units}
+        out.attrs = {
+            **self._attrs(f"{name} zonal-mean section", season),
+            "source": name,
+            "level_kind": str(ref[LEVEL_DIM].attrs.get("level_kind", "")),
+            "bias": scores["bias"],
+            "rmse": scores["rmse"],
+        }
         return out
 
     def _region_mask(self, name: str, season: str) -> xr.DataArray:
@@ -415,8 +637,13 @@ class Comparison:
         for season in seasons:
             # one run's arrays at a time (they are the large part of the memory)
             values: dict[str, dict[str, dict[str, float]]] = {r: {} for r in regions}
-            for m in self.models:
+            scored = [m for m in self.models if self._omitted(m.name, season) is None]
+            for m in list(scored):
                 years, ms_all, rs_all, clim_m, clim_r, mask = self._arrays(m.name, season)
+                if years.size == 0:
+                    self._omit(m.name, season, f"no {season} season in years the reference also has")
+                    scored.remove(m)
+                    continue
                 for region in regions:
                     w = area * fraction[region] * mask
                     stats = pattern_stats(clim_m, clim_r, w, where=f"{m.name}, {region}, {season}")
@@ -431,17 +658,26 @@ class Comparison:
                         ref_trend_pvalue=t_r.pvalue,
                         iav_ratio=sd_m / sd_r if sd_r > 0 else float("nan"),
                     )
+                    if self._prepared[self.reference.name].kind == "climatology":
+                        # these need the reference's own years, which a climatology does not have
+                        stats.update(ref_trend=float("nan"), ref_trend_pvalue=float("nan"), iav_ratio=float("nan"))
                     values[region][m.name] = stats
                 del ms_all, rs_all
             for region in regions:
                 rel = relative_errors({k: v["rmse"] for k, v in values[region].items()})
-                for m in self.models:
+                for m in scored:
                     values[region][m.name]["rel_error"] = rel[m.name]
                     for key, metric in METRICS.items():
                         rows.append(
-                            (m.name, self.reference.name, self.variable, region, season, str(self.period), key,
+                            (m.name, self.reference.name, self.variable, self.level, region, season, str(self.period), key,
                              float(values[region][m.name][key]), metric.units(self.units))
                         )
+        if not rows:
+            raise InputError(
+                "nothing could be scored: " + "; ".join(f"{o['source']} {o['season']}: {o['reason']}" for o in self.omissions),
+                file=[f for p in self._prepared.values() for f in p.files],
+                remedy="choose seasons and a period every source has",
+            )
         return pd.DataFrame(rows, columns=list(TIDY_COLUMNS))
 
     def provenance(self, *, regions: Sequence[str] = ("global",), seasons: Sequence[str] = ("ANN",)) -> dict:
@@ -449,15 +685,26 @@ class Comparison:
         from .export import provenance
 
         srcs = [_Expanded(s.name, s.role, tuple(self._prepared[s.name].files)) for s in [self.reference, *self.models]]
-        return provenance(
+        renamed = {
+            s.name: f"{self.variable} read from {s.name_in_files(self.variable)}"
+            for s in [self.reference, *self.models]
+            if s.name_in_files(self.variable) != self.variable
+        }
+        record = provenance(
             sources=srcs,
             variable=self.variable,
             period=str(self.period),
             seasons=[parse_season(s) for s in seasons],
             regions={parse_region(r).id: parse_region(r).definition for r in regions},
             regrid=self.regrid_method,
-            extra={"reference": self.reference.name, "units": self.units, "target_grid": f"{self.reference.name} grid {self._target_grid.sizes['lat']}x{self._target_grid.sizes['lon']}"},
+            extra={"reference": self.reference.name, "units": self.units, "level": self.level, "target_grid": f"{self.reference.name} grid {self._target_grid.sizes['lat']}x{self._target_grid.sizes['lon']}"},
         )
+        if renamed:
+            record["variable_names"] = renamed  # e.g. {"run-a": "tas read from TS"}
+        record["omitted"] = [dict(o) for o in self.omissions]  # rows left out: {source, season, reason}
+        if self.notes:
+            record["notes"] = list(self.notes)
+        return record
 
 
 @dataclass(frozen=True)
@@ -486,6 +733,7 @@ def score_table(
     seasons: Sequence[str] = ("ANN",),
     period: Period | str | None = None,
     regrid: str = "conservative",
+    level: str | None = None,
     cache: Cache | None | bool = True,
 ) -> tuple[pd.DataFrame, dict]:
     """The tidy table and its provenance for one request, served whole from the cache when
@@ -495,18 +743,19 @@ def score_table(
     key = None
     if store is not None:
         key = Cache.key(
-            kind="scores-v1",
-            sources=[(s.name, s.role, [vars(f) for f in io.file_identity(io.expand_paths(s.paths, source=s.name))]) for s in [reference, *models]],
+            kind="scores-v2",
+            sources=[(s.name, s.role, [vars(f) for f in io.file_identity(io.expand_paths(s.paths, source=s.name))], s.name_in_files(variable)) for s in [reference, *models]],
             variable=variable,
             regions=[parse_region(r).id for r in regions],
             seasons=[parse_season(s) for s in seasons],
             period=None if period is None else str(parse_period(period)),
             regrid=regrid,
+            level=None if not level else parse_level(level).label(),
         )
         hit = store.get_json(key)
         if hit is not None:
             return pd.DataFrame(hit["table"], columns=list(TIDY_COLUMNS)), hit["provenance"]
-    cmp = Comparison(reference=reference, models=models, variable=variable, period=period, regrid=regrid, cache=store or False)
+    cmp = Comparison(reference=reference, models=models, variable=variable, period=period, regrid=regrid, level=level, cache=store or False)
     table = cmp.scores(regions=regions, seasons=seasons)
     prov = cmp.provenance(regions=regions, seasons=seasons)
     if store is not None and key is not None:

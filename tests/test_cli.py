@@ -19,7 +19,7 @@ import pandas as pd
 import pytest
 from cfdata import cf_dataset, write_cf
 
-CONTRACT_COLUMNS = ["model", "reference", "variable", "region", "season", "period", "metric", "value", "units"]
+CONTRACT_COLUMNS = ["model", "reference", "variable", "level", "region", "season", "period", "metric", "value", "units"]
 CONTRACT_METRICS = {
     "mean", "ref_mean", "bias", "rmse", "crmse", "corr", "std_ratio", "taylor_skill",
     "trend", "ref_trend", "trend_pvalue", "ref_trend_pvalue", "iav_ratio", "rel_error",

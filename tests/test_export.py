@@ -31,6 +31,7 @@ CONTRACT_COLUMNS = [
     "model",
     "reference",
     "variable",
+    "level",
     "region",
     "season",
     "period",
@@ -42,7 +43,7 @@ CONTRACT_METRICS = [
     "mean", "ref_mean", "bias", "rmse", "crmse", "corr", "std_ratio", "taylor_skill",
     "trend", "ref_trend", "trend_pvalue", "ref_trend_pvalue", "iav_ratio", "rel_error",
 ]  # fmt: skip
-KEYS = CONTRACT_COLUMNS[:6]
+KEYS = CONTRACT_COLUMNS[:7]
 CONTRACT_FORMATS = ["csv", "xlsx", "md", "tex", "html", "json"]  # --output in shared/DESIGN.md
 UNITLESS = {"corr", "std_ratio", "taylor_skill", "trend_pvalue", "ref_trend_pvalue", "iav_ratio", "rel_error"}
 
@@ -70,7 +71,7 @@ def tidy() -> pd.DataFrame:
                     if metric.endswith("pvalue"):
                         value = float(rng.uniform())
                     units = "1" if metric in UNITLESS else "K/decade" if metric.endswith("trend") else "K"
-                    rows.append([model, "ref_obs", "tas", region, season, "1991-2020", metric, value, units])
+                    rows.append([model, "ref_obs", "tas", "850 hPa" if region == "global" else "", region, season, "1991-2020", metric, value, units])
     table = pd.DataFrame(rows, columns=CONTRACT_COLUMNS)
     table.loc[[3, 40, 77], "value"] = np.nan
     table.loc[5, "value"] = 1.0 / 3.0
@@ -194,6 +195,8 @@ def test_csv_is_the_plain_tidy_table_with_a_provenance_sidecar(
     export.write_table(tidy, target, provenance=record)
     back = pd.read_csv(target)
     assert list(back.columns) == CONTRACT_COLUMNS
+    # an empty level (a single-level variable) is an empty cell, which pandas reads as NaN
+    back["level"] = back["level"].fillna("")
     # full precision: every double reads back identical (pandas writes repr of floats)
     pd.testing.assert_frame_equal(back, tidy, check_exact=True, check_dtype=False)
     assert target.read_text().splitlines()[0] == ",".join(CONTRACT_COLUMNS)
@@ -207,7 +210,9 @@ def test_xlsx_has_scores_wide_and_provenance_sheets(tidy: pd.DataFrame, record: 
     export.write_table(tidy, target, provenance=record)
     sheets = pd.read_excel(target, sheet_name=None)
     assert {"scores", "wide", "provenance"} <= set(sheets)
-    scores = sheets["scores"].astype({"units": str})
+    # an empty level is an empty cell, which pandas reads as NaN
+    scores = sheets["scores"].astype({"units": str}).fillna({"level": ""})
+    sheets["wide"] = sheets["wide"].fillna({"level": ""})
     # openpyxl writes numbers with 16 significant digits ("%.16g"), one short of the 17 that
     # always round-trip a double (IEEE 754-2008, sec. 5.12.2): equal to 1e-15 relative,
     # finer than the 15 digits Excel itself computes with.

@@ -160,7 +160,7 @@ def test_regional_scores_use_fractional_weights(files, three_runs):
 
 def test_table_form(three_runs):
     cmp, table = three_runs
-    assert list(table.columns) == list(TIDY_COLUMNS) == ["model", "reference", "variable", "region", "season", "period", "metric", "value", "units"]
+    assert list(table.columns) == list(TIDY_COLUMNS) == ["model", "reference", "variable", "level", "region", "season", "period", "metric", "value", "units"]
     assert len(table) == 3 * 3 * 2 * 14  # runs × regions × seasons × metrics
     assert set(table.period) == {"1995-2002"}
     units = dict(zip(table.metric, table.units, strict=False))

@@ -29,6 +29,7 @@ from bokeh.colors import named
 
 from evaluation import io
 from evaluation.errors import InputError
+from evaluation.export import TIDY_COLUMNS
 from evaluation.regions import parse_region
 from evaluation.scoring import Comparison, Source
 from evaluation.timeaxis import Period, parse_period
@@ -171,6 +172,13 @@ class Results:
                     found.setdefault(name, {})[src.name] = VariableInfo(
                         name, meta.get("long_name", ""), meta.get("units", ""), meta.get("standard_name", "")
                     )
+                # the manifest's `variables = { tas = "TS" }`: this source holds tas as TS
+                for wanted, stored in getattr(src, "variables", {}).items():
+                    meta = listing.get(stored)
+                    if meta is not None and meta.get("has_time") != "False":
+                        found.setdefault(wanted, {})[src.name] = VariableInfo(
+                            wanted, meta.get("long_name", ""), meta.get("units", ""), meta.get("standard_name", "")
+                        )
         return found
 
     def variables(self) -> list[str]:
@@ -369,5 +377,5 @@ class Results:
             except InputError:
                 continue
         if not tables:
-            return pd.DataFrame(columns=["model", "reference", "variable", "region", "season", "period", "metric", "value", "units"])
+            return pd.DataFrame(columns=list(TIDY_COLUMNS))
         return pd.concat(tables, ignore_index=True)
