@@ -25,6 +25,7 @@ import xarray as xr
 from . import curvilinear, regular, rotated, unstructured
 from .description import CANONICAL_DIMS, GRID_KINDS, GridDescription, describe, horizontal_dims_of
 from .regular import cell_area, infer_bounds
+from .remap import REGRID_METHODS, REMAPPERS, describe_method, regrid
 from .spherical import EARTH_RADIUS
 
 __all__ = [
@@ -40,6 +41,10 @@ __all__ = [
     "same_grid",
     "cell_area",
     "infer_bounds",
+    "REGRID_METHODS",
+    "REMAPPERS",
+    "describe_method",
+    "regrid",
 ]
 
 _CANONICAL: dict[str, Callable[[xr.Dataset, xr.Dataset, GridDescription], xr.Dataset]] = {

@@ -1,0 +1,141 @@
+"""Bringing a field on any grid kind onto a regular target grid.
+
+:data:`REMAPPERS` is the registry ``{(source kind, method): Remapper}``; :func:`regrid`
+looks the pair up and runs it.  A method a kind cannot do is absent from the registry
+and refused with the methods that kind has.
+
+=================  ===========================  =====================  ==============
+source kind        conservative                 bilinear               nearest
+=================  ===========================  =====================  ==============
+regular            exact overlaps (xarray-      linear in lat/lon      nearest centre
+                   regrid interval tools)       (xarray-regrid)
+rotated            exact overlaps of the        pyresample bilinear    nearest centre
+                   sampled cells (shapely)
+curvilinear        as rotated                   pyresample bilinear    nearest centre
+unstructured       area-weighted mean of the    —                      nearest centre
+                   cells centred in each
+                   target cell; nearest where
+                   none (not exactly
+                   conservative)
+=================  ===========================  =====================  ==============
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+from dataclasses import dataclass
+from typing import Literal
+
+import xarray as xr
+
+from ..errors import InputError
+from . import remap_points, remap_polygons, remap_regular
+
+__all__ = ["REGRID_METHODS", "RegridMethod", "Remapper", "REMAPPERS", "regrid", "describe_method"]
+
+REGRID_METHODS = ("conservative", "bilinear", "nearest")
+RegridMethod = Literal["conservative", "bilinear", "nearest"]
+
+
+@dataclass(frozen=True)
+class Remapper:
+    """One way of bringing one grid kind onto a regular grid.
+
+    ``function(da, source_grid, target) -> DataArray on target lat/lon``; ``label`` is the
+    sentence the provenance shows.
+    """
+
+    function: Callable[[xr.DataArray, xr.Dataset, xr.Dataset], xr.DataArray]
+    label: str
+
+
+def _polygons(kind: str) -> Callable[[xr.DataArray, xr.Dataset, xr.Dataset], xr.DataArray]:
+    return lambda da, grid, target: remap_polygons.conservative(da, grid, target, kind=kind)
+
+
+_EXACT = "first-order conservative, exact overlap areas of the cells (Jones 1999)"
+_SAMPLED = f"first-order conservative, exact overlaps of the cells sampled with {remap_polygons.EDGE_POINTS} points per edge (Jones 1999)"
+_NEAREST = "nearest source cell centre (target cells more than two source spacings away stay missing)"
+
+REMAPPERS: dict[tuple[str, str], Remapper] = {
+    ("regular", "conservative"): Remapper(remap_regular.conservative, _EXACT),
+    ("regular", "bilinear"): Remapper(remap_regular.bilinear, "bilinear in latitude and longitude"),
+    ("regular", "nearest"): Remapper(remap_points.nearest, _NEAREST),
+    ("rotated", "conservative"): Remapper(_polygons("rotated"), _SAMPLED),
+    ("rotated", "bilinear"): Remapper(remap_points.bilinear, "bilinear between the four surrounding centres (pyresample)"),
+    ("rotated", "nearest"): Remapper(remap_points.nearest, _NEAREST),
+    ("curvilinear", "conservative"): Remapper(_polygons("curvilinear"), _SAMPLED),
+    ("curvilinear", "bilinear"): Remapper(remap_points.bilinear, "bilinear between the four surrounding centres (pyresample)"),
+    ("curvilinear", "nearest"): Remapper(remap_points.nearest, _NEAREST),
+    ("unstructured", "conservative"): Remapper(
+        remap_points.binned,
+        "area-weighted mean of the mesh cells whose centres lie in each target cell, nearest cell where none (approximately conservative)",
+    ),
+    ("unstructured", "nearest"): Remapper(remap_points.nearest, _NEAREST),
+}
+
+
+def _kind(source_grid: xr.Dataset | None, da: xr.DataArray) -> str:
+    from . import kind_of
+
+    if source_grid is not None and "grid_kind" in source_grid.attrs:
+        return str(source_grid.attrs["grid_kind"])
+    return kind_of(source_grid if source_grid is not None else da)
+
+
+def _remapper(kind: str, method: str) -> Remapper:
+    if method not in REGRID_METHODS:
+        raise InputError(f"unknown regrid method '{method}'", remedy=f"use one of {', '.join(REGRID_METHODS)}")
+    if (kind, method) not in REMAPPERS:
+        offered = [m for (k, m) in REMAPPERS if k == kind]
+        raise InputError(f"'{method}' remapping is not available from a {kind} grid", remedy=f"use --regrid {' or '.join(offered)}")
+    return REMAPPERS[(kind, method)]
+
+
+def describe_method(kind: str, method: str) -> str:
+    """The provenance sentence for remapping a ``kind`` grid with ``method``."""
+    return _remapper(kind, method).label
+
+
+def regrid(
+    da: xr.DataArray,
+    target: xr.Dataset | xr.DataArray,
+    *,
+    method: RegridMethod | str = "conservative",
+    source_grid: xr.Dataset | None = None,
+) -> xr.DataArray:
+    """Remap a normalised field onto the regular grid of ``target``.
+
+    Parameters
+    ----------
+    da
+        Field on any grid kind in canonical form (``lat``/``lon``, ``y``/``x`` or ``cell``).
+        Other dimensions are carried along lazily.
+    target
+        A normalised regular grid (its ``lat``, ``lon``, bounds and ``cell_area``).
+    method
+        ``conservative`` (default; right for fluxes and means), ``bilinear`` (smooth
+        fields), or ``nearest``.
+    source_grid
+        The source's grid (:func:`evaluation.grids.grid_of`) when ``da`` does not carry
+        its grid coordinates (bounds, areas, the pole).
+
+    Notes
+    -----
+    Missing source cells are skipped by the conservative and nearest maps (a target cell
+    is missing where no valid source cell reaches it) and propagate through bilinear
+    ones.  The result carries the target's grid coordinates, including ``cell_area``.
+    """
+    from . import grid_of
+
+    kind = _kind(source_grid, da)
+    remapper = _remapper(kind, method)
+    grid = source_grid if source_grid is not None else grid_of(da)
+    if kind == "regular" and isinstance(target, xr.DataArray):
+        target = grid_of(target)
+    out = remapper.function(da, grid, target)  # type: ignore[arg-type]
+    out = out.assign_coords(lat=target["lat"].values, lon=target["lon"].values)
+    if "cell_area" in target.coords:
+        out = out.assign_coords(cell_area=target.coords["cell_area"])
+    out.attrs = dict(da.attrs)
+    return out

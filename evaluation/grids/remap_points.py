@@ -1,0 +1,132 @@
+"""Weights from cell centres: nearest neighbour, centre binning (meshes), bilinear.
+
+* ``nearest``: each target cell takes the source cell whose centre is closest on the
+  sphere (scipy's cKDTree on unit vectors: chord order equals great-circle order).
+  Target centres farther than two source spacings from every source centre are outside
+  the source's domain and stay missing.
+* ``binned`` (the conservative choice for a mesh): each target cell is the area-weighted
+  mean of the mesh cells whose centres fall inside it; a target cell holding no centre
+  (a target finer than the mesh) takes the nearest cell as above.  This is not exactly
+  conservative: a mesh cell counts wholly for the target cell holding its centre.
+* ``bilinear`` (rotated and curvilinear grids): pyresample's bilinear resampler, which
+  finds the four surrounding source centres and interpolates bilinearly between them.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import scipy.sparse as sp
+import xarray as xr
+
+from .remap_sparse import SOURCE_GRID_COORDS, apply_matrix, cached
+from .spherical import EARTH_RADIUS, to_xyz
+
+__all__ = ["nearest", "binned", "bilinear", "source_spacing"]
+
+
+def _centres(target: xr.Dataset) -> tuple[np.ndarray, np.ndarray]:
+    lon, lat = np.meshgrid(target["lon"].values, target["lat"].values)
+    return lon.ravel(), lat.ravel()
+
+
+def source_spacing(source_grid: xr.Dataset) -> float:
+    """Typical distance between source centres, in radians (square root of the median cell area)."""
+    return float(np.sqrt(np.nanmedian(source_grid["cell_area"].values)) / EARTH_RADIUS)
+
+
+def _source_centres(source_grid: xr.Dataset) -> tuple[np.ndarray, np.ndarray]:
+    """Source centres (longitude, latitude), flattened in the order of the source cells."""
+    lon, lat = source_grid["lon"].values, source_grid["lat"].values
+    if "lat" in source_grid.dims:  # regular: 1-D axes
+        lon, lat = np.meshgrid(lon, lat)
+    return lon.ravel(), lat.ravel()
+
+
+def _nearest_pairs(source_grid: xr.Dataset, lon: np.ndarray, lat: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """(target index, source index) of each target point within reach of a source centre."""
+    from scipy.spatial import cKDTree
+
+    tree = cKDTree(to_xyz(*_source_centres(source_grid)))
+    dist, idx = tree.query(to_xyz(lon, lat), distance_upper_bound=2.0 * source_spacing(source_grid))
+    ok = np.isfinite(dist)
+    return np.flatnonzero(ok), idx[ok]
+
+
+def _source_dims(source_grid: xr.Dataset) -> tuple[str, ...]:
+    if "cell" in source_grid.dims:
+        return ("cell",)
+    return ("lat", "lon") if "lat" in source_grid.dims else ("y", "x")
+
+
+def nearest(da: xr.DataArray, source_grid: xr.Dataset, target: xr.Dataset) -> xr.DataArray:
+    """Nearest source cell centre for every target cell centre (any source kind)."""
+    lon, lat = _centres(target)
+    nsrc = int(np.prod([source_grid.sizes[d] for d in _source_dims(source_grid)]))
+
+    def build() -> sp.csr_matrix:
+        t, s = _nearest_pairs(source_grid, lon, lat)
+        return sp.csr_matrix((np.ones(t.size), (t, s)), shape=(lon.size, nsrc))
+
+    w = cached(("nearest", *_source_centres(source_grid), lat, lon), build)
+    return apply_matrix(da, w, _source_dims(source_grid), target)
+
+
+def binned(da: xr.DataArray, source_grid: xr.Dataset, target: xr.Dataset) -> xr.DataArray:
+    """Area-weighted mean of the mesh cells whose centres lie in each target cell; nearest where none."""
+    lat_b, lon_b = np.sort(target["lat_bnds"].values, axis=1), np.sort(target["lon_bnds"].values, axis=1)
+    slat, slon = source_grid["lat"].values.ravel(), source_grid["lon"].values.ravel()
+    area = source_grid["cell_area"].values.ravel()
+
+    def build() -> sp.csr_matrix:
+        lat_edges = np.append(lat_b[:, 0], lat_b[-1, 1])
+        lon_edges = np.append(lon_b[:, 0], lon_b[-1, 1])
+        j = np.searchsorted(lat_edges, slat, side="right") - 1
+        # longitudes of a target that does not start at -180 may need one turn
+        lon_in = np.where(slon < lon_edges[0], slon + 360.0, slon)
+        i = np.searchsorted(lon_edges, lon_in, side="right") - 1
+        j = np.where(slat == lat_edges[-1], lat_b.shape[0] - 1, j)  # a centre on the pole
+        inside = (j >= 0) & (j < lat_b.shape[0]) & (i >= 0) & (i < lon_b.shape[0])
+        rows = j[inside] * lon_b.shape[0] + i[inside]
+        cols = np.flatnonzero(inside)
+        w = sp.csr_matrix((area[inside], (rows, cols)), shape=(lat_b.shape[0] * lon_b.shape[0], slat.size))
+        empty = np.flatnonzero(np.diff(w.indptr) == 0)
+        if empty.size:
+            lon, lat = _centres(target)
+            t, s = _nearest_pairs(source_grid, lon[empty], lat[empty])
+            w = w + sp.csr_matrix((np.ones(t.size), (empty[t], s)), shape=w.shape)
+        return w.tocsr()
+
+    w = cached(("binned", slat, slon, area, lat_b, lon_b), build)
+    return apply_matrix(da, w, ("cell",), target)
+
+
+def bilinear(da: xr.DataArray, source_grid: xr.Dataset, target: xr.Dataset) -> xr.DataArray:
+    """Bilinear interpolation from a logically rectangular grid (pyresample)."""
+    from pyresample import geometry
+    from pyresample.bilinear import NumpyBilinearResampler
+
+    tlat, tlon = target["lat"].values, target["lon"].values
+    lon2, lat2 = np.meshgrid(tlon, tlat)
+    swath = geometry.SwathDefinition(lons=source_grid["lon"].values, lats=source_grid["lat"].values)
+    dest = geometry.SwathDefinition(lons=lon2, lats=lat2)
+    resampler = NumpyBilinearResampler(swath, dest, radius_of_influence=2.0 * source_spacing(source_grid) * EARTH_RADIUS)
+
+    def kernel(x: np.ndarray) -> np.ndarray:
+        lead = x.shape[:-2]
+        flat = np.asarray(x, dtype="float64").reshape(-1, *x.shape[-2:])
+        out = np.stack([resampler.resample(f, fill_value=np.nan) for f in flat]) if flat.shape[0] else np.empty((0, *lon2.shape))
+        return out.reshape(*lead, *lon2.shape)
+
+    src = da.drop_vars([c for c in SOURCE_GRID_COORDS if c in da.coords])
+    if src.chunks is not None:
+        src = src.chunk({"y": -1, "x": -1})
+    out = xr.apply_ufunc(
+        kernel,
+        src,
+        input_core_dims=[["y", "x"]],
+        output_core_dims=[["lat", "lon"]],
+        dask="parallelized",
+        output_dtypes=["float64"],
+        dask_gufunc_kwargs={"output_sizes": {"lat": tlat.size, "lon": tlon.size}},
+    )
+    return out.assign_coords(lat=tlat, lon=tlon)
