@@ -11,6 +11,7 @@ A manifest is a small, human-editable TOML file::
     paths = ["runs/run-a/*.nc"]     # files or globs, relative to the manifest's folder
     colour = "#1f77b4"              # optional
     description = "control run"     # optional
+    variables = { tas = "TS" }      # optional: this source's files store tas as TS
 
 A folder without a manifest is read by its layout: every sub-folder of
 ``DIR/references/`` is a reference and every sub-folder of ``DIR/runs/`` a model run,
@@ -36,7 +37,7 @@ MANIFEST_NAME = "manifest.toml"
 ROLES = ("model", "reference")
 # the folder layout read when there is no manifest: sub-folder -> role
 LAYOUT = {"references": "reference", "runs": "model"}
-_SOURCE_KEYS = ("name", "role", "paths", "colour", "description")
+_SOURCE_KEYS = ("name", "role", "paths", "colour", "description", "variables")
 _TOP_KEYS = ("title", "description", "source")
 # '#rgb' / '#rrggbb' or a CSS colour word such as 'teal'
 _COLOUR = re.compile(r"^(#[0-9a-fA-F]{3}|#[0-9a-fA-F]{6}|[a-zA-Z]{3,20})$")
@@ -205,7 +206,11 @@ class Collection:
             names: set[str] = set()
             for src in sources:
                 listing = io.variables_in(io.expand_paths(src.paths, source=src.name))
-                names.update(n for n, meta in listing.items() if meta.get("has_time") != "False")
+                timed = {n: meta for n, meta in listing.items() if meta.get("has_time") != "False"}
+                names.update(timed)
+                # a variable the manifest says is stored under another name (or standard_name) counts as held
+                stored_as = set(timed) | {meta.get("standard_name", "") for meta in timed.values()}
+                names.update(wanted for wanted, stored in src.variables.items() if stored in stored_as)
             return names
 
         return tuple(sorted(held(self.models) & held(self.references)))
@@ -277,7 +282,22 @@ def _source_from_table(entry: dict, index: int, root: Path, manifest: Path) -> S
         paths=patterns,
         colour=None if colour is None else colour.strip(),
         description=_text(entry, "description", manifest, default="", context=label),
+        variables=_names_in_files(entry, label, manifest),
     )
+
+
+def _names_in_files(entry: dict, label: str, manifest: Path) -> dict[str, str]:
+    """``variables = { tas = "TS" }``: compared variable -> the name the source's files use."""
+    table = entry.get("variables", {})
+    if not isinstance(table, dict) or not all(
+        isinstance(k, str) and k.strip() and isinstance(v, str) and v.strip() and not _CONTROL.search(k + v) for k, v in table.items()
+    ):
+        raise InputError(
+            f"{label} has variables that are not a table of names",
+            file=manifest,
+            remedy='write variables = { tas = "TS" } (the compared variable = the name in this source\'s files)',
+        )
+    return {k.strip(): v.strip() for k, v in table.items()}
 
 
 def _absolute(pattern: str, root: Path) -> str:
