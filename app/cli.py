@@ -134,6 +134,7 @@ def _cmd_score(args) -> int:
             reference=reference, models=models, variable=args.variable, regions=regions, seasons=seasons,
             period=args.period, regrid=args.regrid, level=args.level,
         )
+    _print_omissions(provenance)
     period = table["period"].iloc[0] if len(table) else args.period
     units = table.loc[table["metric"] == "mean", "units"].iloc[0] if len(table) else ""
     if args.output:
@@ -143,6 +144,14 @@ def _cmd_score(args) -> int:
         level = f" at {table['level'].iloc[0]}" if len(table) and table["level"].iloc[0] else ""
         _print_wide(table, title=f"{args.variable}{level} against {reference.name}, {period} ({units})")
     return EXIT_OK
+
+
+def _print_omissions(provenance: dict) -> None:
+    """One stderr line per note and per left-out source or season (a partial table)."""
+    for note in provenance.get("notes", []):
+        print(f"gridscore: note: {note}", file=sys.stderr)
+    for o in provenance.get("omitted", []):
+        print(f"gridscore: left out: {o['source']} {o['season']}: {o['reason']}", file=sys.stderr)
 
 
 def _print_wide(table, *, title: str) -> None:

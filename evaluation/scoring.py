@@ -40,6 +40,7 @@ from .timeaxis import (
     parse_period,
     parse_season,
     season_means,
+    years_with_data,
 )
 from .timecoding import COMPLETENESS_RULE, frequency
 from .units import cf_units, convert, trend_units
@@ -237,8 +238,13 @@ class Comparison:
             da = convert(da, self.units, source=src.name)
         except InputError as err:
             raise InputError(f"{err.problem} (source '{src.name}')", file=files, remedy=err.remedy) from None
+        kind = frequency(da["time"])
         span = complete_years(da["time"])
-        return _Prepared(monthly=da, span=span, files=files, kind=frequency(da["time"]))
+        if span is None and kind == "monthly" and da.sizes["time"]:
+            # months with gaps (one month a year, say): the seasons whose months are there can be scored
+            span = years_with_data(da["time"])
+            self.notes.append(f"'{src.name}' has no complete year of months: its years {span} serve the seasons whose months it has")
+        return _Prepared(monthly=da, span=span, files=files, kind=kind)
 
     # ------------------------------------------------------------------ partial tables
     def _omit(self, source: str, season: str, reason: str) -> None:
@@ -386,7 +392,7 @@ class Comparison:
         prep = self._prepared[name]
         files = [vars(f) for f in io.file_identity(prep.files)]
         stored_as = self._sources[name].name_in_files(self.variable)
-        return Cache.key(kind="reduction-v1", files=files, variable=self.variable, stored_as=stored_as, units=self.units, what=what, period=str(self.period), level=self.level)
+        return Cache.key(kind="reduction-v2", files=files, variable=self.variable, stored_as=stored_as, units=self.units, what=what, period=str(self.period), level=self.level)
 
     def _to_target(self, da: xr.DataArray, name: str) -> xr.DataArray:
         grid = self._target_grid
@@ -743,7 +749,7 @@ def score_table(
     key = None
     if store is not None:
         key = Cache.key(
-            kind="scores-v2",
+            kind="scores-v3",
             sources=[(s.name, s.role, [vars(f) for f in io.file_identity(io.expand_paths(s.paths, source=s.name))], s.name_in_files(variable)) for s in [reference, *models]],
             variable=variable,
             regions=[parse_region(r).id for r in regions],

@@ -32,6 +32,7 @@ __all__ = [
     "climatology",
     "monthly_climatology",
     "complete_years",
+    "years_with_data",
     "default_period",
 ]
 
@@ -137,6 +138,8 @@ def _complete_steps(time: xr.DataArray, season: str, period: Period | None) -> t
     months = SEASONS[parse_season(season)]
     label = season_label_years(time, season)
     month, _ = _month_year(time)
+    if _kind(time) == "climatology":
+        label = np.where(label >= 0, 0, -1)  # one climatological "year"; DJF's December is the same year's
     inside = label >= 0
     if period is not None:
         inside &= (label >= period.start) & (label <= period.end)
@@ -151,6 +154,13 @@ def _complete_steps(time: xr.DataArray, season: str, period: Period | None) -> t
         return np.array([], dtype=int), np.array([], dtype=int)
     steps = np.concatenate(keep)
     return steps, label[steps]
+
+
+def _kind(time: xr.DataArray) -> str:
+    """Kind of the steps of a canonical time axis (see evaluation.timecoding.frequency)."""
+    from .timecoding import KIND_ATTR
+
+    return str(time.attrs.get(KIND_ATTR, "monthly"))
 
 
 def season_means(da: xr.DataArray, season: str, period: Period | str | None = None) -> xr.DataArray:
@@ -175,8 +185,18 @@ def season_means(da: xr.DataArray, season: str, period: Period | str | None = No
     A season enters only when all its months are present.  A cell that is NaN in any
     month of a season is NaN for that season (no partial means).  An empty selection
     gives a ``year`` dimension of length 0.
+
+    Annual means (one step per year) give ANN only, labelled by the calendar year of
+    each step; every other season is empty.  A 12-month climatology gives one ``year``
+    labelled 0 (no real year; ``period`` does not apply), empty when a month of the
+    season is absent.
     """
     period = None if period is None else parse_period(period)
+    kind = _kind(da["time"])
+    if kind == "annual":
+        return _annual_series(da, season, period)
+    if kind == "climatology":
+        period = None
     steps, labels = _complete_steps(da["time"], season, period)
     sub = da.isel(time=steps).astype("float64")
     if steps.size == 0:
@@ -194,6 +214,20 @@ def season_means(da: xr.DataArray, season: str, period: Period | str | None = No
     return out.drop_vars([c for c in out.coords if "time" in out[c].dims], errors="ignore")
 
 
+def _annual_series(da: xr.DataArray, season: str, period: Period | None) -> xr.DataArray:
+    """Annual means as yearly ANN values (other seasons: a ``year`` dimension of length 0)."""
+    _, year = _month_year(da["time"])
+    keep = np.ones(year.size, dtype=bool) if parse_season(season) == "ANN" else np.zeros(year.size, dtype=bool)
+    if period is not None:
+        keep &= (year >= period.start) & (year <= period.end)
+    idx = np.flatnonzero(keep)
+    out = da.isel(time=idx).astype("float64").rename(time="year")
+    out = out.drop_vars([c for c in out.coords if "year" in out[c].dims], errors="ignore").assign_coords(year=year[idx])
+    out.attrs = dict(da.attrs)
+    out.attrs["cell_methods"] = "time: mean (annual means as given)"
+    return out
+
+
 def climatology(series: xr.DataArray) -> xr.DataArray:
     """Mean over ``year`` of yearly season means (NaN in any year gives NaN)."""
     out = series.mean("year", skipna=False)
@@ -205,7 +239,7 @@ def monthly_climatology(da: xr.DataArray, period: Period | str | None = None) ->
     """Mean of each calendar month over the years of ``period`` (dimension ``month``)."""
     month, year = _month_year(da["time"])
     sel = np.ones(month.size, dtype=bool)
-    if period is not None:
+    if period is not None and _kind(da["time"]) != "climatology":
         p = parse_period(period)
         sel = (year >= p.start) & (year <= p.end)
     sub = da.isel(time=np.flatnonzero(sel)).astype("float64")
@@ -216,11 +250,26 @@ def monthly_climatology(da: xr.DataArray, period: Period | str | None = None) ->
 
 
 def complete_years(time: xr.DataArray) -> Period | None:
-    """First and last calendar years that have all twelve months, or ``None``."""
+    """First and last calendar years that have all twelve months, or ``None``.
+
+    For annual means, the first and last years present; for a climatology ``None``.
+    """
+    kind = _kind(time)
+    if kind == "climatology":
+        return None
+    if kind == "annual":
+        _, year = _month_year(time)
+        return Period(int(year.min()), int(year.max())) if year.size else None
     steps, labels = _complete_steps(time, "ANN", None)
     if labels.size == 0:
         return None
     return Period(int(labels.min()), int(labels.max()))
+
+
+def years_with_data(time: xr.DataArray) -> Period | None:
+    """First and last calendar years with any step (for data with gaps, e.g. one month a year)."""
+    _, year = _month_year(time)
+    return Period(int(year.min()), int(year.max())) if year.size else None
 
 
 def default_period(spans: Iterable[Period | None], *, names: Iterable[str] | None = None) -> Period:
