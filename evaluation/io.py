@@ -29,7 +29,7 @@ import xarray as xr
 
 from . import timecoding
 from .errors import InputError
-from .grid import cell_area, infer_bounds
+from . import grids
 
 __all__ = [
     "CF_CALENDARS",
@@ -115,7 +115,10 @@ def find_axis(ds: xr.Dataset, axis: str) -> str | None:
     """Name of the 1-D coordinate that CF attributes identify as ``lat``, ``lon`` or ``time``.
 
     Looks at ``standard_name``, then ``axis``, then ``units``; names are never used.
+    Latitude and longitude are those of a regular grid (:mod:`evaluation.grids.regular`).
     """
+    if axis in ("lat", "lon"):
+        return grids.regular.find_axis(ds, axis)  # type: ignore[arg-type]
     rules = _AXIS_CRITERIA[axis]
     candidates = [name for name in ds.variables if ds[name].ndim == 1 and ds[name].dims[0] == name]
     for key in ("standard_name", "axis", "units"):
@@ -157,17 +160,18 @@ def _listing(path: str) -> dict[str, dict[str, str]]:
     _check_complete(path)
     try:
         with _OPEN_LOCK, xr.open_dataset(path, decode_times=False, decode_cf=False) as ds:
-            lat, lon = find_axis(ds, "lat"), find_axis(ds, "lon")
+            horizontal = grids.horizontal_dims_of(ds) or ()
+            cells = int(np.prod([ds.sizes[d] for d in horizontal])) if horizontal else 0
             out = {}
             for name, var in ds.data_vars.items():
-                if lat and lon and _is_gridded(var, lat, lon):
+                if horizontal and set(horizontal) <= set(var.dims):
                     out[str(name)] = {
                         "standard_name": str(var.attrs.get("standard_name", "")),
                         "units": str(var.attrs.get("units", "")),
                         "long_name": str(var.attrs.get("long_name", "")),
                         "has_time": str(any(find_axis(ds, "time") == d for d in var.dims)),
-                        "cells": str(int(ds.sizes[lat]) * int(ds.sizes[lon])),
-                        **_level_listing(ds, var, (lat, lon, find_axis(ds, "time"))),
+                        "cells": str(cells),
+                        **_level_listing(ds, var, (*horizontal, find_axis(ds, "time"))),
                     }
     except InputError:
         raise
@@ -346,15 +350,9 @@ def _steps_per_month(path: str) -> float:
 
 
 def _require_horizontal_axes(path: str) -> None:
-    """InputError naming ``path`` when CF attributes identify no latitude or longitude in it."""
+    """InputError naming ``path`` and the true problem when no horizontal grid is recognised in it."""
     with _OPEN_LOCK, xr.open_dataset(path, decode_times=False, decode_cf=False) as raw:
-        missing = [label for axis, label in (("lat", "latitude"), ("lon", "longitude")) if find_axis(raw, axis) is None]
-    if missing:
-        raise InputError(
-            f"no {missing[0]} coordinate found by CF attributes",
-            file=path,
-            remedy=f"give the {missing[0]} coordinate standard_name='{missing[0]}' or units='degrees_{'north' if missing[0] == 'latitude' else 'east'}'",
-        )
+        grids.describe(raw, where=path)
 
 
 def _time_chunk(cells: int, steps_per_month: float = 1.0) -> int:
@@ -391,16 +389,6 @@ def _classify_open_error(files: Sequence[str], exc: BaseException) -> InputError
     return _unreadable(where, exc)
 
 
-def _bounds_for(ds: xr.Dataset, name: str, *, kind: str) -> np.ndarray:
-    """Bounds ``(n, 2)`` from the variable named by the ``bounds`` attribute, else inferred."""
-    bname = _attr(ds[name], "bounds")
-    if bname and bname in ds.variables:
-        b = np.asarray(ds[bname].values, dtype="float64")
-        if b.ndim == 2 and b.shape == (ds.sizes[name], 2):
-            return b
-    return infer_bounds(ds[name].values, kind="lat" if kind == "lat" else "lon")
-
-
 def normalise(ds: xr.Dataset, *, source: str | os.PathLike[str] | None = None, files: Sequence[str] = ()) -> xr.Dataset:
     """Canonical names, orientation, bounds and cell areas (see the module docstring).
 
@@ -408,53 +396,30 @@ def normalise(ds: xr.Dataset, *, source: str | os.PathLike[str] | None = None, f
     dimensions (e.g. time bounds) are dropped.
     """
     where = source if source is not None else (files[0] if files else None)
-    names = {axis: find_axis(ds, axis) for axis in ("lat", "lon", "time")}
-    for axis, remedy in (
-        ("lat", "give the latitude coordinate standard_name='latitude' or units='degrees_north'"),
-        ("lon", "give the longitude coordinate standard_name='longitude' or units='degrees_east'"),
-    ):
-        if names[axis] is None:
-            raise InputError(f"no {'latitude' if axis == 'lat' else 'longitude'} coordinate found by CF attributes", file=where, remedy=remedy)
-    lat_name, lon_name, time_name = names["lat"], names["lon"], names["time"]
-    assert lat_name is not None and lon_name is not None
-    lat_b = _bounds_for(ds, lat_name, kind="lat")
-    lon_b = _bounds_for(ds, lon_name, kind="lon")
+    desc = grids.describe(ds, where=where)
+    time_name = find_axis(ds, "time")
+    horizontal = desc.dims
+    own = {*horizontal, time_name}
 
-    keep = [v for v in ds.data_vars if lat_name in ds[v].dims and lon_name in ds[v].dims]
-    out = ds[keep]
-    drop = [c for c in out.coords if c not in (lat_name, lon_name, time_name) and out[c].ndim > 0 and not set(out[c].dims) <= {lat_name, lon_name, time_name}]
+    keep = [v for v in ds.data_vars if desc.holds(ds[v]) and v not in (desc.lat, desc.lon) and not _is_position(ds[v])]
+    out = _with_cell_measures(ds, ds[keep], keep, desc)
+    # coordinates on other dimensions go; so do the file's own centre variables on the
+    # horizontal dimensions (2-D lat/lon, latCell ...): the grid module writes canonical ones
+    drop = [
+        c for c in out.coords
+        if c not in (*horizontal, time_name, "cell_area") and out[c].ndim > 0
+        and (not set(out[c].dims) <= own or set(out[c].dims) & set(horizontal))
+    ]
     out = out.drop_vars(drop)
-    rename = {lat_name: "lat", lon_name: "lon"}
+    rename = dict(desc.rename)
     if time_name is not None:
         rename[time_name] = "time"
     out = out.rename({k: v for k, v in rename.items() if k != v})
     out, refused, vertical_dims = _vertical(ds, out)
-    leftover = [d for d in out.dims if d not in ("time", "lat", "lon", *vertical_dims)]
+    leftover = [d for d in out.dims if d not in ("time", *desc.canonical_dims, *vertical_dims)]
     if leftover:
         out = out.drop_dims(leftover, errors="ignore")
-
-    # latitude ascending
-    lat = out["lat"].values.astype("float64")
-    if lat.size > 1 and lat[0] > lat[-1]:
-        out = out.isel(lat=slice(None, None, -1))
-        lat_b = lat_b[::-1]
-        lat = lat[::-1]
-    lat_b = np.sort(lat_b, axis=1)
-
-    # longitude in [-180, 180), ascending; bounds move with their centre
-    lon = out["lon"].values.astype("float64")
-    new_lon = ((lon + 180.0) % 360.0) - 180.0
-    lon_b = np.sort(lon_b, axis=1) + (new_lon - lon)[:, None]
-    order = np.argsort(new_lon, kind="stable")
-    out = out.isel(lon=order)
-    new_lon, lon_b = new_lon[order], lon_b[order]
-
-    out = out.assign_coords(
-        lat=("lat", lat, {"standard_name": "latitude", "units": "degrees_north", "axis": "Y", "bounds": "lat_bnds"}),
-        lon=("lon", new_lon, {"standard_name": "longitude", "units": "degrees_east", "axis": "X", "bounds": "lon_bnds"}),
-    )
-    out = out.assign_coords(lat_bnds=(("lat", "nv"), lat_b), lon_bnds=(("lon", "nv"), lon_b))
-    out = out.assign_coords(cell_area=_cell_area_for(ds, out, keep, lat_name, lon_name, order, where))
+    out = grids.canonical(out.transpose(..., *desc.canonical_dims), ds, desc)
     if "time" in out.dims:
         _check_time(out, where)
     out.attrs = dict(ds.attrs)
@@ -481,7 +446,7 @@ def _vertical(ds: xr.Dataset, out: xr.Dataset) -> tuple[xr.Dataset, dict[str, st
     refused: dict[str, str] = {}
     kept: dict[str, object] = {}
     for v in list(out.data_vars):
-        extra = [d for d in out[v].dims if d not in ("time", "lat", "lon")]
+        extra = [d for d in out[v].dims if d not in ("time", *_HORIZONTAL_DIMS)]
         if not extra:
             continue
         action, axis, text = vertical_block(ds, out[v], extra)
@@ -506,23 +471,28 @@ def _vertical(ds: xr.Dataset, out: xr.Dataset) -> tuple[xr.Dataset, dict[str, st
     return out, refused, dims
 
 
-def _cell_area_for(ds: xr.Dataset, out: xr.Dataset, keep: list, lat_name: str, lon_name: str, order: np.ndarray, where) -> xr.DataArray:
-    """Cell areas from ``cell_measures: area: NAME`` when present (m²), else exact."""
-    exact = cell_area(out["lat_bnds"].values, out["lon_bnds"].values, lat=out["lat"].values, lon=out["lon"].values)
+def _is_position(var: xr.DataArray) -> bool:
+    """A latitude or longitude stored as a data variable (not a field to score)."""
+    from .grids.curvilinear import is_latitude, is_longitude
+
+    return is_latitude(var) or is_longitude(var) or _attr(var, "units") in ("radian", "radians")
+
+
+# every canonical horizontal dimension name, whatever the grid kind
+_HORIZONTAL_DIMS = tuple(d for dims in grids.CANONICAL_DIMS.values() for d in dims)
+
+
+def _with_cell_measures(ds: xr.Dataset, out: xr.Dataset, keep: list, desc: grids.GridDescription) -> xr.Dataset:
+    """``out`` with the coordinate ``cell_area`` when a kept variable's ``cell_measures``
+    names an area variable (m²) on the grid's dimensions; the grid module computes the
+    area otherwise."""
     for v in keep:
-        measures = _attr(ds[v], "cell_measures") or ""
-        m = re.search(r"area:\s*(\S+)", measures)
+        m = re.search(r"area:\s*(\S+)", _attr(ds[v], "cell_measures") or "")
         if m and m.group(1) in ds.variables:
             area = ds[m.group(1)]
-            if set(area.dims) == {lat_name, lon_name} and str(area.attrs.get("units", "m2")).replace(" ", "") in ("m2", "m^2", "m**2"):
-                area = area.rename({lat_name: "lat", lon_name: "lon"}).transpose("lat", "lon")
-                values = np.asarray(area.values, dtype="float64")
-                lat0 = ds[lat_name].values
-                if lat0.size > 1 and lat0[0] > lat0[-1]:
-                    values = values[::-1]
-                values = values[:, order]
-                return exact.copy(data=values)
-    return exact
+            if set(area.dims) == set(desc.dims) and str(area.attrs.get("units", "m2")).replace(" ", "") in ("m2", "m^2", "m**2"):
+                return out.assign_coords(cell_area=area.astype("float64"))
+    return out
 
 
 def _check_time(ds: xr.Dataset, where) -> None:

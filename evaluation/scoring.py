@@ -28,7 +28,8 @@ from .cache import Cache, default_cache
 from .errors import InputError
 from .export import TIDY_COLUMNS
 from .levels import LEVEL_DIM, interpolate_levels, parse_level, section_scores, section_weights, select_level
-from .grid import REGRID_METHODS, grid_of, regrid, same_grid
+from .grids import REGRID_METHODS, describe_method, grid_of, regrid, same_grid
+from .grids.target import parse_target_grid, regular_grid, regular_near
 from .metrics import METRICS, pattern_stats, relative_errors, weighted_mean, zonal_mean
 from .regions import parse_region, region_weights
 from .timeaxis import (
@@ -110,8 +111,13 @@ class Comparison:
         ``Period``, ``"YYYY-YYYY"`` or ``None`` for the default rule: the WMO 1991–2020
         normal when every source covers it, else the overlap of all sources.
     regrid
-        ``"conservative"`` (default) or ``"bilinear"``; the target grid is the
-        reference's grid.
+        ``"conservative"`` (default), ``"bilinear"`` or ``"nearest"``: how every source
+        is brought onto the target grid (:data:`evaluation.grids.REMAPPERS`).
+    target_grid
+        ``"reference"`` (default: the reference's grid), the name of a source, or a
+        spacing such as ``"2.5x2.5"`` (a global regular grid).  A chosen grid that is not
+        regular is replaced by a regular grid of about its mean spacing (see
+        :mod:`evaluation.grids.target`); :attr:`target_grid_text` says which grid was used.
     units
         Units to compare in; default :func:`preferred_units` of the reference.
     cache
@@ -136,6 +142,7 @@ class Comparison:
         regrid: str = "conservative",
         units: str | None = None,
         level: str | None = None,
+        target_grid: str | None = None,
         cache: Cache | None | bool = True,
     ) -> None:
         if not models:
@@ -146,6 +153,7 @@ class Comparison:
             raise InputError(f"source names must be unique (repeated: {', '.join(dupes)})", remedy="give each run and the reference its own name")
         if regrid not in REGRID_METHODS:
             raise InputError(f"unknown regrid method '{regrid}'", remedy=f"use one of {', '.join(REGRID_METHODS)}")
+        self._target_choice = parse_target_grid(target_grid, sources=names, reference=reference.name)
         self.reference = reference
         self.models = list(models)
         self.variable = variable
@@ -198,7 +206,7 @@ class Comparison:
         spans = [p.span for p in self._prepared.values() if p.kind != "climatology"]
         self.span = self._overlap(spans)  # the years every source covers
         self._note_time_kinds()
-        self._target_grid = self._grids[reference.name]
+        self._target_grid, self.target_grid_text = self._choose_target()
 
     # ------------------------------------------------------------------ opening
     def _open(self, src: Source) -> xr.DataArray:
@@ -394,6 +402,31 @@ class Comparison:
         stored_as = self._sources[name].name_in_files(self.variable)
         return Cache.key(kind="reduction-v2", files=files, variable=self.variable, stored_as=stored_as, units=self.units, what=what, period=str(self.period), level=self.level)
 
+    def _choose_target(self) -> tuple[xr.Dataset, str]:
+        """The regular grid every source is remapped onto, and the sentence saying which."""
+        choice = self._target_choice
+        for name in self._sources:
+            describe_method(self._grids[name].attrs["grid_kind"], self.regrid_method)  # refuses e.g. bilinear from a mesh
+        if choice.is_resolution:
+            assert choice.dlat is not None and choice.dlon is not None
+            return regular_grid(choice.dlat, choice.dlon), f"global regular {choice.dlat:g}° x {choice.dlon:g}° grid"
+        name = choice.source or self.reference.name
+        if name not in self._grids or name not in self._sources:
+            raise InputError(f"the target grid '{name}' is not a source of this comparison", remedy="use --target-grid reference or a spacing such as 2.5x2.5")
+        grid = self._grids[name]
+        kind = grid.attrs["grid_kind"]
+        if kind == "regular":
+            return grid, f"grid of '{name}' (regular {grid.sizes['lat']}x{grid.sizes['lon']})"
+        near, spacing = regular_near(grid)
+        dlat = float(near["lat_bnds"].values[0, 1] - near["lat_bnds"].values[0, 0])
+        text = (
+            f"regular {dlat:g}° x {dlat:g}° grid ({near.sizes['lat']}x{near.sizes['lon']}, "
+            f"{float(near['lat_bnds'].values.min()):g}° to {float(near['lat_bnds'].values.max()):g}° N, "
+            f"{float(near['lon_bnds'].values.min()):g}° to {float(near['lon_bnds'].values.max()):g}° E) "
+            f"close to the mean spacing ({spacing:.3g}°) of '{name}', whose {kind} grid is not regular"
+        )
+        return near, text
+
     def _to_target(self, da: xr.DataArray, name: str) -> xr.DataArray:
         grid = self._target_grid
         if same_grid(da, grid):
@@ -401,6 +434,18 @@ class Comparison:
         else:
             out = regrid(da, grid, method=self.regrid_method, source_grid=self._grids[name])  # type: ignore[arg-type]
         return out.transpose(..., "lat", "lon")
+
+    def _reference_land(self) -> xr.DataArray | None:
+        """The reference files' own land fraction on the target grid, if they hold one."""
+        land = self._land.get(self.reference.name)
+        if land is None or same_grid(land, self._target_grid):
+            return land
+        method = "conservative" if self._grids[self.reference.name].attrs["grid_kind"] != "unstructured" else "nearest"
+        key = f"on-target-{method}"
+        if key not in self._land:
+            out = regrid(land, self._target_grid, method=method, source_grid=self._grids[self.reference.name])
+            self._land[key] = out.fillna(0.0).clip(0.0, 1.0).drop_vars(["cell_area"], errors="ignore")
+        return self._land[key]
 
     def season_series(self, name: str, season: str) -> xr.DataArray:
         """Yearly season means ``(year, lat, lon)`` of one source on the target grid."""
@@ -440,7 +485,7 @@ class Comparison:
 
     def _weights(self, region: str, mask: xr.DataArray) -> xr.DataArray:
         grid = self._target_grid
-        land = self._land.get(self.reference.name)
+        land = self._reference_land()
         frac = region_weights(region, grid, land=land)
         return grid["cell_area"] * frac * mask
 
@@ -637,7 +682,7 @@ class Comparison:
         self.prepare(seasons)
         grid = self._target_grid
         area = grid["cell_area"].values.ravel()
-        land = self._land.get(self.reference.name)
+        land = self._reference_land()
         fraction = {r: region_weights(r, grid, land=land).values.ravel() for r in regions}
         rows = []
         for season in seasons:
@@ -703,8 +748,13 @@ class Comparison:
             seasons=[parse_season(s) for s in seasons],
             regions={parse_region(r).id: parse_region(r).definition for r in regions},
             regrid=self.regrid_method,
-            extra={"reference": self.reference.name, "units": self.units, "level": self.level, "target_grid": f"{self.reference.name} grid {self._target_grid.sizes['lat']}x{self._target_grid.sizes['lon']}"},
+            extra={"reference": self.reference.name, "units": self.units, "level": self.level, "target_grid": self.target_grid_text},
         )
+        record["remapping"] = {
+            name: "none (on the target grid)" if same_grid(grid, self._target_grid)
+            else f"{grid.attrs['grid_kind']} grid: {describe_method(grid.attrs['grid_kind'], self.regrid_method)}"
+            for name, grid in self._grids.items() if name in self._prepared
+        }
         if renamed:
             record["variable_names"] = renamed  # e.g. {"run-a": "tas read from TS"}
         record["omitted"] = [dict(o) for o in self.omissions]  # rows left out: {source, season, reason}
@@ -740,6 +790,7 @@ def score_table(
     period: Period | str | None = None,
     regrid: str = "conservative",
     level: str | None = None,
+    target_grid: str | None = None,
     cache: Cache | None | bool = True,
 ) -> tuple[pd.DataFrame, dict]:
     """The tidy table and its provenance for one request, served whole from the cache when
@@ -757,11 +808,12 @@ def score_table(
             period=None if period is None else str(parse_period(period)),
             regrid=regrid,
             level=None if not level else parse_level(level).label(),
+            target_grid=target_grid or "reference",
         )
         hit = store.get_json(key)
         if hit is not None:
             return pd.DataFrame(hit["table"], columns=list(TIDY_COLUMNS)), hit["provenance"]
-    cmp = Comparison(reference=reference, models=models, variable=variable, period=period, regrid=regrid, level=level, cache=store or False)
+    cmp = Comparison(reference=reference, models=models, variable=variable, period=period, regrid=regrid, level=level, target_grid=target_grid, cache=store or False)
     table = cmp.scores(regions=regions, seasons=seasons)
     prov = cmp.provenance(regions=regions, seasons=seasons)
     if store is not None and key is not None:

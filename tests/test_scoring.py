@@ -524,6 +524,6 @@ def test_unknown_season_region_and_regrid(files, three_runs):
     with pytest.raises(InputError, match="unknown region"):
         cmp.scores(regions=["atlantis"])
     with pytest.raises(InputError, match="unknown regrid"):
-        compare(files["ref"], {"a": files["a"]}, regrid="nearest")
+        compare(files["ref"], {"a": files["a"]}, regrid="cubic")
     with pytest.raises(InputError, match="unique"):
         compare(files["ref"], {"ref": files["a"]})
