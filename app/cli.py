@@ -132,7 +132,7 @@ def _cmd_score(args) -> int:
     with _scheduler(args), _progress(True):
         table, provenance = score_table(
             reference=reference, models=models, variable=args.variable, regions=regions, seasons=seasons,
-            period=args.period, regrid=args.regrid, level=args.level,
+            period=args.period, regrid=args.regrid, level=args.level, target_grid=args.target_grid,
         )
     _print_omissions(provenance)
     period = table["period"].iloc[0] if len(table) else args.period
@@ -184,16 +184,19 @@ def _cmd_budget(args) -> int:
 
 
 def _cmd_check(args) -> int:
-    from evaluation.io import check_files
+    """Exit 0 when every file can be scored, 2 when any cannot (problems and notes apart)."""
+    from evaluation.checking import check_paths, to_json
 
-    found, problems = check_files(args.paths)
-    for line in found:
-        print(line)
-    for line in problems:
-        print(f"problem: {line}")
-    if not problems:
-        print("no CF problems found")
-    return EXIT_OK
+    reports = check_paths(args.paths)
+    if args.json:
+        print(to_json(reports))
+    else:
+        for report in reports:
+            for line in report.lines():
+                print(line)
+        good = sum(r.can_score for r in reports)
+        print(f"{good} of {len(reports)} files can be scored")
+    return EXIT_OK if all(r.can_score for r in reports) else EXIT_INPUT
 
 
 def _cmd_demo(args) -> int:
@@ -254,7 +257,11 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--region", action="append", metavar="ID", help="global tropics nh-extratropics sh-extratropics arctic antarctic land ocean box:S,N,W,E (repeatable)")
     p.add_argument("--season", action="append", metavar="S", help="ANN DJF MAM JJA SON JAN … DEC (repeatable)")
     p.add_argument("--period", metavar="YYYY-YYYY", help="inclusive years; default 1991-2020 when covered, else the common years")
-    p.add_argument("--regrid", choices=REGRID_METHODS, default="conservative", help="remapping onto the reference grid (default conservative)")
+    p.add_argument("--regrid", choices=REGRID_METHODS, default="conservative", help="remapping onto the target grid (default conservative)")
+    p.add_argument(
+        "--target-grid", default="reference", metavar="GRID",
+        help="the common regular grid: reference (default), the name of a source, or a spacing in degrees such as 2.5x2.5",
+    )
     p.add_argument("--output", metavar="FILE", help="write .csv .xlsx .md .tex .html or .json (default: a table on stdout)")
     engine_options(p)
     p.set_defaults(func=_cmd_score)
@@ -266,8 +273,9 @@ def build_parser() -> argparse.ArgumentParser:
     engine_options(p)
     p.set_defaults(func=_cmd_budget)
 
-    p = sub.add_parser("check", help="what files hold, and their CF problems")
-    p.add_argument("paths", nargs="+", metavar="PATH")
+    p = sub.add_parser("check", help="whether files can be scored, and what they hold (exit 2 when any cannot)")
+    p.add_argument("paths", nargs="+", metavar="PATH", help="files or quoted globs")
+    p.add_argument("--json", action="store_true", help="one JSON document: per file path, can_score, problems, notes, grid, frequency, calendar, span, variables")
     p.set_defaults(func=_cmd_check)
 
     p = sub.add_parser("demo", help="write the invented demo scenario")

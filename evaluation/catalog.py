@@ -4,6 +4,7 @@ A manifest is a small, human-editable TOML file::
 
     title = "My comparison"
     description = "Three runs against two references"
+    target_grid = "2.5x2.5"         # optional: reference (default), a source's name, or a spacing
 
     [[source]]
     name = "run-a"
@@ -29,6 +30,7 @@ from pathlib import Path
 
 from . import io
 from .errors import InputError
+from .grids.target import parse_target_grid
 from .scoring import Source
 
 __all__ = ["Collection", "MANIFEST_NAME", "ROLES", "Source"]
@@ -38,7 +40,7 @@ ROLES = ("model", "reference")
 # the folder layout read when there is no manifest: sub-folder -> role
 LAYOUT = {"references": "reference", "runs": "model"}
 _SOURCE_KEYS = ("name", "role", "paths", "colour", "description", "variables")
-_TOP_KEYS = ("title", "description", "source")
+_TOP_KEYS = ("title", "description", "target_grid", "source")
 # '#rgb' / '#rrggbb' or a CSS colour word such as 'teal'
 _COLOUR = re.compile(r"^(#[0-9a-fA-F]{3}|#[0-9a-fA-F]{6}|[a-zA-Z]{3,20})$")
 _CONTROL = re.compile(r"[\x00-\x1f\x7f]")
@@ -64,6 +66,7 @@ class Collection:
     description: str
     root: Path
     sources: tuple[Source, ...]
+    target_grid: str = "reference"
 
     @classmethod
     def from_path(cls, path: str | os.PathLike[str]) -> Collection:
@@ -136,11 +139,17 @@ class Collection:
             _source_from_table(entry, index, root, manifest) for index, entry in enumerate(entries)
         )
         _check_unique(sources, manifest)
+        target_grid = _text(table, "target_grid", manifest, default="reference").strip() or "reference"
+        try:
+            target_grid = parse_target_grid(target_grid, sources=[s.name for s in sources]).text
+        except InputError as err:
+            raise InputError(f"target_grid: {err.problem}", file=manifest, remedy=err.remedy) from None
         return cls(
             title=_text(table, "title", manifest, default=root.name),
             description=_text(table, "description", manifest, default=""),
             root=root,
             sources=sources,
+            target_grid=target_grid,
         )
 
     @classmethod

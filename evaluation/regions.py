@@ -4,6 +4,13 @@ A region is never a hard cut: a cell half inside a latitude band counts half (by
 i.e. by the difference of the sines of its latitude bounds), a cell that is 30 % land
 counts 0.3 towards ``land`` and 0.7 towards ``ocean``.  Boxes ``box:S,N,W,E`` may cross
 the dateline (W > E, e.g. ``box:-5,5,160,-150``).
+
+On a regular grid the latitude and longitude fractions are exact (cells are bounded by
+parallels and meridians).  On rotated, curvilinear and unstructured grids a cell is not
+bounded by parallels, so bands and boxes count a cell wholly when its true centre lies
+inside (centre-in-region), and the land fraction is the bundled one interpolated
+bilinearly to the cell centres.  Scores are computed on the regular target grid, where
+the exact fractions apply; the native-grid weights serve checks and native-grid means.
 """
 
 from __future__ import annotations
@@ -131,6 +138,8 @@ def region_weights(region: str | Region, grid: xr.Dataset | xr.DataArray, *, lan
     region have weight 0.
     """
     r = parse_region(region)
+    if "lat" not in grid.dims:
+        return _centre_weights(r, grid, land)
     lat_f = _lat_fraction(np.asarray(grid["lat_bnds"].values, dtype="float64"), r.south, r.north)
     lon_f = _lon_fraction(np.asarray(grid["lon_bnds"].values, dtype="float64"), r.west, r.east)
     frac = xr.DataArray(lat_f[:, None] * lon_f[None, :], dims=("lat", "lon"), coords={"lat": grid["lat"].values, "lon": grid["lon"].values})
@@ -141,6 +150,40 @@ def region_weights(region: str | Region, grid: xr.Dataset | xr.DataArray, *, lan
     frac.name = "region_fraction"
     frac.attrs = {"long_name": f"fraction of cell in region {r.id}", "units": "1"}
     return frac
+
+
+def _centre_weights(r: Region, grid: xr.Dataset | xr.DataArray, land: xr.DataArray | None) -> xr.DataArray:
+    """Centre-in-region weights on a grid with 2-D or per-cell coordinates."""
+    lat, lon = np.asarray(grid["lat"].values, dtype="float64"), np.asarray(grid["lon"].values, dtype="float64")
+    inside_lat = (lat >= r.south) & (lat <= r.north)
+    width = (r.east - r.west) % 360.0 or 360.0
+    inside_lon = ((lon - r.west) % 360.0) <= width
+    frac = xr.DataArray((inside_lat & inside_lon).astype("float64"), dims=grid["lat"].dims)
+    if r.surface is not None:
+        lf = land_fraction(grid) if land is None else land
+        lf = np.clip(np.nan_to_num(np.asarray(lf.values, dtype="float64")), 0.0, 1.0)
+        frac = frac * (lf if r.surface == "land" else 1.0 - lf)
+    frac.name = "region_fraction"
+    frac.attrs = {"long_name": f"fraction of cell in region {r.id} (cell centre inside)", "units": "1"}
+    return frac
+
+
+def _land_at_centres(grid: xr.Dataset | xr.DataArray) -> xr.DataArray:
+    """The bundled land fraction interpolated bilinearly (scipy) to 2-D or per-cell centres."""
+    from scipy.interpolate import RegularGridInterpolator
+
+    src = bundled_land_fraction()["sftlf"].astype("float64")
+    values = np.asarray(src.values)
+    if str(src.attrs.get("units", "1")).strip() in ("%", "percent"):
+        values = values / 100.0
+    lat_s, lon_s = src["lat"].values, src["lon"].values
+    # one column copied across the dateline on each side, so every longitude lies inside
+    lon_p = np.concatenate([[lon_s[-1] - 360.0], lon_s, [lon_s[0] + 360.0]])
+    values = np.concatenate([values[:, -1:], values, values[:, :1]], axis=1)
+    interp = RegularGridInterpolator((lat_s, lon_p), values, bounds_error=False, fill_value=None)
+    lat, lon = np.asarray(grid["lat"].values, dtype="float64"), np.asarray(grid["lon"].values, dtype="float64")
+    out = interp(np.stack([lat.ravel(), lon.ravel()], axis=-1)).reshape(lat.shape)
+    return xr.DataArray(np.clip(out, 0.0, 1.0), dims=grid["lat"].dims)
 
 
 @lru_cache(maxsize=1)
@@ -159,10 +202,13 @@ _LAND_CACHE: dict[tuple, xr.DataArray] = {}
 
 
 def land_fraction(grid: xr.Dataset | xr.DataArray) -> xr.DataArray:
-    """The bundled land fraction remapped conservatively onto ``grid`` (0…1)."""
+    """The bundled land fraction remapped conservatively onto ``grid`` (0…1); on a grid
+    that is not regular, interpolated bilinearly to the cell centres."""
+    if "lat" not in grid.dims:
+        return _land_at_centres(grid)
     key = (tuple(np.round(grid["lat"].values, 6)), tuple(np.round(grid["lon"].values, 6)))
     if key not in _LAND_CACHE:
-        from .grid import regrid, same_grid
+        from .grids import regrid, same_grid
 
         src = bundled_land_fraction()
         lf = src["sftlf"].astype("float64")
