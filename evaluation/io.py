@@ -41,7 +41,6 @@ __all__ = [
     "open_source",
     "normalise",
     "get_variable",
-    "check_files",
 ]
 
 CF_CALENDARS = timecoding.CF_CALENDARS
@@ -556,57 +555,3 @@ def _one_level_dim(da: xr.DataArray) -> xr.DataArray:
     """A variable's vertical dimension under its canonical name ``level``."""
     named = [d for d in da.dims if str(d).startswith("level_") and d in da.coords and "level_kind" in da[d].attrs]
     return da.rename({named[0]: "level"}) if named else da
-
-
-def check_files(paths: Sequence[str]) -> tuple[list[str], list[str]]:
-    """What the files hold and every CF problem found, as lines for people.
-
-    Returns ``(found, problems)``.  Problems are one line each; the check never raises
-    for content problems, only :class:`InputError` for a path that does not exist.
-    """
-    files = expand_paths(paths)
-    found: list[str] = []
-    problems: list[str] = []
-    for path in files:
-        try:
-            _listing(path)  # turns a reader failure (random bytes, truncated file) into InputError
-            with _OPEN_LOCK, xr.open_dataset(path, decode_times=False, decode_cf=False) as raw:
-                _cf_problems(raw, path, problems)
-            ds = open_source([path], source=path)
-        except InputError as err:
-            problems.append(err.message)
-            continue
-        variables = [f"{v} [{ds[v].attrs.get('units', '?')}]" for v in ds.data_vars]
-        line = f"{path}: variables {', '.join(variables) or 'none'}; grid {ds.sizes['lat']}x{ds.sizes['lon']}"
-        if "time" in ds.dims and ds.sizes["time"]:
-            t = ds["time"].values
-            calendar = ds["time"].encoding.get("calendar", "standard")
-            line += f"; calendar {calendar}; {t[0].year:04d}-{t[0].month:02d} to {t[-1].year:04d}-{t[-1].month:02d} ({t.size} steps)"
-        found.append(line)
-    return found, problems
-
-
-def _cf_problems(raw: xr.Dataset, path: str, problems: list[str]) -> None:
-    """Attribute-level CF problems in an undecoded dataset (one line each)."""
-    if "Conventions" not in raw.attrs:
-        problems.append(f"{path}: no global 'Conventions' attribute — add Conventions = 'CF-1.10'")
-    for axis, label in (("lat", "latitude"), ("lon", "longitude"), ("time", "time")):
-        name = find_axis(raw, axis)
-        if name is None:
-            if axis != "time":
-                problems.append(f"{path}: no {label} coordinate found by CF attributes — add standard_name='{label}' and units")
-            continue
-        var = raw[name]
-        if "units" not in var.attrs:
-            problems.append(f"{path}: coordinate '{name}' has no units attribute")
-        if axis in ("lat", "lon") and "bounds" not in var.attrs:
-            problems.append(f"{path}: coordinate '{name}' has no bounds (they will be inferred half-way between centres)")
-        if axis == "time" and "calendar" not in var.attrs:
-            problems.append(f"{path}: time has no calendar attribute (CF default 'standard' is assumed)")
-    lat, lon = find_axis(raw, "lat"), find_axis(raw, "lon")
-    for vname, var in raw.data_vars.items():
-        if lat and lon and _is_gridded(var, lat, lon):
-            if "units" not in var.attrs:
-                problems.append(f"{path}: variable '{vname}' has no units attribute — units cannot be checked or converted")
-            if "standard_name" not in var.attrs:
-                problems.append(f"{path}: variable '{vname}' has no standard_name — it can only be matched by name")

@@ -40,6 +40,8 @@ __all__ = [
     "convert",
     "trend_units",
     "cf_units",
+    "STANDARD_NAME_UNITS",
+    "check_standard_units",
 ]
 
 WATER_DENSITY = 1000.0  # kg m-3, liquid water (common practice for precipitation depth)
@@ -115,6 +117,10 @@ _CALENDAR_TIME = {"month", "year", "common_year", "leap_year", "julian_year", "g
 _SPACE = re.compile(r"\s+")
 
 
+# 'mb' inside a compound unit ('mb/day', 'mb s-1') is the millibar too, not the millibarn
+_MB_TOKEN = re.compile(r"(?<![A-Za-z_])mb(?![A-Za-z_])")
+
+
 def _key(text: str) -> str:
     return _SPACE.sub(" ", str(text)).strip()
 
@@ -133,7 +139,7 @@ def canonical(text: str) -> str:
     Spellings outside :data:`SPELLINGS` are returned with white space collapsed.
     """
     key = _key(text)
-    return SPELLINGS.get(key, key)
+    return SPELLINGS.get(key, _MB_TOKEN.sub("hPa", key))
 
 
 @lru_cache(maxsize=256)
@@ -149,7 +155,7 @@ def parse_units(text: str):
     key = _key(text)
     if key in AMBIGUOUS:
         raise InputError(f"ambiguous units '{text}'", remedy=AMBIGUOUS[key])
-    cleaned = SPELLINGS.get(key, key)
+    cleaned = canonical(key)
     if cleaned == "1":
         return ureg.dimensionless
     if cleaned == "%":
@@ -246,6 +252,43 @@ def conversion(source: str, target: str) -> tuple[float, float]:
     return float(a), float(b)
 
 
+#: Canonical units of common CF standard names (CF standard name table; value from
+#: memory).  A variable's units must convert to these, so that a temperature stored in
+#: 'deg' (an angle) is refused even when the reference carries the same mistake.
+STANDARD_NAME_UNITS: dict[str, str] = {
+    **dict.fromkeys(("air_temperature", "surface_temperature", "sea_surface_temperature", "sea_water_potential_temperature",
+                     "air_potential_temperature", "dew_point_temperature"), "K"),
+    **dict.fromkeys(("air_pressure", "air_pressure_at_mean_sea_level", "surface_air_pressure"), "Pa"),
+    **dict.fromkeys(("precipitation_flux", "convective_precipitation_flux", "snowfall_flux", "water_evapotranspiration_flux"), "kg m-2 s-1"),
+    **dict.fromkeys(("toa_incoming_shortwave_flux", "toa_outgoing_shortwave_flux", "toa_outgoing_longwave_flux",
+                     "surface_downwelling_shortwave_flux_in_air", "surface_downwelling_longwave_flux_in_air",
+                     "surface_upward_sensible_heat_flux", "surface_upward_latent_heat_flux", "toa_net_downward_radiative_flux"), "W m-2"),
+    **dict.fromkeys(("eastward_wind", "northward_wind", "wind_speed", "upward_air_velocity"), "m s-1"),
+    **dict.fromkeys(("specific_humidity", "relative_humidity", "land_area_fraction", "sea_area_fraction", "sea_ice_area_fraction",
+                     "cloud_area_fraction", "surface_albedo"), "1"),
+    **dict.fromkeys(("geopotential_height", "surface_altitude", "sea_surface_height_above_geoid"), "m"),
+    "cell_area": "m2",
+    "geopotential": "m2 s-2",
+}
+
+
+def check_standard_units(standard_name: str | None, units: str) -> None:
+    """:class:`InputError` when ``units`` cannot describe the quantity the CF standard name names.
+
+    Standard names outside :data:`STANDARD_NAME_UNITS` are not checked.
+    """
+    expected = STANDARD_NAME_UNITS.get(str(standard_name or "").strip())
+    if expected is None:
+        return
+    try:
+        conversion(str(units), expected)
+    except InputError as err:
+        raise InputError(
+            f"the units '{units}' are {quantity_kind(units)}, but standard_name '{standard_name}' is measured in {expected}",
+            remedy="correct the units attribute (e.g. 'degC' or 'K' for a temperature)",
+        ) from err
+
+
 def convert(da: xr.DataArray, target: str, *, source: str | None = None) -> xr.DataArray:
     """``da`` in ``target`` units (lazy); attributes kept, ``units`` replaced.
 
@@ -259,6 +302,7 @@ def convert(da: xr.DataArray, target: str, *, source: str | None = None) -> xr.D
         raise InputError(f"variable '{da.name}' has no units attribute", file=source, remedy="add a CF units attribute")
     try:
         # also for equal strings: an ambiguous or unreadable unit is refused, not passed on
+        check_standard_units(da.attrs.get("standard_name"), str(units))
         a, b = conversion(str(units), str(target))
     except InputError as err:
         raise InputError(err.problem, file=source, remedy=err.remedy) from None

@@ -156,20 +156,20 @@ def test_check_lists_what_it_found(data):
     proc = run("check", data["ref"], data["coarse"])
     assert proc.returncode == 0, proc.stderr
     lines = proc.stdout.splitlines()
-    ref_line = next(line for line in lines if str(data["ref"]) in line and "variables" in line)
+    ref_line = next(line for line in lines if line.startswith(f"{data['ref']}: can be scored"))
     for part in ("tas [K]", "18x36", "standard", "1995-01", "2000-12"):
         assert part in ref_line
-    coarse_line = next(line for line in lines if str(data["coarse"]) in line and "variables" in line)
+    coarse_line = next(line for line in lines if line.startswith(f"{data['coarse']}: can be scored"))
     assert "360_day" in coarse_line and "12x24" in coarse_line and "degC" in coarse_line
 
 
-def test_check_lists_cf_problems_one_line_each(data):
+def test_check_lists_problems_one_line_each_and_exits_2(data):
     proc = run("check", data["half3"], data["nolat"], data["noise"])
-    assert proc.returncode == 0, proc.stderr
-    problems = [line for line in proc.stdout.splitlines() if line.startswith("problem:")]
-    assert any(str(data["nolat"]) in p and "latitude" in p for p in problems)
-    assert any(str(data["noise"]) in p for p in problems)
-    assert any(str(data["half3"]) in p and "truncated" in p for p in problems)
+    assert proc.returncode == 2, proc.stderr
+    problems = [line for line in proc.stdout.splitlines() if ": problem: " in line]
+    assert any(line.startswith(str(data["nolat"])) and "latitude" in line for line in problems)
+    assert any(line.startswith(str(data["noise"])) for line in problems)
+    assert any(line.startswith(str(data["half3"])) and "truncated" in line for line in problems)
     assert "Traceback" not in proc.stdout + proc.stderr
 
 

@@ -263,40 +263,6 @@ def test_missing_file_and_empty_glob(tmp_path):
         io.open_source(str(tmp_path))
 
 
-# ---------------------------------------------------------------------------- check
-
-
-def test_check_lists_what_it_found(cf_file):
-    path = cf_file("ok.nc", calendar="noleap", start_year=1991, years=2, dlat=10.0)
-    found, problems = io.check_files([str(path)])
-    assert len(found) == 1
-    line = found[0]
-    for part in ("tas [K]", "18x36", "noleap", "1991-01", "1992-12", "24 steps"):
-        assert part in line
-    assert problems == []
-
-
-def test_check_reports_cf_problems_one_line_each(tmp_path):
-    ds = cf_dataset(dlat=10.0, years=1, units=None, standard_name=None, bounds=False, calendar=None)
-    del ds.attrs["Conventions"]
-    path = tmp_path / "poor.nc"
-    ds.to_netcdf(path)
-    found, problems = io.check_files([str(path)])
-    text = "\n".join(problems)
-    assert all("\n" not in p for p in problems)
-    for needle in ("Conventions", "no bounds", "calendar", "no units attribute", "no standard_name"):
-        assert needle in text, needle
-
-
-def test_check_reports_unreadable_files_as_problems(tmp_path, cf_file):
-    bad = tmp_path / "bad.nc"
-    bad.write_bytes(b"not a netcdf file at all")
-    good = cf_file("good.nc", dlat=10.0, years=1)
-    found, problems = io.check_files([str(bad), str(good)])
-    assert len(found) == 1 and str(good) in found[0]
-    assert any(str(bad) in p and "cannot read" in p for p in problems)
-
-
 def test_file_identity(cf_file):
     path = cf_file("id.nc", dlat=30.0, years=1)
     ident = io.file_identity([str(path)])[0]

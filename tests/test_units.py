@@ -139,3 +139,32 @@ def test_refusal_names_both_quantities():
 def test_trend_units_of_a_celsius_spelling():
     # a trend of a Celsius temperature is a temperature difference: kelvin (SI brochure)
     assert trend_units("deg. C") == "K/decade"
+
+
+def test_mb_inside_a_compound_unit_is_the_millibar():
+    # 1 mbar = 100 Pa (SI prefixes; the millibar is 1 hPa); pint and UDUNITS read 'mb/day' as millibarn per day
+    a, b = conversion("mb/day", "Pa s-1")
+    assert a == pytest.approx(100.0 / 86400.0, rel=1e-15) and b == 0.0
+
+
+@pytest.mark.parametrize(("standard_name", "units", "ok"), [
+    ("air_temperature", "deg. C", True), ("air_temperature", "K", True), ("air_temperature", "degrees", False),
+    ("precipitation_flux", "mm/day", True), ("precipitation_flux", "W m-2", False), ("land_area_fraction", "%", True),
+    ("air_pressure_at_mean_sea_level", "mb", True), ("air_pressure_at_mean_sea_level", "PA", False), ("some_unknown_name", "banana/s", True),
+])  # fmt: skip
+def test_units_must_fit_the_standard_name(standard_name, units, ok):
+    # canonical units of the CF standard name table (value from memory)
+    from evaluation.units import check_standard_units
+
+    if ok:
+        check_standard_units(standard_name, units)
+    else:
+        with pytest.raises(InputError, match=standard_name):
+            check_standard_units(standard_name, units)
+
+
+def test_convert_refuses_a_temperature_in_an_angle_unit_even_against_itself():
+    da = _field([1.0], "degrees")
+    da.attrs["standard_name"] = "air_temperature"
+    with pytest.raises(InputError, match="an angle"):
+        convert(da, "degrees", source="run-d")

@@ -1,0 +1,256 @@
+"""What a file holds and whether gridscore can score it (the ``gridscore check`` command).
+
+A file *can be scored* when it opens exactly as ``score`` opens it
+(:func:`evaluation.io.open_source`, which raises :class:`InputError` for anything it
+cannot read exactly) and every time-varying gridded variable in it has units the unit
+table reads (:func:`evaluation.units.parse_units`) and that fit its CF standard name.
+Anything else that is found is a *note*: harmless, said so that nobody is surprised
+(bounds inferred, a default calendar assumed, no ``Conventions`` attribute).
+
+Every text from a file (its name, attribute values) is hostile: :func:`plain` makes it a
+single printable line for the terminal; JSON output is escaped by :func:`json.dumps`.
+"""
+
+from __future__ import annotations
+
+import json
+import re
+from collections.abc import Sequence
+from dataclasses import asdict, dataclass, field
+
+import xarray as xr
+
+from . import grids, io, timecoding
+from .errors import InputError
+from .units import check_standard_units, parse_units
+
+__all__ = ["FileReport", "check_file", "check_paths", "to_json", "plain"]
+
+# Fixed fields that sit beside a source's time series and are read from there; a file
+# holding only these is usable although it has no time axis.
+_FIXED_STANDARD_NAMES = {"land_area_fraction", "cell_area", "sea_area_fraction", "surface_altitude"}
+_CONTROL = re.compile(r"[\x00-\x1f\x7f-\x9f\u2028\u2029]")
+
+
+def plain(text: object) -> str:
+    """``text`` as one printable line: control characters (escape sequences, newlines) escaped."""
+    return _CONTROL.sub(lambda m: m.group(0).encode("unicode_escape").decode("ascii"), str(text))
+
+
+@dataclass
+class FileReport:
+    """What :func:`check_file` found about one file.
+
+    Attributes
+    ----------
+    path
+        The file as given (absolute once expanded).
+    can_score
+        True when no problem was found.
+    problems
+        Why it cannot be scored, one sentence each with the remedy.
+    notes
+        Harmless findings, one sentence each.
+    grid
+        ``{"kind", "size", "dims", "cells"}`` or None when no grid was recognised.
+    frequency
+        ``monthly``, ``annual``, ``climatology``, ``sub-monthly`` or None (no time axis).
+    calendar, span
+        The CF calendar, and ``{"start": "YYYY-MM", "end": "YYYY-MM", "steps": n}``.
+    variables
+        One dict per gridded variable: name, units, standard_name, long_name, levels,
+        has_time.
+    """
+
+    path: str
+    can_score: bool = False
+    problems: list[str] = field(default_factory=list)
+    notes: list[str] = field(default_factory=list)
+    grid: dict | None = None
+    frequency: str | None = None
+    calendar: str | None = None
+    span: dict | None = None
+    variables: list[dict] = field(default_factory=list)
+
+    def as_dict(self) -> dict:
+        """JSON-ready."""
+        return asdict(self)
+
+    def lines(self) -> list[str]:
+        """The text summary: a first line saying what the file is, then problems and notes.
+
+        Every line starts with the file name, so that ``grep`` finds all about one file.
+        """
+        what = []
+        if self.grid:
+            what.append(f"{self.grid['kind']} grid {self.grid['size']}")
+        if self.frequency:
+            what.append(self.frequency)
+        if self.calendar:
+            what.append(f"calendar {self.calendar}")
+        if self.span:
+            steps = self.span["steps"]
+            what.append(f"{self.span['start']} to {self.span['end']} ({steps} step{'s' if steps != 1 else ''})")
+        if self.variables:
+            what.append("variables " + ", ".join(_variable_text(v) for v in self.variables))
+        verdict = "can be scored" if self.can_score else "cannot be scored"
+        path = plain(self.path)
+        out = [f"{path}: {verdict}" + (f"; {'; '.join(plain(w) for w in what)}" if what else "")]
+        out += [f"{path}: problem: {plain(p)}" for p in self.problems]
+        out += [f"{path}: note: {plain(n)}" for n in self.notes]
+        return out
+
+
+def _variable_text(v: dict) -> str:
+    text = f"{v['name']} [{v['units'] or 'no units'}]"
+    if v.get("levels"):
+        text += f" on levels {v['levels']}"
+    if not v.get("has_time", True):
+        text += " (fixed)"
+    return text
+
+
+def check_paths(paths: Sequence[str]) -> list[FileReport]:
+    """One report per file that the paths (files or quoted globs) name.
+
+    A path that names no file gets a report of its own with the problem, so that a
+    script sees every argument accounted for.
+    """
+    reports = []
+    for given in paths:
+        try:
+            files = io.expand_paths(given)
+        except InputError as err:
+            reports.append(FileReport(path=str(given), problems=[_sentence(err)]))
+            continue
+        reports.extend(check_file(f) for f in files)
+    return reports
+
+
+def check_file(path: str) -> FileReport:
+    """Open ``path`` as ``score`` would and report what it is and whether it can be scored.
+
+    Notes
+    -----
+    Never raises for the file's content: every :class:`InputError` becomes a problem.
+    Data values are not read (NaN fields are not detected here); only coordinates,
+    attributes and the time axis are.
+    """
+    report = FileReport(path=str(path))
+    try:
+        listing = io.variables_in([path])  # a reader failure (random bytes, truncated file) raises here
+        report.variables = [_variable_entry(name, meta) for name, meta in listing.items()]
+        with io._OPEN_LOCK, xr.open_dataset(path, decode_times=False, decode_cf=False) as raw:
+            report.notes += _attribute_notes(raw)
+            report.notes += timecoding.stamp_notes(raw)
+            desc = grids.describe(raw, where=path)
+            report.grid = {"kind": desc.kind, "size": "x".join(map(str, desc.shape)), "dims": list(desc.dims), "cells": desc.cells}
+            report.variables = [v for v in report.variables if v["name"] not in (desc.lat, desc.lon)]  # 2-D coordinates
+            report.notes += list(desc.notes)
+            if desc.kind == "regular":
+                report.notes += _bounds_notes(raw, desc)
+        ds = io.open_source([path], source=path)
+    except InputError as err:
+        report.problems.append(_sentence(err))
+        return report
+    _describe_time(ds, report)
+    refused = dict(ds.attrs.get(io.REFUSED_ATTR, {}) or {})
+    report.problems += [str(why) for why in refused.values()]
+    report.variables = [_as_opened(v, ds) for v in report.variables if v["name"] in ds.data_vars or v["name"] in refused]
+    _check_variables(report, set(refused))
+    report.can_score = not report.problems
+    return report
+
+
+def _sentence(err: InputError) -> str:
+    """The problem and its remedy, without the file name (the report is per file)."""
+    text = err.problem if err.remedy is None else f"{err.problem} — {err.remedy}"
+    return " ".join(text.split())
+
+
+def _variable_entry(name: str, meta: dict) -> dict:
+    return {
+        "name": name,
+        "units": meta.get("units", ""),
+        "standard_name": meta.get("standard_name", ""),
+        "long_name": meta.get("long_name", ""),
+        "levels": meta.get("levels", ""),
+        "has_time": meta.get("has_time") != "False",
+    }
+
+
+def _as_opened(entry: dict, ds: xr.Dataset) -> dict:
+    """A listing entry corrected by the opened dataset: time axis and levels as ``score`` sees them
+    (a ``month`` climatology dimension has become time; a single level has been squeezed)."""
+    if entry["name"] not in ds.data_vars:
+        return entry
+    da = ds[entry["name"]]
+    levels = ""
+    for dim in (d for d in da.dims if str(d).startswith("level")):
+        coord = ds[dim]
+        levels = f"{', '.join(f'{x:g}' for x in coord.values)} {coord.attrs.get('units', '')}".strip()
+    return {**entry, "has_time": "time" in da.dims, "levels": levels}
+
+
+def _describe_time(ds: xr.Dataset, report: FileReport) -> None:
+    if "time" not in ds.dims or not ds.sizes["time"]:
+        return
+    t = ds["time"]
+    values = t.values
+    report.frequency = timecoding.frequency(t)
+    report.calendar = str(getattr(values[0], "calendar", "") or t.encoding.get("calendar", "")) or None
+    report.span = {"start": f"{values[0].year:04d}-{values[0].month:02d}", "end": f"{values[-1].year:04d}-{values[-1].month:02d}", "steps": int(values.size)}
+
+
+def _check_variables(report: FileReport, refused: set[str]) -> None:
+    """Units each variable must have for ``score``; a file of fixed fields only is a note."""
+    timed = [v for v in report.variables if v["has_time"]]
+    for v in report.variables:
+        where = f"variable '{v['name']}'"
+        if v["name"] in refused:
+            continue  # the opener said why (io.REFUSED_ATTR)
+        if not v["units"]:
+            if v["has_time"]:
+                report.problems.append(f"{where} has no units attribute — add a CF units attribute (e.g. 'K', 'kg m-2 s-1')")
+            continue
+        try:
+            parse_units(v["units"])
+            check_standard_units(v["standard_name"], v["units"])
+        except InputError as err:
+            report.problems.append(f"{where}: {_sentence(err)}")
+        if v["has_time"] and not v["standard_name"]:
+            report.notes.append(f"{where} has no standard_name: it is found by its name only")
+        if v["levels"]:
+            report.notes.append(f"{where} has the levels {v['levels']}: choose one with --level")
+    if not report.variables:
+        report.problems.append("no gridded variable — nothing to score")
+    elif not timed:
+        fixed = all(v["standard_name"] in _FIXED_STANDARD_NAMES for v in report.variables)
+        names = ", ".join(v["name"] for v in report.variables)
+        if fixed:
+            report.notes.append(f"fixed fields only ({names}): read beside the time series of the same source, not scored on their own")
+        else:
+            report.problems.append(f"no variable with a time axis ({names}) — give monthly, annual or climatological time series")
+
+
+def _attribute_notes(raw: xr.Dataset) -> list[str]:
+    notes = []
+    if "Conventions" not in raw.attrs:
+        notes.append("no global Conventions attribute (add Conventions = 'CF-1.10')")
+    name = timecoding.find_time(raw)
+    if name is not None and "calendar" not in raw[name].attrs:
+        notes.append("time has no calendar attribute: the CF default 'standard' is assumed")
+    return notes
+
+
+def _bounds_notes(raw: xr.Dataset, desc) -> list[str]:
+    return [
+        f"coordinate '{name}' has no bounds: they are inferred half-way between centres"
+        for name in (desc.lat, desc.lon)
+        if name in raw.variables and "bounds" not in raw[name].attrs
+    ]
+
+
+def to_json(reports: Sequence[FileReport]) -> str:
+    """The reports as a JSON document: ``{"can_score": bool, "files": [...]}``."""
+    return json.dumps({"can_score": all(r.can_score for r in reports), "files": [r.as_dict() for r in reports]}, indent=2)
