@@ -126,3 +126,18 @@ def test_unnamed_reference_whose_path_holds_equals_and_commas(files, tmp_path):
     t = pd.read_csv(out)
     # the reference is TS (the field + 1.5), the run the field itself: bias -1.5
     assert t.loc[t.metric == "bias", "value"].iloc[0] == pytest.approx(-1.5, rel=1e-9)
+
+
+def test_dashboard_offers_a_variable_a_run_stores_under_its_own_name(files):
+    from app.views.results import Results
+
+    manifest = files["dir"] / "manifest.toml"
+    manifest.write_text(
+        '[[source]]\nname = "obs"\nrole = "reference"\npaths = ["ref.nc"]\n'
+        '[[source]]\nname = "run-b"\nrole = "model"\npaths = ["only_ts.nc"]\nvariables = { tas = "TS" }\n'
+    )
+    write_cf(files["dir"] / "only_ts.nc", variable="TS", standard_name=None, offset=1.5, **COMMON)
+    res = Results(Collection.from_path(manifest))
+    assert "tas" in res.variables() and res.models("tas") == ["run-b"]
+    cmp = Comparison(reference=res.source("obs"), models=[res.source("run-b")], variable="tas", cache=False)
+    assert _bias(cmp, "run-b") == pytest.approx(1.5, rel=1e-9)
