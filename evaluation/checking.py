@@ -13,6 +13,7 @@ single printable line for the terminal; JSON output is escaped by :func:`json.du
 
 from __future__ import annotations
 
+import calendar
 import json
 import re
 from collections.abc import Sequence
@@ -22,6 +23,7 @@ import xarray as xr
 
 from . import grids, io, timecoding
 from .errors import InputError
+from .timeaxis import complete_years
 from .units import check_standard_units, parse_units
 
 __all__ = ["FileReport", "check_file", "check_paths", "to_json", "plain"]
@@ -200,6 +202,13 @@ def _describe_time(ds: xr.Dataset, report: FileReport) -> None:
     report.frequency = timecoding.frequency(t)
     report.calendar = str(getattr(values[0], "calendar", "") or t.encoding.get("calendar", "")) or None
     report.span = {"start": f"{values[0].year:04d}-{values[0].month:02d}", "end": f"{values[-1].year:04d}-{values[-1].month:02d}", "steps": int(values.size)}
+    if report.frequency == "monthly" and complete_years(t) is None:
+        months = sorted({v.month for v in values})
+        names = ", ".join(calendar.month_abbr[m].upper() for m in months)
+        report.notes.append(
+            f"no complete year of months: ANN and seasons missing a month cannot be scored; the months present are {names} "
+            "(choose those with --season)"
+        )
 
 
 def _check_variables(report: FileReport, refused: set[str]) -> None:
