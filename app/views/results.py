@@ -315,6 +315,8 @@ class Results:
                     raise
                 left.append(f"{culprit}: {error.problem}")
                 runs = [r for r in runs if r.name != culprit]
+        # runs the comparison itself left out whole (unreadable files, no common years)
+        left += [f"{o['source']}: {o['reason']}" for o in cmp.omissions if o["season"] == "all"]
         entry = (cmp, tuple(left))
         self._comparisons.put(key, entry)
         return entry

@@ -141,6 +141,8 @@ class ScoresView(ResultView):
         tidy = await results.fetch(("scores",) + args, results.scores, *args)
         record = await results.fetch(("provenance",) + args, results.provenance, *args)
         left = await results.run(results.left_out, request.reference, request.variable, request.period)
+        # a partial table: sources with no rows for this season, with the reason (plain text)
+        left = (*left, *(f"{o['source']} {o['season']}: {o['reason']}" for o in record.get("omitted", []) if o["season"] == request.season))
         mine = tidy[tidy["model"].isin(request.models)].reset_index(drop=True)
         return {"tidy": mine, "provenance": record, "left_out": left, "runs": int(tidy["model"].nunique())}
 
