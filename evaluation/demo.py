@@ -82,7 +82,17 @@ VARIABLES: dict[str, VariableInfo] = {
     "rsdt": VariableInfo("toa_incoming_shortwave_flux", "TOA incident shortwave radiation", "W m-2", 10),
     "rsut": VariableInfo("toa_outgoing_shortwave_flux", "TOA outgoing shortwave radiation", "W m-2", 6),
     "rlut": VariableInfo("toa_outgoing_longwave_flux", "TOA outgoing longwave radiation", "W m-2", 7),
+    "ta": VariableInfo("air_temperature", "air temperature", "K", 7),
 }
+#: Variables on pressure levels, written for the last LEVEL_YEARS years only (they are
+#: the largest files: one field per level).
+LEVEL_VARIABLES = ("ta",)
+LEVEL_YEARS = 5
+#: Pressure levels (hPa) of the references; runs may have their own (SourcePlan.pressure_levels).
+PRESSURE_LEVELS = (1000.0, 850.0, 500.0, 250.0)
+#: Scale height (km) turning pressure into an approximate height, z = H ln(1000 hPa / p);
+#: about 7.5 km in the troposphere (value from memory).
+SCALE_HEIGHT_KM = 7.5
 ALL_VARIABLES = tuple(VARIABLES)
 LAND_FRACTION_INFO = VariableInfo("land_area_fraction", "land area fraction", "%", 8)
 
@@ -118,6 +128,8 @@ class SourcePlan:
     toa_from: int | None = None  # first year of rsdt rsut rlut, like a satellite-era product
     start_delay: int = 0  # years after the collection's first year
     variables: tuple[str, ...] = ALL_VARIABLES
+    pressure_levels: tuple[float, ...] = PRESSURE_LEVELS
+    level_units: str = "hPa"
     variability: int = 0  # 0: the shared "observed" weather; others: a run's own
     biases: tuple[str, ...] = ()
     split_files: bool = False
@@ -171,8 +183,13 @@ RUNS = (
         net_toa=0.5,
         variability=1,
         summary="Injected bias: too cold over land in the northern extratropics, -3 K times "
-        "the land fraction between 35N and 70N (tapered over 2.5 degrees), in every month.",
-        biases=("cold-nh-land",),
+        "the land fraction between 35N and 70N (tapered over 2.5 degrees), in every month; "
+        "its air temperature (ta, on its own pressure levels 1000, 600, 400 and "
+        "250 hPa, stored in Pa) has a cold upper troposphere, -3 K at 250 hPa falling "
+        "linearly in log-pressure to 0 at 600 hPa.",
+        biases=("cold-nh-land", "cold-upper"),
+        pressure_levels=(1000.0, 600.0, 400.0, 250.0),
+        level_units="Pa",
     ),
     SourcePlan(
         name="pumice-ctl",
@@ -833,6 +850,10 @@ def source_fields(
     tas += _trend_ramp(_area_mean(tas, weights), plan.trend, years, years)[:, None, None] * pattern
     out["tas"] = tas.astype(np.float32)
     del tas
+    if "ta" in plan.variables:
+        # only the months written (variable_years): a field per level is large
+        written = 12 * (axis.last_year - variable_years(plan, axis, "ta")[0] + 1)
+        out["ta"] = ta_field(plan, geo, out["tas"][-written:], tas_clim[month[-written:]])
     global_warming = plan.trend / 10.0 * (years - TREND_ORIGIN)
 
     # --- precipitation (mm/day while building, kg m-2 s-1 on output)
@@ -887,6 +908,35 @@ def source_fields(
     return out
 
 
+def ta_field(plan: SourcePlan, geo: Geography, tas: np.ndarray, tas_clim: np.ndarray) -> np.ndarray:
+    """Air temperature ``(time, level, lat, lon)`` on the source's pressure levels, float32.
+
+    Near-surface temperature (its weather damped to half) cooled with height at a lapse
+    rate of 6.5 K/km in the tropics and 4 K/km at the poles, with z = H ln(1000 hPa / p).
+    Levels below the surface are missing (NaN, written as the fill value): over the
+    Antarctic ice sheet (land south of 65S) every level below 700 hPa.
+    """
+    p = np.asarray(plan.pressure_levels, dtype="float64")
+    z = SCALE_HEIGHT_KM * np.log(1000.0 / p)  # km
+    lapse = 6.5 - 2.5 * geo.sin_lat**2  # K/km
+    surface = 0.5 * tas + 0.5 * tas_clim  # half the weather: the free troposphere varies less
+    ta = surface[:, None] - z[None, :, None, None] * lapse[None, None]
+    if "cold-upper" in plan.biases:
+        ln_p = np.log(p)
+        ta -= (3.0 * np.clip((np.log(600.0) - ln_p) / (np.log(600.0) - np.log(250.0)), 0.0, 1.0))[None, :, None, None]
+    below = (p > 700.0)[:, None, None] & ((geo.land > 0.5) & (geo.lat < -65.0))[None]
+    ta = np.where(below[None], np.nan, ta)
+    return ta.astype(np.float32)
+
+
+def _pressure_coordinate(plan: SourcePlan) -> dict:
+    """The ``plev`` coordinate of a source's level variables, in its own units."""
+    factor = {"hPa": 1.0, "Pa": 100.0}[plan.level_units]
+    values = np.asarray(plan.pressure_levels, dtype="float64") * factor
+    attrs = {"standard_name": "air_pressure", "long_name": "pressure", "units": plan.level_units, "positive": "down", "axis": "Z"}
+    return {"plev": ("plev", values, attrs)}
+
+
 # --------------------------------------------------------------------------- files
 
 
@@ -936,6 +986,8 @@ def _encoding(info: VariableInfo, shape: tuple[int, ...], size: DemoSize) -> dic
         # BitRound keeps this many mantissa bits: far below the scenario's signals, and it
         # lets zlib reach a few bits per value for the committed sample.
         enc.update(significant_digits=info.kept_bits, quantize_mode="BitRound")
+    if len(shape) == 4:
+        enc["chunksizes"] = (min(12, shape[0]), *shape[1:])
     if len(shape) == 3:
         enc["chunksizes"] = (min(12, shape[0]), shape[1], shape[2])
     return enc
@@ -1002,6 +1054,8 @@ def toa_first_year(plan: SourcePlan, axis: TimeAxis) -> int | None:
 
 def variable_years(plan: SourcePlan, axis: TimeAxis, variable: str) -> tuple[int, int]:
     """First and last year written for one variable of a source."""
+    if variable in LEVEL_VARIABLES:
+        return max(axis.first_year, axis.last_year - LEVEL_YEARS + 1), axis.last_year
     late = toa_first_year(plan, axis)
     if variable in TOA_VARIABLES and late is not None:
         return late, axis.last_year
@@ -1037,13 +1091,19 @@ def write_source(
     time_bounds = axis.bounds()
     for var in variables:
         info = VARIABLES[var]
-        data = fields[var][:, lat_index[:, None], lon_index[None, :]]
+        data = fields[var][..., lat_index[:, None], lon_index[None, :]]
+        dims, level_coord = ("time", lat_name, lon_name), {}
+        if var in LEVEL_VARIABLES:
+            dims, level_coord = ("time", "plev", lat_name, lon_name), _pressure_coordinate(plan)
+        # level variables hold only their own years (see source_fields)
+        start = variable_years(plan, axis, var)[0] if var in LEVEL_VARIABLES else axis.first_year
         for first, last in _file_spans(plan, *variable_years(plan, axis, var)):
-            rows = slice(12 * (first - axis.first_year), 12 * (last - axis.first_year + 1))
+            rows = slice(12 * (first - start), 12 * (last - start + 1))
+            bounds_rows = slice(12 * (first - axis.first_year), 12 * (last - axis.first_year + 1))
             ds = xr.Dataset(
                 {
                     var: (
-                        ("time", lat_name, lon_name),
+                        dims,
                         data[rows],
                         {
                             "standard_name": info.standard_name,
@@ -1052,13 +1112,13 @@ def write_source(
                             "cell_methods": "time: mean",
                         },
                     ),
-                    "time_bnds": (("time", "bnds"), time_bounds[rows]),
+                    "time_bnds": (("time", "bnds"), time_bounds[bounds_rows]),
                     **bounds,
                 },
                 coords={
                     "time": (
                         "time",
-                        time_bounds[rows].mean(axis=1),
+                        time_bounds[bounds_rows].mean(axis=1),
                         {
                             "standard_name": "time",
                             "long_name": "time",
@@ -1069,6 +1129,7 @@ def write_source(
                         },
                     ),
                     **coords,
+                    **level_coord,
                 },
                 attrs=attrs,
             )
@@ -1253,6 +1314,10 @@ def _readme(build: _Plan, size_name: str, seed: int, folder: str) -> str:
         "stratocumulus decks), shifted so that the global albedo is the table's.",
         f"- **rlut**: Budyko's {BUDYKO_A} + {BUDYKO_B}·T(°C) W m-2 less a deep-convection term, "
         "shifted so that the global net TOA flux is the table's.",
+        f"- **ta** (air temperature on pressure levels, {', '.join(f'{p:g}' for p in PRESSURE_LEVELS)} hPa "
+        f"in the references; the last {LEVEL_YEARS} years only, to keep the files small): tas with half its "
+        f"weather, cooled with z = {SCALE_HEIGHT_KM:g} km × ln(1000 hPa / p) at 6.5 K/km in the tropics and "
+        "4 K/km at the poles; missing (below the surface) at levels under 700 hPa over the Antarctic ice sheet.",
         f"- **variability**: smooth red noise (spherical harmonics up to degree {spec.modes}, "
         "month-to-month autocorrelation 0.3 to 0.55) plus an ENSO-like mode in the tropical "
         "Pacific (autocorrelation 0.92); its global mean is damped to a realistic ~0.1 K from "

@@ -33,6 +33,7 @@ from .grids.target import parse_target_grid, regular_grid, regular_near
 from .metrics import METRICS, pattern_stats, relative_errors, weighted_mean, zonal_mean
 from .regions import parse_region, region_weights
 from .timeaxis import (
+    MONTH_NAMES,
     Period,
     climatology,
     complete_years,
@@ -84,6 +85,16 @@ class Source:
     def name_in_files(self, variable: str) -> str:
         """The name (or standard_name) under which this source's files hold ``variable``."""
         return self.variables.get(variable, variable)
+
+    def names_in_files(self, variable: str) -> dict[str, str]:
+        """Every name read under another name for ``variable``: ``{"tas": "TS"}``, or for a
+        derived variable stored nowhere, its inputs (``{"rlut": "FLUT"}``)."""
+        if variable in self.variables:
+            return {variable: self.variables[variable]}
+        from .derived import DERIVED
+
+        inputs = DERIVED[variable].inputs if variable in DERIVED else ()
+        return {name: self.variables[name] for name in inputs if name in self.variables}
 
 
 @dataclass
@@ -211,8 +222,10 @@ class Comparison:
     # ------------------------------------------------------------------ opening
     def _open(self, src: Source) -> xr.DataArray:
         stored_as = src.name_in_files(self.variable)  # e.g. 'TS' for 'tas' (Source.variables)
-        ds = io.open_source(src.paths, variables=[stored_as], source=src.name)
+        inputs = {stored: wanted for wanted, stored in src.names_in_files(self.variable).items() if wanted != self.variable}
+        ds = io.open_source(src.paths, variables=[stored_as, *inputs], source=src.name)
         self._grids[src.name] = grid_of(ds)
+        ds = ds.rename({k: v for k, v in inputs.items() if k in ds.data_vars and v not in ds.data_vars})  # derived inputs
         da = io.get_variable(ds, stored_as, source=src.name)
         if stored_as != self.variable:
             da = da.rename(self.variable)
@@ -227,7 +240,8 @@ class Comparison:
     def _one_level(self, src: Source, da: xr.DataArray) -> xr.DataArray:
         """The variable on the level asked for, right after it is taken from the files
         (native grid, before the time reduction; see :func:`evaluation.levels.select_level`)."""
-        files = io.expand_paths(src.paths, source=src.name)
+        # the file holding the variable (xarray records it), not every file of the source
+        files = [da.encoding["source"]] if da.encoding.get("source") else io.expand_paths(src.paths, source=src.name)
         if LEVEL_DIM in da.dims:
             kind = da[LEVEL_DIM].attrs.get("level_kind")
             first = next(iter(self._columns.values()), None)
@@ -322,8 +336,10 @@ class Comparison:
         ref = self._prepared[self.reference.name]
         if ref.kind == "climatology":
             years = ref.monthly["time"].attrs.get("gridscore_climatology_years")
+            months = sorted({t.month for t in ref.monthly["time"].values})
             self.notes.append(
-                f"the reference '{self.reference.name}' is a 12-month climatology"
+                f"the reference '{self.reference.name}' is a "
+                + ("12-month climatology" if len(months) == 12 else f"climatology of {', '.join(MONTH_NAMES[m - 1] for m in months)} only")
                 + (f" of {years}" if years else " (its years are not stated)")
                 + f"; the runs' means over {self.period} are compared with it, and ref_trend, ref_trend_pvalue "
                 "and iav_ratio, which need the reference's years, are left empty"
@@ -399,7 +415,7 @@ class Comparison:
     def _cache_key(self, name: str, what: str) -> str:
         prep = self._prepared[name]
         files = [vars(f) for f in io.file_identity(prep.files)]
-        stored_as = self._sources[name].name_in_files(self.variable)
+        stored_as = sorted(self._sources[name].names_in_files(self.variable).items())
         return Cache.key(kind="reduction-v2", files=files, variable=self.variable, stored_as=stored_as, units=self.units, what=what, period=str(self.period), level=self.level)
 
     def _choose_target(self) -> tuple[xr.Dataset, str]:
@@ -737,9 +753,9 @@ class Comparison:
 
         srcs = [_Expanded(s.name, s.role, tuple(self._prepared[s.name].files)) for s in [self.reference, *self.models]]
         renamed = {
-            s.name: f"{self.variable} read from {s.name_in_files(self.variable)}"
+            s.name: "; ".join(f"{wanted} read from {stored}" for wanted, stored in s.names_in_files(self.variable).items())
             for s in [self.reference, *self.models]
-            if s.name_in_files(self.variable) != self.variable
+            if s.names_in_files(self.variable)
         }
         record = provenance(
             sources=srcs,
@@ -801,7 +817,7 @@ def score_table(
     if store is not None:
         key = Cache.key(
             kind="scores-v3",
-            sources=[(s.name, s.role, [vars(f) for f in io.file_identity(io.expand_paths(s.paths, source=s.name))], s.name_in_files(variable)) for s in [reference, *models]],
+            sources=[(s.name, s.role, [vars(f) for f in io.file_identity(io.expand_paths(s.paths, source=s.name))], sorted(s.names_in_files(variable).items())) for s in [reference, *models]],
             variable=variable,
             regions=[parse_region(r).id for r in regions],
             seasons=[parse_season(s) for s in seasons],
