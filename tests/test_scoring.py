@@ -207,8 +207,9 @@ def test_precipitation_in_mass_flux_and_mm_per_day(tmp_path):
 
 
 def test_incompatible_units_are_an_input_error(files, tmp_path):
+    # the file also says standard_name = air_temperature: the units contradict it first
     bad = write_cf(tmp_path / "flux.nc", units="W m-2", dlat=6.0, start_year=1995, years=8)
-    with pytest.raises(InputError, match="cannot be converted") as err:
+    with pytest.raises(InputError, match="cannot be converted|energy flux, but standard_name 'air_temperature'") as err:
         compare(files["ref"], {"flux": bad})
     assert err.value.file == str(bad) and "'flux'" in err.value.message  # the file to fix, and the source
 
@@ -527,3 +528,17 @@ def test_unknown_season_region_and_regrid(files, three_runs):
         compare(files["ref"], {"a": files["a"]}, regrid="cubic")
     with pytest.raises(InputError, match="unique"):
         compare(files["ref"], {"ref": files["a"]})
+
+
+def test_a_season_that_cannot_be_completed_is_an_omission_not_an_abort(tmp_path):
+    # one year of data: DJF lacks December of the year before (WMO practice: DJF labelled by its January)
+    common = dict(dlat=10.0, dtype="float64", field=noisy(0.0))
+    ref = write_cf(tmp_path / "ref.nc", start_year=1995, years=1, **common)
+    run = write_cf(tmp_path / "run.nc", start_year=1995, years=1, offset=1.0, **common)
+    cmp = compare(ref, {"run": run})
+    table = cmp.scores(seasons=["ANN", "DJF", "JJA"])
+    assert set(table["season"]) == {"ANN", "JJA"}
+    assert value(table, "bias", season="JJA") == pytest.approx(1.0, rel=1e-10)
+    reasons = {(o["source"], o["season"]): o["reason"] for o in cmp.omissions}
+    assert "no complete DJF season" in reasons[("ref", "DJF")]
+    assert cmp.provenance(seasons=["ANN", "DJF", "JJA"])["omitted"] == cmp.omissions

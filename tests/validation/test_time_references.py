@@ -216,7 +216,7 @@ def test_a_12_month_climatology_serves_as_reference_for_the_mean_state(tmp_path,
     run = monthly_file(tmp_path / "run.nc", months, "noleap", seed=0.7)
     cmp = Comparison(reference=Source("clim", "reference", (str(ref),)), models=[Source("run", "model", (str(run),))], variable="tas", cache=False)
     scores = cmp.scores(seasons=["ANN", "JJA"])
-    assert any("12-month climatology" in n for n in cmp.notes)
+    assert any("12-month climatology" in n for n in cmp.notes)  # stated on stderr by the CLI
     w = exact_area(GRID["lat_bnds"], GRID["lon_bnds"]).ravel()
     run_values = np.stack([field(y, m, 0.7) for y, m in months])
     for season, season_months in (("ANN", range(1, 13)), ("JJA", (6, 7, 8))):
