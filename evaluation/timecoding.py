@@ -487,6 +487,17 @@ def to_monthly(ds: xr.Dataset, *, file: str | None = None) -> xr.Dataset:
     dates = time.values
     cal = str(time.attrs.get("calendar", getattr(dates[0], "calendar", "standard") if dates.size else "standard"))
     key = _month_index(dates)
+    nominal = float(np.median(ds[INTERVAL].values)) if INTERVAL in ds.coords else (
+        float(np.median([(b - a).total_seconds() / 86400.0 for a, b in zip(dates[:-1], dates[1:], strict=True)])) if dates.size > 1 else 1.0
+    )
+    per_day = 1.0 / nominal if nominal > 0 else 0.0
+    if nominal > 1.0 + 1e-9 or abs(per_day - round(per_day)) > 1e-6:
+        # pentads or weeks straddle month boundaries: no exact monthly mean can be made from them
+        raise InputError(
+            f"time steps of {nominal:g} days do not divide a day, so they straddle month boundaries",
+            file=file or ds.attrs.get("gridscore_files", "").split("\n")[0] or None,
+            remedy="give daily or sub-daily steps (whole steps per day), or monthly means",
+        )
     if INTERVAL in ds.coords:
         weights = np.asarray(ds[INTERVAL].values, dtype="float64")
         covered = {k: weights[key == k].sum() for k in np.unique(key)}

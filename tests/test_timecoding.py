@@ -271,3 +271,20 @@ def test_a_date_with_time_of_day_and_seconds_is_kept():
     got = timecoding.decode_values(np.array([0.0, 1.5]), "hours since 2000-03-01T06:30:15.5Z", "standard")
     assert got[0] == cftime.datetime(2000, 3, 1, 6, 30, 15, 500000, calendar="standard")
     assert got[1] - got[0] == datetime.timedelta(hours=1.5)
+
+
+def test_pentads_are_refused_because_they_straddle_months(tmp_path):
+    units = "days since 2001-01-01"
+    t = np.arange(0.0, 365.0, 5.0)  # five-day means: 2001-01-31 .. 02-04 belongs to two months
+    path = write_raw(tmp_path / "pentads.nc", t + 2.5, {"units": units, "calendar": "noleap"}, np.zeros((t.size, 3, 4)), bounds=np.stack([t, t + 5.0], axis=1))
+    with pytest.raises(InputError, match="straddle month boundaries") as err:
+        io.open_source(str(path))
+    assert "pentads.nc" in err.value.message
+
+
+def test_daily_to_monthly_builds_a_graph_and_reads_no_data(tmp_path, raise_if_computed):
+    path, _ = _daily_file(tmp_path / "d.nc", "standard")
+    with raise_if_computed(max_computes=0, touching=("tas",)):
+        ds = io.open_source(str(path))
+        monthly = season_means(ds["tas"], "JJA")
+    assert monthly.chunks is not None  # computed later, in the scoring's one pass per source
