@@ -141,3 +141,22 @@ def test_dashboard_offers_a_variable_a_run_stores_under_its_own_name(files):
     assert "tas" in res.variables() and res.models("tas") == ["run-b"]
     cmp = Comparison(reference=res.source("obs"), models=[res.source("run-b")], variable="tas", cache=False)
     assert _bias(cmp, "run-b") == pytest.approx(1.5, rel=1e-9)
+
+
+def _fluxes(names, offsets, standard):
+    ds = cf_dataset(variable=names[0], units="W m-2", standard_name="toa_incoming_shortwave_flux" if standard else None, offset=offsets[0], **COMMON)
+    for name, off, sn in zip(names[1:], offsets[1:], ("toa_outgoing_shortwave_flux", "toa_outgoing_longwave_flux"), strict=True):
+        ds[name] = ds[names[0]] - offsets[0] + off
+        ds[name].attrs = {"units": "W m-2", **({"standard_name": sn} if standard else {})}
+    return ds
+
+
+def test_a_derived_variable_from_inputs_stored_under_other_names(tmp_path):
+    # net TOA flux = rsdt - rsut - rlut; the run's fields are the reference's plus
+    # (+2, +0.5, -1) W m-2, so the bias is 2 - 0.5 + 1 = 2.5 (common practice: linearity)
+    ref = _write(tmp_path / "ref_flux.nc", _fluxes(("rsdt", "rsut", "rlut"), (0.0, -100.0, -10.0), True))
+    run = _write(tmp_path / "run_flux.nc", _fluxes(("SOLIN", "FSUTOA", "FLUT"), (2.0, -99.5, -11.0), False))
+    src = Source("run-f", "model", str(run), variables={"rsdt": "SOLIN", "rsut": "FSUTOA", "rlut": "FLUT"})
+    cmp = Comparison(reference=Source("obs", "reference", str(ref)), models=[src], variable="toa_net", cache=False)
+    assert _bias(cmp, "run-f") == pytest.approx(2.5, rel=1e-9)
+    assert cmp.provenance()["variable_names"] == {"run-f": "rsdt read from SOLIN; rsut read from FSUTOA; rlut read from FLUT"}
