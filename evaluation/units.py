@@ -42,6 +42,7 @@ __all__ = [
     "cf_units",
     "STANDARD_NAME_UNITS",
     "check_standard_units",
+    "is_difference",
 ]
 
 WATER_DENSITY = 1000.0  # kg m-3, liquid water (common practice for precipitation depth)
@@ -213,8 +214,11 @@ def quantity_kind(text: str) -> str:
 
 
 @lru_cache(maxsize=256)
-def conversion(source: str, target: str) -> tuple[float, float]:
+def conversion(source: str, target: str, *, difference: bool = False) -> tuple[float, float]:
     """Factors ``(a, b)`` with ``target_value = a * source_value + b``.
+
+    With ``difference=True`` the values are differences (anomalies, biases): the
+    offset of Celsius or Fahrenheit does not apply, ``b`` is 0.
 
     Raises :class:`InputError` when the units describe different quantities (angles
     count as a dimension of their own), when a month or year would have to be given a
@@ -248,8 +252,16 @@ def conversion(source: str, target: str) -> tuple[float, float]:
     except Exception:
         raise refused from None
     a = (one - zero) * density
-    b = zero
+    b = 0.0 if difference else zero
     return float(a), float(b)
+
+
+def is_difference(attrs: dict) -> bool:
+    """Whether a variable holds differences from something (an anomaly), by its CF
+    standard name (``..._anomaly``) or its long name, so that no temperature offset applies."""
+    standard_name = str(attrs.get("standard_name", "")).strip().lower()
+    long_name = str(attrs.get("long_name", "")).lower()
+    return standard_name.endswith("_anomaly") or "anomal" in long_name
 
 
 #: Canonical units of common CF standard names (CF standard name table; value from
@@ -295,7 +307,8 @@ def convert(da: xr.DataArray, target: str, *, source: str | None = None) -> xr.D
     Notes
     -----
     NaN stays NaN.  A missing ``units`` attribute is an :class:`InputError`, because a
-    silent assumption is how a precipitation field ends up 86 400 times too small.
+    silent assumption is how a precipitation field ends up 86 400 times too small.  An
+    anomaly (:func:`is_difference`) is converted without the Celsius/Fahrenheit offset.
     """
     units = da.attrs.get("units")
     if units is None:
@@ -303,7 +316,7 @@ def convert(da: xr.DataArray, target: str, *, source: str | None = None) -> xr.D
     try:
         # also for equal strings: an ambiguous or unreadable unit is refused, not passed on
         check_standard_units(da.attrs.get("standard_name"), str(units))
-        a, b = conversion(str(units), str(target))
+        a, b = conversion(str(units), str(target), difference=is_difference(da.attrs))
     except InputError as err:
         raise InputError(err.problem, file=source, remedy=err.remedy) from None
     if a == 1.0 and b == 0.0:

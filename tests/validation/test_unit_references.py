@@ -11,6 +11,7 @@ import dask.array as dsa
 import numpy as np
 import pint
 import pytest
+import xarray as xr
 
 from evaluation.errors import InputError
 from evaluation.io import open_source
@@ -276,3 +277,15 @@ def test_a_reference_in_deg_dot_c_and_a_run_in_kelvin_through_the_cli(nc_file, g
     assert v["ref_mean"] == pytest.approx(14.0, rel=1e-12)
     assert v["bias"] == pytest.approx(run_c - 14.0, rel=1e-9)
     assert set(table.loc[table["metric"] == "mean", "units"]) == {"degC"}
+
+
+@pytest.mark.parametrize(("attrs", "source", "target", "pint_source", "pint_target"), [
+    ({"standard_name": "air_temperature_anomaly"}, "deg. C", "K", "delta_degree_Celsius", "kelvin"),
+    ({"long_name": "Surface temperature anomaly"}, "K", "degF", "kelvin", "delta_degree_Fahrenheit"),
+    ({"long_name": "temperature anomalies"}, "degF", "degC", "delta_degree_Fahrenheit", "delta_degree_Celsius"),
+])  # fmt: skip
+def test_an_anomaly_is_converted_as_a_difference(attrs, source, target, pint_source, pint_target):
+    # Source: pint's delta units (a temperature difference has no offset); rtol 1e-12.
+    da = xr.DataArray(X, dims="x", attrs={"units": source, **attrs}, name="tas_anom")
+    expected = UREG.Quantity(X, pint_source).to(pint_target).magnitude
+    np.testing.assert_allclose(convert(da, target).values, expected, rtol=1e-12, atol=1e-9)
