@@ -546,6 +546,11 @@ class Comparison:
         """Run trend minus reference trend over their common years, per decade, on the common mask."""
         from .trends import trend_field
 
+        if self._prepared[self.reference.name].kind == "climatology":
+            raise InputError(
+                f"the reference '{self.reference.name}' is a climatology: it has no years, so no trend to subtract",
+                remedy="look at the run's own trend map, or choose a reference with years",
+            )
         run_series, ref_series = self._aligned(name, season)
         out = (trend_field(run_series, dim="year") - trend_field(ref_series, dim="year")) * 10.0
         out = out.where(self._pair(name, season)[2])
@@ -650,7 +655,11 @@ class Comparison:
         """Area-weighted regional mean of the yearly season means ``(year)``."""
         mask = self._region_mask(name, season)
         w = self._weights(region, mask)
-        out = weighted_mean(self.season_series(name, season), w)
+        series = self.season_series(name, season)
+        if self._prepared[name].kind == "climatology":
+            # no years of its own: the climatology drawn level across the period
+            series = series.isel(year=0, drop=True).expand_dims(year=self.period.years)
+        out = weighted_mean(series, w)
         out.attrs = {**self._attrs(f"{name} {parse_region(region).label} mean", season), "region": parse_region(region).id}
         return out
 

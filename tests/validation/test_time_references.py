@@ -314,3 +314,16 @@ def test_time_in_units_mon_is_refused_with_the_true_reason(tmp_path, capsys):
     err = capsys.readouterr().err.strip().splitlines()
     assert code == 2 and len(err) == 1
     assert str(mon) in err[0] and "'mon' with no reference date" in err[0] and "set time:units to 'months since" in err[0]
+
+
+def test_a_climatology_reference_has_a_level_series_and_no_trend_difference(tmp_path):
+    from evaluation.errors import InputError
+
+    clim = np.stack([field(2000, m) for m in range(1, 13)])
+    ref = _climatology_month_dim(tmp_path / "clim.nc", clim)
+    run = monthly_file(tmp_path / "run.nc", months_of(1991, 1994), "noleap", seed=0.7)
+    cmp = Comparison(reference=Source("clim", "reference", (str(ref),)), models=[Source("run", "model", (str(run),))], variable="tas", cache=False)
+    series = cmp.regional_series("clim", "global", "ANN").values
+    assert series.size == 4 and np.ptp(series) == 0.0  # the same climatology in every year of the period
+    with pytest.raises(InputError, match="no trend"):
+        cmp.trend_difference("run", "ANN")
