@@ -378,6 +378,8 @@ class Comparison:
                 for s in wanted:
                     if s != "_cycle" and self._omitted(name, s) is not None:
                         continue
+                    if s == "_cycle" and prep.kind == "annual":
+                        continue  # annual means have no seasonal cycle (seasonal_cycle says so)
                     if prep.kind == "annual" and s != "ANN":
                         self._omit(name, s, "annual means (one value per year): only ANN can be scored")
                         continue
@@ -668,7 +670,8 @@ class Comparison:
         prep = self._check_name(name)
         if prep.cycle is None:
             self.prepare([], cycle=True)
-        assert prep.cycle is not None
+        if prep.cycle is None:
+            raise InputError(f"'{name}' holds annual means: it has no seasonal cycle", file=prep.files, remedy="give monthly or daily data for a seasonal cycle")
         mask = prep.cycle.notnull().all("month") & self._region_mask(name, "ANN")
         out = weighted_mean(prep.cycle, self._weights(region, mask))
         out.attrs = {**self._attrs(f"{name} monthly climatology", "ANN"), "region": parse_region(region).id}

@@ -168,6 +168,10 @@ def test_annual_means_without_calendar_score_ann_and_leave_other_seasons_out(tmp
     got = scores.set_index("metric")["value"]
     for metric in MEAN_STATE:
         assert got[metric] == pytest.approx(expected[metric], rel=1e-9, abs=1e-12), metric
+    from evaluation.errors import InputError
+
+    with pytest.raises(InputError, match="no seasonal cycle"):
+        cmp.seasonal_cycle("run", "global")
     # OLS slope of the area-weighted annual series per decade (numpy.polyfit)
     series = (run_values.reshape(years.size, -1) @ w) / w.sum()
     assert got["trend"] == pytest.approx(10.0 * np.polyfit(years, series, 1)[0], rel=1e-9)
