@@ -24,7 +24,7 @@ import xarray as xr
 from . import grids, io, timecoding
 from .errors import InputError
 from .timeaxis import complete_years
-from .units import check_standard_units, parse_units
+from .units import canonical, check_standard_units, parse_units
 
 __all__ = ["FileReport", "check_file", "check_paths", "to_json", "plain"]
 
@@ -60,8 +60,9 @@ class FileReport:
     calendar, span
         The CF calendar, and ``{"start": "YYYY-MM", "end": "YYYY-MM", "steps": n}``.
     variables
-        One dict per gridded variable: name, units, standard_name, long_name, levels,
-        has_time.
+        One dict per gridded variable: name, units (as written), units_read_as (the
+        canonical form, :func:`evaluation.units.canonical`), standard_name, long_name,
+        levels, has_time.
     """
 
     path: str
@@ -174,6 +175,7 @@ def _variable_entry(name: str, meta: dict) -> dict:
     return {
         "name": name,
         "units": meta.get("units", ""),
+        "units_read_as": canonical(meta.get("units", "")) if meta.get("units") else None,
         "standard_name": meta.get("standard_name", ""),
         "long_name": meta.get("long_name", ""),
         "levels": meta.get("levels", ""),

@@ -151,3 +151,19 @@ def test_exit_status_seen_by_a_shell(files):
     bad = subprocess.run([str(exe), "check", str(files["half"])], capture_output=True, text=True, env=env, timeout=300)
     assert good.returncode == 0 and bad.returncode == 2
     assert "Traceback" not in bad.stdout + bad.stderr
+
+
+def test_units_as_read_and_hostile_units(tmp_path, capsys):
+    path = write_cf(tmp_path / "odd_units.nc", units="\x1b[2JK", **COMMON)
+    assert main(["check", str(path)]) == 2
+    out = capsys.readouterr().out
+    assert "\x1b" not in out and "\\x1b[2JK" in out
+    report = check_file(str(write_cf(tmp_path / "c.nc", units="deg. C", offset=-273.15, **COMMON)))
+    assert report.variables[0]["units_read_as"] == "degC"
+
+
+def test_a_file_without_a_complete_year_names_the_months_it_has(tmp_path):
+    path = write_cf(tmp_path / "janfeb.nc", months=[(1995, 1), (1995, 2), (1996, 1), (1996, 2)], **COMMON)
+    report = check_file(str(path))
+    assert report.can_score
+    assert any("no complete year" in n and "JAN, FEB" in n for n in report.notes), report.notes
