@@ -160,8 +160,10 @@ MEANINGS = {
     "kg kg-1": ("kilogram / kilogram", ONE),
     "m/s": ("meter / second", MS), "ms-1": ("meter / second", MS), "m s-1": ("meter / second", MS), "m s**-1": ("meter / second", MS),
     "gpm": ("meter", "meter"), "m": ("meter", "meter"),
+    "sec": ("second", "second"), "s": ("second", "second"), "day": ("day", "second"), "d": ("day", "second"),
+    "mb/day": ("millibar / day", "pascal / second"), "hPa/day": ("hectopascal / day", "pascal / second"),
 }
-SI_CF = {KELVIN: "K", PASCAL: "Pa", MS: "m s-1", FLUX: "kg m-2 s-1", WM2: "W m-2", ONE: "1", "meter": "m"}
+SI_CF = {KELVIN: "K", PASCAL: "Pa", MS: "m s-1", FLUX: "kg m-2 s-1", WM2: "W m-2", ONE: "1", "meter": "m", "second": "s", "pascal / second": "Pa s-1"}
 
 
 @pytest.mark.parametrize("spelling", sorted(MEANINGS))
@@ -289,3 +291,20 @@ def test_an_anomaly_is_converted_as_a_difference(attrs, source, target, pint_sou
     da = xr.DataArray(X, dims="x", attrs={"units": source, **attrs}, name="tas_anom")
     expected = UREG.Quantity(X, pint_source).to(pint_target).magnitude
     np.testing.assert_allclose(convert(da, target).values, expected, rtol=1e-12, atol=1e-9)
+
+
+@pytest.mark.parametrize(("ref_units", "run_units", "needle"), [("deg", "K", "deg"), ("K", "C", "coulomb"), ("K", "degrees", "an angle"), ("hPa", "PA", "PA")])
+def test_the_cli_refuses_a_trap_naming_the_unit_and_the_file(nc_file, grid_factory, times_factory, tmp_path, capsys, ref_units, run_units, needle):
+    # Source: pint reads each of these pairs as another quantity or as convertible by a
+    # factor that is no unit conversion (π/180); common practice says they differ.
+    from app.cli import main
+
+    grid = grid_factory(30.0, 60.0)
+    times = times_factory(2001, 2002, "standard")
+    shape = (len(times), grid["lat"].size, grid["lon"].size)
+    ref = nc_file("ref_trap.nc", {"v": (np.full(shape, 1.0), {"units": ref_units})}, grid=grid, times=times)
+    run = nc_file("run_trap.nc", {"v": (np.full(shape, 1.0), {"units": run_units})}, grid=grid, times=times)
+    code = main(["score", "--reference", f"obs={ref}", "--model", f"m={run}", "--variable", "v", "--output", str(tmp_path / "t.csv")])
+    err = capsys.readouterr().err
+    assert code == 2 and needle in err and ("ref_trap.nc" in err or "run_trap.nc" in err)
+    assert len(err.strip().splitlines()) == 1 and not (tmp_path / "t.csv").exists()
