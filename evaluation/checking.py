@@ -15,6 +15,7 @@ from __future__ import annotations
 
 import calendar
 import json
+import os
 import re
 from collections.abc import Sequence
 from dataclasses import asdict, dataclass, field
@@ -143,6 +144,7 @@ def check_file(path: str) -> FileReport:
     try:
         listing = io.variables_in([path])  # a reader failure (random bytes, truncated file) raises here
         report.variables = [_variable_entry(name, meta) for name, meta in listing.items()]
+        # the attributes as written (netCDF-C is not thread-safe: io's lock, as every open)
         with io._OPEN_LOCK, xr.open_dataset(path, decode_times=False, decode_cf=False) as raw:
             report.notes += _attribute_notes(raw)
             report.notes += timecoding.stamp_notes(raw)
@@ -155,6 +157,12 @@ def check_file(path: str) -> FileReport:
         ds = io.open_source([path], source=path)
     except InputError as err:
         report.problems.append(_sentence(err))
+        return report
+    except Exception as exc:  # a reader's failure on a file nobody foresaw: one line, and the other files still checked
+        if os.environ.get("GRIDSCORE_DEBUG"):
+            raise
+        text = " ".join(f"{type(exc).__name__}: {exc}".split())[:200]
+        report.problems.append(f"gridscore could not read this file ({text}) — please report it; GRIDSCORE_DEBUG=1 shows the traceback")
         return report
     _describe_time(ds, report)
     refused = dict(ds.attrs.get(io.REFUSED_ATTR, {}) or {})
