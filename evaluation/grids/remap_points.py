@@ -108,13 +108,18 @@ def bilinear(da: xr.DataArray, source_grid: xr.Dataset, target: xr.Dataset) -> x
     tlat, tlon = target["lat"].values, target["lon"].values
     lon2, lat2 = np.meshgrid(tlon, tlat)
     swath = geometry.SwathDefinition(lons=source_grid["lon"].values, lats=source_grid["lat"].values)
-    dest = geometry.SwathDefinition(lons=lon2, lats=lat2)
+    lat_b, lon_b = target["lat_bnds"].values, target["lon_bnds"].values
+    # a regular latitude-longitude target is an area in EPSG:4326; pyresample's rows run north to south
+    dest = geometry.AreaDefinition(
+        "target", "regular target grid", "latlon", "EPSG:4326", tlon.size, tlat.size,
+        (float(lon_b.min()), float(lat_b.min()), float(lon_b.max()), float(lat_b.max())),
+    )
     resampler = NumpyBilinearResampler(swath, dest, radius_of_influence=2.0 * source_spacing(source_grid) * EARTH_RADIUS)
 
     def kernel(x: np.ndarray) -> np.ndarray:
         lead = x.shape[:-2]
         flat = np.asarray(x, dtype="float64").reshape(-1, *x.shape[-2:])
-        out = np.stack([resampler.resample(f, fill_value=np.nan) for f in flat]) if flat.shape[0] else np.empty((0, *lon2.shape))
+        out = np.stack([resampler.resample(f, fill_value=np.nan)[::-1] for f in flat]) if flat.shape[0] else np.empty((0, *lon2.shape))
         return out.reshape(*lead, *lon2.shape)
 
     src = da.drop_vars([c for c in SOURCE_GRID_COORDS if c in da.coords])

@@ -24,7 +24,7 @@ from .description import GridDescription, attr
 from .regular import infer_bounds
 from .spherical import EARTH_RADIUS, to_lonlat, to_xyz
 
-__all__ = ["MAPPING_NAME", "find", "rotation_matrix", "rotated_to_true", "true_to_rotated", "canonical", "edge_points"]
+__all__ = ["MAPPING_NAME", "find", "rotation_matrix", "rotated_to_true", "true_to_rotated", "canonical"]
 
 MAPPING_NAME = "rotated_latitude_longitude"
 _AXES = {"y": ("grid_latitude", "Y"), "x": ("grid_longitude", "X")}
@@ -162,18 +162,3 @@ def canonical(out: xr.Dataset, raw: xr.Dataset, desc: GridDescription) -> xr.Dat
         cell_area=(("y", "x"), area, {"units": "m2", "standard_name": "cell_area"}),
         crs=crs,
     )
-
-
-def edge_points(grid: xr.Dataset, n: int) -> tuple[np.ndarray, np.ndarray]:
-    """Each cell's boundary as ``4 n`` true points ``(y, x, 4n)``: its rotated meridians and
-    parallels sampled in rotated coordinates (a rotated parallel is a small circle, not a
-    great circle, so it must be followed, not cut short)."""
-    yb, xb = grid["y_bnds"].values, grid["x_bnds"].values
-    t = np.arange(n) / n
-    s, nn = yb[:, None, 0, None], yb[:, None, 1, None]
-    w, e = xb[None, :, 0, None], xb[None, :, 1, None]
-    ny, nx = yb.shape[0], xb.shape[0]
-    shape = (ny, nx, n)
-    rlat = np.concatenate([np.broadcast_to(s, shape), np.broadcast_to(s + (nn - s) * t, shape), np.broadcast_to(nn, shape), np.broadcast_to(nn + (s - nn) * t, shape)], axis=-1)
-    rlon = np.concatenate([np.broadcast_to(w + (e - w) * t, shape), np.broadcast_to(e, shape), np.broadcast_to(e + (w - e) * t, shape), np.broadcast_to(w, shape)], axis=-1)
-    return rotated_to_true(rlon, rlat, tuple((k, v) for k, v in grid["crs"].attrs.items()))
