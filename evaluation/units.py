@@ -35,6 +35,7 @@ __all__ = [
     "registry",
     "canonical",
     "parse_units",
+    "parse_scaled",
     "quantity_kind",
     "conversion",
     "convert",
@@ -99,6 +100,11 @@ SPELLINGS: dict[str, str] = {
     **_spellings("m", "gpm", "metre", "meter", "metres", "meters"),
     **_spellings("dam", "gpdm", "decametre", "decameter"),
     **_spellings("m2 s-2", "m2/s2", "m^2/s^2", "m**2 s**-2", "m^2 s^-2"),
+    # Ocean volume transport: 'Sv' is the sievert in pint and UDUNITS; in ocean files the
+    # sverdrup, 10^6 m3 s-1.
+    **_spellings("1e6 m3 s-1", "Sv", "sverdrup", "Sverdrup"),
+    # Mole fractions by volume
+    **_spellings("ppm", "ppmv"),
 }
 
 #: Spellings refused whatever they are compared with: the registries disagree.
@@ -109,8 +115,11 @@ AMBIGUOUS: dict[str, str] = {
     "mon": "'mon' is no unit UDUNITS or pint knows — write the unit of the quantity itself",
 }
 
-# Root units of pint counted as a dimension: an angle never becomes a pure number.
-_ANGLE_ROOT = "radian"
+# Root units of pint counted as dimensions of their own, although pint takes them as
+# dimensionless: an angle never becomes a pure number (×π/180), and practical salinity
+# (a conductivity ratio on the PSS-78 scale) never becomes a mass fraction (pint's psu
+# is 1, so 35 psu would be 35 000 g/kg).
+_OWN_ROOTS = ("radian", "practical_salinity_unit")
 # Time units without a fixed length in a calendar: a conversion through them would
 # assume some mean month or year (pint: 1/12 of 365.25 days; UDUNITS: 1/12 of a
 # tropical year) and be silently wrong for any given month.
@@ -143,14 +152,26 @@ def canonical(text: str) -> str:
     return SPELLINGS.get(key, _MB_TOKEN.sub("hPa", key))
 
 
-@lru_cache(maxsize=256)
 def parse_units(text: str):
     """A pint Unit for a CF unit string, or :class:`InputError`.
+
+    A numeric scale in the string (``1e-3``, ``100 Pa``) is not part of the Unit; see
+    :func:`parse_scaled`, which :func:`conversion` uses.
 
     Notes
     -----
     Refused: spellings in :data:`AMBIGUOUS`, strings no registry reads, and products of
     an angle with a temperature (``degrees Kelvin``-like spellings outside the table).
+    """
+    return parse_scaled(text)[1]
+
+
+@lru_cache(maxsize=256)
+def parse_scaled(text: str) -> tuple[float, object]:
+    """``(scale, unit)`` for a CF unit string: ``1e-3`` is ``(0.001, dimensionless)``.
+
+    UDUNITS allows a number in a unit string (CF's unit of sea_water_salinity is
+    ``1e-3``); pint parses such a string only as a quantity, whose magnitude must be kept.
     """
     ureg = registry()
     key = _key(text)
@@ -158,26 +179,32 @@ def parse_units(text: str):
         raise InputError(f"ambiguous units '{text}'", remedy=AMBIGUOUS[key])
     cleaned = canonical(key)
     if cleaned == "1":
-        return ureg.dimensionless
+        return 1.0, ureg.dimensionless
     if cleaned == "%":
-        return ureg.percent
+        return 1.0, ureg.percent
     try:
-        unit = ureg.Unit(cleaned)
+        scale, unit = 1.0, ureg.Unit(cleaned)
     except Exception:
         try:
-            unit = ureg.Quantity(cleaned).units
+            q = ureg.Quantity(cleaned)
+            scale, unit = float(q.magnitude), q.units
         except Exception:
             raise InputError(f"cannot read the units '{text}'", remedy="use a CF/UDUNITS unit string such as 'K', 'kg m-2 s-1' or 'W m-2'") from None
-    if _angle_power(unit) and unit.dimensionality.get("[temperature]", 0):
+    if any(_own_dimensions(unit)) and unit.dimensionality.get("[temperature]", 0):
         raise InputError(
             f"the units '{text}' read as an angle times a temperature",
             remedy="write 'degC' for degrees Celsius or 'K' for kelvin",
         )
-    return unit
+    if scale != 1.0 and ureg.Quantity(0.0, unit).to_root_units().magnitude != 0.0:
+        raise InputError(f"the units '{text}' scale a temperature with an offset", remedy="write 'K', 'degC' or 'degF' without a number")
+    return scale, unit
 
 
-def _angle_power(unit) -> float:
-    return float(registry().get_root_units(unit)[1]._units.get(_ANGLE_ROOT, 0))
+def _own_dimensions(unit) -> tuple[float, ...]:
+    """Exponents of the root units counted as dimensions of their own (angle, practical
+    salinity); all zero for ordinary units."""
+    roots = registry().get_root_units(unit)[1]._units
+    return tuple(float(roots.get(name, 0)) for name in _OWN_ROOTS)
 
 
 def _calendar_power(unit) -> float:
@@ -206,7 +233,10 @@ def quantity_kind(text: str) -> str:
     Raises :class:`InputError` for units :func:`parse_units` refuses.
     """
     unit = parse_units(text)
-    if _angle_power(unit):
+    angle, salinity = _own_dimensions(unit)
+    if salinity:
+        return "a practical salinity"
+    if angle:
         return "an angle" if not unit.dimensionality else f"an angle times {unit.dimensionality}"
     if not unit.dimensionality:
         return "a pure number"
@@ -225,7 +255,7 @@ def conversion(source: str, target: str, *, difference: bool = False) -> tuple[f
     length, or when either unit is refused by :func:`parse_units`.
     """
     ureg = registry()
-    src, tgt = parse_units(source), parse_units(target)
+    (src_scale, src), (tgt_scale, tgt) = parse_scaled(source), parse_scaled(target)
     mass_flux = ureg.Unit("kg m-2 s-1").dimensionality
     depth_rate = ureg.Unit("m s-1").dimensionality
     density = 1.0
@@ -239,7 +269,7 @@ def conversion(source: str, target: str, *, difference: bool = False) -> tuple[f
         f"units '{source}' ({quantity_kind(source)}) cannot be converted to '{target}' ({quantity_kind(target)})",
         remedy="check that both sources hold the same quantity (e.g. a temperature in K or degC)",
     )
-    if src.dimensionality != tgt.dimensionality or _angle_power(src) != _angle_power(tgt):
+    if src.dimensionality != tgt.dimensionality or _own_dimensions(src) != _own_dimensions(tgt):
         raise refused
     if _calendar_power(src) != _calendar_power(tgt):
         raise InputError(
@@ -247,8 +277,8 @@ def conversion(source: str, target: str, *, difference: bool = False) -> tuple[f
             remedy="convert with the month lengths of the file's calendar first, or give both in the same units",
         )
     try:
-        zero = ureg.Quantity(0.0, src).to(tgt).magnitude
-        one = ureg.Quantity(1.0, src).to(tgt).magnitude
+        zero = ureg.Quantity(0.0, src).to(tgt).magnitude / tgt_scale
+        one = ureg.Quantity(src_scale, src).to(tgt).magnitude / tgt_scale
     except Exception:
         raise refused from None
     a = (one - zero) * density

@@ -233,7 +233,7 @@ def test_canonical_forms_mean_the_same_in_udunits():
 
     for form in sorted(set(SPELLINGS.values())):
         udunits = cf_units.Unit(form)
-        si = next(t for t in ("K", "Pa", "m s-1", "kg m-2 s-1", "W m-2", "1", "m", "kg m-2", "m2 s-2") if udunits.is_convertible(t))
+        si = next(t for t in ("K", "Pa", "m s-1", "kg m-2 s-1", "W m-2", "1", "m", "kg m-2", "m2 s-2", "m3 s-1") if udunits.is_convertible(t))
         a, b = conversion(form, si)
         np.testing.assert_allclose(a * X + b, udunits.convert(X, si), rtol=1e-12, atol=1e-9, err_msg=form)
 
@@ -251,6 +251,9 @@ TRAPS = [
     ("mb", "m2"),          # the millibar is a pressure, not an area
     ("ms-1", "s-1"),
     ("mon", "s"),
+    ("psu", "g/kg"),       # practical salinity is a conductivity ratio; pint's psu is 1 (×1000)
+    ("psu", "1e-3"),
+    ("10 degC", "K"),      # a scaled offset unit means nothing
 ]
 
 
@@ -308,3 +311,21 @@ def test_the_cli_refuses_a_trap_naming_the_unit_and_the_file(nc_file, grid_facto
     err = capsys.readouterr().err
     assert code == 2 and needle in err and ("ref_trap.nc" in err or "run_trap.nc" in err)
     assert len(err.strip().splitlines()) == 1 and not (tmp_path / "t.csv").exists()
+
+
+@pytest.mark.parametrize(("source", "target", "pint_source", "pint_target"), [
+    ("1e-3", "g/kg", "0.001 * dimensionless", "gram / kilogram"),       # CF unit of sea_water_salinity
+    ("1e-3", "1", "0.001 * dimensionless", "dimensionless"),
+    ("10^-3", "%", "0.001 * dimensionless", "percent"),
+    ("100 Pa", "hPa", "100 * pascal", "hectopascal"),
+    ("kg m-2 s-1", "1e-3 kg m-2 s-1", "kilogram / meter ** 2 / second", "0.001 * kilogram / meter ** 2 / second"),
+    ("Sv", "m3 s-1", "1e6 * meter ** 3 / second", "meter ** 3 / second"),  # sverdrup (common practice in oceanography)
+    ("ppmv", "1", "1e-6 * dimensionless", "dimensionless"),
+])  # fmt: skip
+def test_numbers_inside_unit_strings_are_kept(source, target, pint_source, pint_target):
+    # Source: pint's default registry with the scale written by hand; UDUNITS-2 reads
+    # '1e-3' and '10^-3' as 0.001 as well.  pint alone parses '1e-3' only as a quantity,
+    # and taking its unit dropped the factor.
+    a, b = conversion(source, target)
+    expected = (UREG(pint_source) / UREG(pint_target)).to("dimensionless").magnitude
+    assert a == pytest.approx(float(expected), rel=1e-12) and b == 0.0
