@@ -21,6 +21,7 @@ from .views.overview import OverviewView
 from .views.profiles import ZonalMeanView
 from .views.results import Results
 from .views.scores import ScoresView
+from .views.section import SectionView
 from .views.series import SeriesView
 from .views.taylor import TaylorView
 
@@ -28,13 +29,15 @@ __all__ = ["VIEWS", "available_tabs", "build"]
 
 #: The result views in tab order.
 VIEWS: tuple[type[ResultView], ...] = (
-    MapsView, ZonalMeanView, SeriesView, CycleView, ScoresView, TaylorView, OverviewView, BudgetView,
+    MapsView, ZonalMeanView, SectionView, SeriesView, CycleView, ScoresView, TaylorView, OverviewView, BudgetView,
 )
 
 
 def available_tabs(results: Results) -> list[str]:
-    """The tabs this collection can fill (the energy budget needs its four fluxes)."""
-    return [v.tab for v in VIEWS if v is not BudgetView or budget_available(results)]
+    """The tabs this collection can fill (the energy budget needs its four fluxes, the
+    vertical section a variable on levels)."""
+    needs = {BudgetView: budget_available, SectionView: lambda r: any(r.levels(v) for v in r.variables())}
+    return [v.tab for v in VIEWS if v not in needs or needs[v](results)]
 
 
 def build(selection: Selection, results: Results) -> pn.template.BaseTemplate:

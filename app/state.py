@@ -7,8 +7,9 @@ that, so a half-made choice (a variable whose period is not checked yet) never r
 the core.
 
 The URL query carries every value, defaults included, under the names ``variable``,
-``reference``, ``models`` (comma-separated), ``region``, ``season``, ``period``
-(``YYYY-YYYY``), ``field`` and ``tab``.  Query values are validated against the options
+``level`` (``500 hPa``; empty for a variable without levels), ``reference``, ``models``
+(comma-separated), ``region``, ``season``, ``period`` (``YYYY-YYYY``), ``field`` and
+``tab``.  Query values are validated against the options
 before they are applied; a bad value falls back to the default and leaves a notice.
 
 This module does not import Panel: the state can be built and tested without a server.
@@ -24,6 +25,7 @@ from urllib.parse import quote, unquote, unquote_plus
 import param
 
 from evaluation.errors import InputError
+from evaluation.levels import default_level, parse_level
 from evaluation.regions import parse_region
 from evaluation.timeaxis import SEASONS, Period, parse_period, parse_season
 
@@ -53,6 +55,7 @@ FIELDS: dict[str, str] = {
 TABS: dict[str, str] = {
     "maps": "Maps",
     "zonal": "Zonal mean",
+    "section": "Vertical section",
     "series": "Time series",
     "cycle": "Seasonal cycle",
     "scores": "Scores",
@@ -62,7 +65,7 @@ TABS: dict[str, str] = {
 }
 
 #: The URL query names, in the order they are written.
-QUERY_NAMES: tuple[str, ...] = ("variable", "reference", "models", "region", "season", "period", "field", "tab")
+QUERY_NAMES: tuple[str, ...] = ("variable", "level", "reference", "models", "region", "season", "period", "field", "tab")
 
 #: How many runs a fresh session shows: enough to compare, few enough to read the maps.
 DEFAULT_RUNS = 3
@@ -79,6 +82,8 @@ class Options(Protocol):
 
     def models(self, variable: str) -> list[str]: ...
 
+    def levels(self, variable: str) -> list[str]: ...
+
 
 @dataclass(frozen=True)
 class Request:
@@ -91,6 +96,7 @@ class Request:
     season: str
     period: str
     field: str
+    level: str = ""  # "500 hPa"; empty for a variable without levels
 
     def query(self, *, tab: str) -> dict[str, str]:
         """Every URL value of this request, defaults included.
@@ -100,6 +106,7 @@ class Request:
         """
         return {
             "variable": self.variable,
+            "level": self.level,
             "reference": self.reference,
             "models": join_models(self.models),
             "region": self.region,
@@ -177,6 +184,7 @@ class Selection(param.Parameterized):
     """
 
     variable = param.Selector(objects=[], doc="The compared variable.")
+    level = param.Selector(default="", objects=[""], doc="The vertical level ('500 hPa'); '' without levels.")
     reference = param.Selector(objects=[], doc="The reference dataset.")
     models = param.ListSelector(default=[], objects=[], doc="The model runs shown.")
     region = param.String(default="global", doc="A region id of the core or box:S,N,W,E.")
@@ -209,7 +217,7 @@ class Selection(param.Parameterized):
         self._set_variable(variables[0])
         self.param.watch(self._variable_changed, ["variable"])
         self.param.watch(self._span_source_changed, ["reference"])
-        self.param.watch(self._choice_changed, ["models", "region", "season", "period", "field"])
+        self.param.watch(self._choice_changed, ["models", "region", "season", "period", "field", "level"])
 
     # ------------------------------------------------------------------ options
     def _set_variable(self, variable: str) -> None:
@@ -226,12 +234,18 @@ class Selection(param.Parameterized):
             self.param.models.default = models[:DEFAULT_RUNS]
             kept = [m for m in models if m in (self.models or [])]
             self.models = kept or models[:DEFAULT_RUNS]
+            levels = self._options.levels(variable) or [""]
+            self.param.level.objects = levels
+            self.param.level.default = default_level(levels)
+            if self.level not in levels:
+                self.level = self.param.level.default
 
     def defaults(self) -> dict[str, str]:
         """The value of every URL name when nothing is asked for (the period once settled)."""
         variable = self.param.variable.default
         return {
             "variable": variable,
+            "level": default_level(self._options.levels(variable)),
             "reference": self._options.references(variable)[0],
             "models": join_models(self._options.models(variable)[:DEFAULT_RUNS]),
             "region": self.param.region.default,
@@ -280,6 +294,8 @@ class Selection(param.Parameterized):
                 self._set_variable(value)
             else:
                 self.notify(f"Variable '{_echo(value)}' is not in this collection; showing {self.variable}.")
+        if "level" in query:
+            self._apply_level(query["level"])
         if "reference" in query:
             value = query["reference"].strip()
             if value in self.param.reference.objects:
@@ -336,6 +352,23 @@ class Selection(param.Parameterized):
                 self.tab = value
             else:
                 self.notify(f"Tab '{_echo(value)}' is not offered; showing {TABS[self.param.tab.default]}.")
+
+    def _apply_level(self, text: str) -> None:
+        """A level from a link: any spelling of a level offered (``500hPa``, ``50000 Pa``)."""
+        offered = [v for v in self.param.level.objects if v]
+        value = text.strip()
+        try:
+            value = parse_level(value).label() if value else ""
+        except InputError:
+            pass
+        if value in self.param.level.objects:
+            with param.parameterized.discard_events(self):
+                self.level = value
+            return
+        if offered:
+            self.notify(f"Level '{_echo(text)}' is not offered for {self.variable} ({', '.join(offered)}); showing {self.level}.")
+        elif text.strip():
+            self.notify(f"{self.variable} has no vertical levels; the link's level '{_echo(text)}' was ignored.")
 
     def query(self) -> dict[str, str]:
         """The URL values of the published request and the tab (empty before :meth:`settle`)."""
@@ -394,6 +427,7 @@ class Selection(param.Parameterized):
             season=self.season,
             period=self.period,
             field=self.field,
+            level=self.level,
         )
         if request != self.request:
             self.request = request

@@ -31,13 +31,16 @@ from .units import conversion, parse_units
 
 __all__ = [
     "KINDS",
+    "DEFAULT_LEVELS",
     "LEVEL_DIM",
     "LevelKind",
     "LevelRequest",
     "VerticalAxis",
+    "default_level",
     "describe_vertical",
     "format_level",
     "interpolate_levels",
+    "labels_from_listing",
     "level_labels",
     "parse_level",
     "section_weights",
@@ -558,3 +561,39 @@ def level_coordinate(axis: VerticalAxis, ds: xr.Dataset) -> xr.Variable:
     if standard_name:
         attrs = {**attrs, "standard_name": standard_name}
     return xr.Variable(LEVEL_DIM, axis.values, dict(attrs))
+
+
+#: The level a level variable is shown on first, per kind: 500 hPa, the classic
+#: mid-troposphere level (common practice); the lowest height and the shallowest depth.
+DEFAULT_LEVELS: dict[str, float] = {"pressure": 50000.0, "height": 0.0, "depth": 0.0}
+_SI = {"pressure": "Pa", "height": "m", "depth": "m"}
+
+
+def default_level(labels: Sequence[str]) -> str:
+    """The entry of ``labels`` (``["1000 hPa", "850 hPa", ...]``) to show first; ``""`` for none.
+
+    Notes
+    -----
+    The level nearest :data:`DEFAULT_LEVELS` of its kind; labels that cannot be read are
+    skipped; no readable label gives ``""``.
+    """
+    best, distance = "", np.inf
+    for label in labels:
+        try:
+            request = parse_level(label)
+        except InputError:
+            continue
+        kind = "pressure" if request.dimension == "pressure" else "height"
+        gap = abs(request.value_in(_SI[kind]) - DEFAULT_LEVELS[kind])
+        if gap < distance:
+            best, distance = label, gap
+    return best
+
+
+def labels_from_listing(text: str) -> list[str]:
+    """``"1000, 850, 500 hPa"`` (a file listing, :meth:`VerticalAxis.listing`) as ``["1000 hPa", ...]``."""
+    text = str(text).strip()
+    if not text or " " not in text:
+        return []
+    values, _, unit = text.rpartition(" ")
+    return [f"{v.strip()} {unit}" for v in values.split(",") if v.strip()]

@@ -66,7 +66,9 @@ def test_every_value_is_written_defaults_included(results: Results) -> None:
     query = selection.query()
     # the contract names of the issue, every one present and none empty
     assert tuple(query) == QUERY_NAMES
-    assert all(query[name] for name in QUERY_NAMES)
+    # every one but the level, which is empty for a variable without levels
+    assert all(query[name] for name in QUERY_NAMES if name != "level")
+    assert query["level"] == ("" if not results.levels(query["variable"]) else query["level"])
     assert query == selection.defaults()
     # the default period is the core's default rule for these sources
     assert query["period"] == str(results.comparison(query["reference"], query["variable"]).period)
@@ -97,7 +99,48 @@ def test_url_round_trip_reproduces_the_view(results: Results) -> None:
 
 def test_query_names_are_the_contract() -> None:
     # issue 3, "Shareable link": these names exactly
-    assert QUERY_NAMES == ("variable", "reference", "models", "region", "season", "period", "field", "tab")
+    # and `level`, the vertical level of a variable on levels (the --level of the CLI)
+    assert QUERY_NAMES == ("variable", "level", "reference", "models", "region", "season", "period", "field", "tab")
+
+
+def test_level_from_a_link_is_read_in_any_units(results: Results) -> None:
+    assert results.levels("ta") == ["1000 hPa", "850 hPa", "500 hPa", "250 hPa"]  # the reference's levels
+    selection = settled(results, {"variable": "ta", "level": "85000Pa"})
+    assert selection.request.level == "850 hPa" and selection.notices == []
+    assert selection.query()["level"] == "850 hPa"
+    selection.level = "250 hPa"
+    assert selection.request.level == "250 hPa"
+
+
+@pytest.mark.parametrize("value", ["700hPa", "2m", "warm", "<b>x</b>"])
+def test_level_not_offered_falls_back_with_a_notice(results: Results, value: str) -> None:
+    selection = settled(results, {"variable": "ta", "level": value})
+    assert selection.request.level == "500 hPa"  # the default: nearest 500 hPa
+    assert len(selection.notices) == 1 and "not offered" in selection.notices[0]
+
+
+def test_section_view_draws_the_core_sections(results: Results) -> None:
+    from app.views.look import load_extensions
+    from app.views.section import SectionView
+
+    load_extensions()  # the options of both plotting backends are set on the elements
+    selection = settled(results, {"variable": "ta", "level": "500hPa", "tab": "section"})
+    data = load(SectionView, selection, results)
+    runs = [n for n in data if n != selection.reference]
+    assert selection.reference in data and runs == ["larkspur-2"]  # the only run on levels
+    section = data["larkspur-2"]
+    assert section.attrs["bias"] < 0  # its cold upper troposphere (sample README)
+    view = SectionView(selection=selection, results=results)
+    assert len(view.figure(data, selection.request)) == 3  # reference, run, difference
+
+
+def test_level_of_a_variable_without_levels_is_empty(results: Results) -> None:
+    selection = settled(results, {"variable": "tas", "level": "500hPa"})
+    assert selection.request.level == "" and "no vertical levels" in selection.notices[0]
+    selection = settled(results, {"variable": "ta"})
+    selection.variable = "tas"
+    resettle(selection, results)
+    assert selection.request.level == ""
 
 
 BAD_VALUES = [
@@ -277,7 +320,7 @@ def test_revisited_selection_is_served_from_the_cache(results: Results) -> None:
     selection.region = "global"
     again = load(ScoresView, selection, results)
     assert again["tidy"].equals(first["tidy"])
-    key = ("scores", selection.reference, selection.variable, selection.period, "global", selection.season)
+    key = ("scores", selection.reference, selection.variable, selection.period, "global", selection.season, selection.level)
     assert key in results.products
 
 

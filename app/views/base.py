@@ -173,6 +173,8 @@ class ResultView(Viewer):
         if "variable" in self.uses:
             info = self.results.variable_info(request.variable)
             parts.append(f"{info.long_name} ({request.variable})" if info.long_name else request.variable)
+            if request.level:
+                parts[-1] += f" at {request.level}"
         if "reference" in self.uses:
             parts.append(f"against {request.reference}")
         if "models" in self.uses:

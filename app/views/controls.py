@@ -71,6 +71,8 @@ class Controls(Viewer):
             label="Variable", options={res.variable_info(v).label: v for v in sel.param.variable.objects}, value=sel.variable,
             css_classes=["gs-variable"],
         )
+        # shown only for a variable on several levels; the options are the reference's levels
+        self.level = pn.widgets.Select(label="Level", options=[""], value="", css_classes=["gs-level"], visible=False)
         self.reference = pn.widgets.Select(
             label="Reference", options=list(sel.param.reference.objects), value=sel.reference, css_classes=["gs-reference"]
         )
@@ -111,6 +113,7 @@ class Controls(Viewer):
 
         self.variable.param.watch(lambda e: setattr(sel, "variable", e.new), "value")
         self.reference.param.watch(lambda e: setattr(sel, "reference", e.new), "value")
+        self.level.param.watch(self._level_picked, "value")
         self.models.param.watch(self._models_picked, "value")
         self.region.param.watch(self._region_picked, "value")
         self.box.param.watch(self._box_typed, "value")
@@ -121,13 +124,14 @@ class Controls(Viewer):
         doc = pn.state.curdoc
         sel.param.watch(
             lambda *events: on_document(doc, self._show),
-            ["variable", "reference", "models", "region", "season", "period", "field", "span"],
+            ["variable", "level", "reference", "models", "region", "season", "period", "field", "span"],
         )
         self._show()
 
         self._layout = pn.Column(
             _section("Compare"),
             self.variable,
+            self.level,
             self.reference,
             pn.pane.HTML('<div class="gs-hint" style="margin-top:4px">Model runs</div>', margin=(0, 10)),
             self.models,
@@ -147,6 +151,10 @@ class Controls(Viewer):
         )
 
     # ------------------------------------------------------------------ widget -> selection
+    def _level_picked(self, event: param.parameterized.Event) -> None:
+        if event.new in self.selection.param.level.objects and event.new != self.selection.level:
+            self.selection.level = event.new
+
     def _models_picked(self, event: param.parameterized.Event) -> None:
         self.selection.models = list(event.new)
 
@@ -187,6 +195,8 @@ class Controls(Viewer):
         self.models.options = list(sel.param.models.objects)
         self.models.value = [m for m in sel.param.models.objects if m in sel.models]
         self.variable.value = sel.variable
+        levels = [v for v in sel.param.level.objects if v]
+        self.level.param.update(options=levels or [""], value=sel.level, visible=bool(levels), disabled=not levels)
         self.region.options = self._region_options()
         self.region.value = sel.region
         if sel.region.startswith("box:"):

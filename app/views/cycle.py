@@ -31,13 +31,13 @@ class CycleView(ResultView):
     )
 
     def key(self, request: Request) -> Any:
-        return (request.variable, request.reference, request.models, request.region, request.period)
+        return (request.variable, request.level, request.reference, request.models, request.region, request.period)
 
     async def load(self, request: Request) -> dict[str, Any]:
         results = self.results
         cycles = {}
         for name in (request.reference, *request.models):
-            args = (request.reference, request.variable, request.period, request.region, name)
+            args = (request.reference, request.variable, request.period, request.region, name, request.level)
             cycles[name] = await results.fetch(("cycle",) + args, results.seasonal_cycle, *args)
         return cycles
 

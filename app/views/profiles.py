@@ -27,13 +27,13 @@ class ZonalMeanView(ResultView):
     )
 
     def key(self, request: Request) -> Any:
-        return (request.variable, request.reference, request.models, request.season, request.period)
+        return (request.variable, request.level, request.reference, request.models, request.season, request.period)
 
     async def load(self, request: Request) -> dict[str, Any]:
         results = self.results
         profiles = {}
         for name in (request.reference, *request.models):
-            args = (request.reference, request.variable, request.period, request.season, name)
+            args = (request.reference, request.variable, request.period, request.season, name, request.level)
             profiles[name] = await results.fetch(("zonal",) + args, results.zonal_mean, *args)
         return profiles
 

@@ -30,6 +30,7 @@ from bokeh.colors import named
 from evaluation import io
 from evaluation.errors import InputError
 from evaluation.export import TIDY_COLUMNS
+from evaluation.levels import default_level, labels_from_listing
 from evaluation.regions import parse_region
 from evaluation.scoring import Comparison, Source
 from evaluation.timeaxis import Period, parse_period
@@ -117,6 +118,7 @@ class VariableInfo:
     long_name: str
     units: str
     standard_name: str = ""
+    levels: tuple[str, ...] = ()  # "1000 hPa", ...; empty for a variable without levels
 
     @property
     def label(self) -> str:
@@ -169,8 +171,11 @@ class Results:
                 for name, meta in listing.items():
                     if meta.get("has_time") == "False":
                         continue  # fixed fields (cell area, land fraction) are not compared
+                    if meta.get("level_problem"):
+                        continue  # refused by the core (model levels, ...): `gridscore check` says why
                     found.setdefault(name, {})[src.name] = VariableInfo(
-                        name, meta.get("long_name", ""), meta.get("units", ""), meta.get("standard_name", "")
+                        name, meta.get("long_name", ""), meta.get("units", ""), meta.get("standard_name", ""),
+                        tuple(labels_from_listing(meta.get("levels", ""))),
                     )
                 # the manifest's `variables = { tas = "TS" }`: this source holds tas as TS
                 for wanted, stored in getattr(src, "variables", {}).items():
@@ -201,6 +206,14 @@ class Results:
             if info is not None and (variable == name or (standard_name and info.standard_name == standard_name)):
                 return True
         return False
+
+    def levels(self, variable: str) -> list[str]:
+        """The levels offered for a variable: those of the first reference holding it."""
+        return list(self.variable_info(variable).levels)
+
+    def _level(self, variable: str, level: str) -> str | None:
+        """The level a comparison is made on: the one asked for, else the variable's default."""
+        return level or default_level(self.levels(variable)) or None
 
     def references(self, variable: str) -> list[str]:
         holders = self._variables.get(variable, {})
@@ -275,7 +288,7 @@ class Results:
         self._worker.shutdown(wait=False, cancel_futures=True)
 
     # ------------------------------------------------------------------ comparisons
-    def comparison(self, reference: str, variable: str, period: str | None = None) -> Comparison:
+    def comparison(self, reference: str, variable: str, period: str | None = None, level: str = "") -> Comparison:
         """The comparison of every run holding ``variable`` against ``reference``.
 
         Runs that the core rejects (unreadable, or not covering ``period``) are left out
@@ -284,20 +297,21 @@ class Results:
         years gives the same object.
         """
         with self._lock:
-            return self._entry(reference, variable, period)[0]
+            return self._entry(reference, variable, period, level)[0]
 
-    def left_out(self, reference: str, variable: str, period: str | None = None) -> tuple[str, ...]:
+    def left_out(self, reference: str, variable: str, period: str | None = None, level: str = "") -> tuple[str, ...]:
         """The runs that comparison could not use, each as ``"name: reason"``."""
         with self._lock:
-            return self._entry(reference, variable, period)[1]
+            return self._entry(reference, variable, period, level)[1]
 
-    def _entry(self, reference: str, variable: str, period: str | None) -> tuple[Comparison, tuple[str, ...]]:
+    def _entry(self, reference: str, variable: str, period: str | None, level: str = "") -> tuple[Comparison, tuple[str, ...]]:
+        level = self._level(variable, level) or ""
         if period is not None:
             period = str(parse_period(period))
-            default = self._entry(reference, variable, None)
+            default = self._entry(reference, variable, None, level)
             if str(default[0].period) == period:
                 return default
-        key = (reference, variable, period)
+        key = (reference, variable, period, level)
         entry = self._comparisons.get(key)
         if entry is not _MISSING:
             return entry
@@ -307,7 +321,8 @@ class Results:
         left: list[str] = []
         while True:
             try:
-                cmp = Comparison(reference=self.source(reference), models=runs, variable=variable, period=period, regrid=self.regrid)
+                cmp = Comparison(reference=self.source(reference), models=runs, variable=variable, period=period, regrid=self.regrid,
+                                 level=level or None)
                 break
             except InputError as error:
                 culprit = next((r.name for r in runs if _blames(error, r)), None)
@@ -327,18 +342,18 @@ class Results:
         return cmp.span, cmp.period
 
     # ------------------------------------------------------------------ products (worker thread)
-    def scores(self, reference: str, variable: str, period: str, region: str, season: str) -> pd.DataFrame:
+    def scores(self, reference: str, variable: str, period: str, region: str, season: str, level: str = "") -> pd.DataFrame:
         """The tidy score table of every run of the comparison (the views pick theirs)."""
-        cmp = self.comparison(reference, variable, period)
+        cmp = self.comparison(reference, variable, period, level)
         return cmp.scores(regions=[parse_region(region).id], seasons=[season])
 
-    def provenance(self, reference: str, variable: str, period: str, region: str, season: str) -> dict:
-        cmp = self.comparison(reference, variable, period)
+    def provenance(self, reference: str, variable: str, period: str, region: str, season: str, level: str = "") -> dict:
+        cmp = self.comparison(reference, variable, period, level)
         return cmp.provenance(regions=[parse_region(region).id], seasons=[season])
 
-    def map_field(self, reference: str, variable: str, period: str, season: str, kind: str, name: str) -> xr.DataArray:
+    def map_field(self, reference: str, variable: str, period: str, season: str, kind: str, name: str, level: str = "") -> xr.DataArray:
         """One field of :class:`~evaluation.scoring.Comparison`: ``kind`` is the method name."""
-        cmp = self.comparison(reference, variable, period)
+        cmp = self.comparison(reference, variable, period, level)
         method = {
             "climatology": cmp.climatology,
             "difference": cmp.difference,
@@ -347,17 +362,21 @@ class Results:
         }[kind]
         return method(name, season).load()
 
-    def zonal_mean(self, reference: str, variable: str, period: str, season: str, name: str) -> xr.DataArray:
-        return self.comparison(reference, variable, period).zonal_mean(name, season).load()
+    def zonal_mean(self, reference: str, variable: str, period: str, season: str, name: str, level: str = "") -> xr.DataArray:
+        return self.comparison(reference, variable, period, level).zonal_mean(name, season).load()
 
-    def regional_series(self, reference: str, variable: str, period: str, region: str, season: str, name: str) -> xr.DataArray:
-        return self.comparison(reference, variable, period).regional_series(name, parse_region(region).id, season).load()
+    def zonal_section(self, reference: str, variable: str, period: str, season: str, name: str, level: str = "") -> xr.Dataset:
+        """Zonal-mean section (level × latitude) of a run and the reference, with its scores."""
+        return self.comparison(reference, variable, period, level).zonal_section(name, season).load()
 
-    def seasonal_cycle(self, reference: str, variable: str, period: str, region: str, name: str) -> xr.DataArray:
-        return self.comparison(reference, variable, period).seasonal_cycle(name, parse_region(region).id).load()
+    def regional_series(self, reference: str, variable: str, period: str, region: str, season: str, name: str, level: str = "") -> xr.DataArray:
+        return self.comparison(reference, variable, period, level).regional_series(name, parse_region(region).id, season).load()
 
-    def units(self, reference: str, variable: str, period: str) -> str:
-        return self.comparison(reference, variable, period).units
+    def seasonal_cycle(self, reference: str, variable: str, period: str, region: str, name: str, level: str = "") -> xr.DataArray:
+        return self.comparison(reference, variable, period, level).seasonal_cycle(name, parse_region(region).id).load()
+
+    def units(self, reference: str, variable: str, period: str, level: str = "") -> str:
+        return self.comparison(reference, variable, period, level).units
 
     def overview(self, reference: str, period: str, regions: tuple[str, ...], seasons: tuple[str, ...]) -> pd.DataFrame:
         """Scores of every run for every variable of the collection (for the summary heat map).

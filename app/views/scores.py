@@ -133,14 +133,14 @@ class ScoresView(ResultView):
     )
 
     def key(self, request: Request) -> Any:
-        return (request.variable, request.reference, request.models, request.region, request.season, request.period)
+        return (request.variable, request.level, request.reference, request.models, request.region, request.season, request.period)
 
     async def load(self, request: Request) -> dict[str, Any]:
         results = self.results
-        args = (request.reference, request.variable, request.period, request.region, request.season)
+        args = (request.reference, request.variable, request.period, request.region, request.season, request.level)
         tidy = await results.fetch(("scores",) + args, results.scores, *args)
         record = await results.fetch(("provenance",) + args, results.provenance, *args)
-        left = await results.run(results.left_out, request.reference, request.variable, request.period)
+        left = await results.run(results.left_out, request.reference, request.variable, request.period, request.level)
         # a partial table: sources with no rows for this season, with the reason (plain text)
         left = (*left, *(f"{o['source']} {o['season']}: {o['reason']}" for o in record.get("omitted", []) if o["season"] == request.season))
         mine = tidy[tidy["model"].isin(request.models)].reset_index(drop=True)

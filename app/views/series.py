@@ -31,13 +31,13 @@ class SeriesView(ResultView):
     )
 
     def key(self, request: Request) -> Any:
-        return (request.variable, request.reference, request.models, request.region, request.season, request.period)
+        return (request.variable, request.level, request.reference, request.models, request.region, request.season, request.period)
 
     async def load(self, request: Request) -> dict[str, Any]:
         results = self.results
         series = {}
         for name in (request.reference, *request.models):
-            args = (request.reference, request.variable, request.period, request.region, request.season, name)
+            args = (request.reference, request.variable, request.period, request.region, request.season, name, request.level)
             series[name] = await results.fetch(("series",) + args, results.regional_series, *args)
         return series
 

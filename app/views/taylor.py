@@ -105,11 +105,11 @@ class TaylorView(ResultView):
         return [toggle]
 
     def key(self, request: Request) -> Any:
-        return (request.variable, request.reference, request.models, request.region, request.season, request.period, self.normalised)
+        return (request.variable, request.level, request.reference, request.models, request.region, request.season, request.period, self.normalised)
 
     async def load(self, request: Request) -> dict[str, Any]:
         results = self.results
-        args = (request.reference, request.variable, request.period, request.region, request.season)
+        args = (request.reference, request.variable, request.period, request.region, request.season, request.level)
         tidy = await results.fetch(("scores",) + args, results.scores, *args)
         units = await results.fetch(("units",) + args[:3], results.units, *args[:3])
         return {"tidy": tidy[tidy["model"].isin(request.models)], "units": units}
