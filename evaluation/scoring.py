@@ -44,7 +44,7 @@ from .timeaxis import (
     season_means,
     years_with_data,
 )
-from .timecoding import COMPLETENESS_RULE, frequency
+from .timecoding import COMPLETENESS_RULE, NOTES_ATTR, frequency
 from .units import cf_units, convert, trend_units
 
 __all__ = ["Source", "Comparison", "TIDY_COLUMNS", "score_table", "preferred_units"]
@@ -344,6 +344,10 @@ class Comparison:
                 + f"; the runs' means over {self.period} are compared with it, and ref_trend, ref_trend_pvalue "
                 "and iav_ratio, which need the reference's years, are left empty"
             )
+        for name, prep in self._prepared.items():
+            for note in str(prep.monthly["time"].attrs.get(NOTES_ATTR, "")).split(" | "):
+                if note:
+                    self.notes.append(f"'{name}': {note}")  # e.g. a calendar spelling read as its CF name
         monthly_from = [n for n, p in self._prepared.items() if p.monthly["time"].attrs.get("gridscore_from") == "sub-monthly"]
         if monthly_from:
             self.notes.append(f"monthly means built from sub-monthly steps for {', '.join(monthly_from)}: {COMPLETENESS_RULE}")

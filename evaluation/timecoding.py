@@ -43,6 +43,7 @@ __all__ = [
     "CALENDAR_SPELLINGS",
     "COMPLETENESS_RULE",
     "KIND_ATTR",
+    "NOTES_ATTR",
     "canonical",
     "canonical_calendar",
     "find_time",
@@ -93,6 +94,8 @@ COMPLETENESS_RULE = (
 
 #: Attribute on the decoded ``time`` coordinate naming its kind (see :func:`frequency`).
 KIND_ATTR = "gridscore_kind"
+#: Attribute on the decoded ``time`` coordinate holding decoding notes (calendar spellings), " | "-separated.
+NOTES_ATTR = "gridscore_time_notes"
 #: Coordinate along ``time`` holding each step's interval length in days (from bounds).
 INTERVAL = "time_interval_days"
 
@@ -393,6 +396,7 @@ def decode(ds: xr.Dataset, *, file: str | None = None, notes: list[str] | None =
         reference date, fractional months, missing time values.
     """
     file = file or ds.encoding.get("source")
+    notes = [] if notes is None else notes
     name = find_time(ds)
     if name is None:
         month = _month_coordinate(ds)
@@ -432,6 +436,8 @@ def decode(ds: xr.Dataset, *, file: str | None = None, notes: list[str] | None =
     new_attrs.update(standard_name="time", axis="T", calendar=cal)
     if kind:
         new_attrs[KIND_ATTR] = kind
+    if notes:
+        new_attrs[NOTES_ATTR] = " | ".join(dict.fromkeys(notes))  # shown by the scoring as notes
     out = ds.drop_vars(drop).assign_coords({name: (t.dims, values, new_attrs)})
     out[name].encoding = {"calendar": cal, "units": _text(units) if units else None}
     if interval is not None:

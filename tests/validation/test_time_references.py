@@ -331,3 +331,18 @@ def test_a_climatology_reference_has_a_level_series_and_no_trend_difference(tmp_
     assert series.size == 4 and np.ptp(series) == 0.0  # the same climatology in every year of the period
     with pytest.raises(InputError, match="no trend"):
         cmp.trend_difference("run", "ANN")
+
+
+def test_a_non_cf_calendar_spelling_scores_like_its_cf_name_with_a_note(tmp_path):
+    # '365_days' is not a CF name (CF 1.10 section 4.4.1 lists 365_day / noleap); it is read as 365_day
+    months = months_of(1991, 1993)
+    ref = monthly_file(tmp_path / "ref.nc", months, "noleap")
+    cf = monthly_file(tmp_path / "cf.nc", months, "365_day", seed=0.4)
+    plural = monthly_file(tmp_path / "plural.nc", months, "365_day", seed=0.4)
+    with xr.open_dataset(plural, decode_times=False) as raw:
+        ds = raw.load()
+    ds["time"].attrs["calendar"] = "365_days"
+    ds.to_netcdf(tmp_path / "plural2.nc")
+    pd.testing.assert_series_equal(table(ref, {"run": cf}), table(ref, {"run": tmp_path / "plural2.nc"}), check_exact=True)
+    cmp = Comparison(reference=Source("ref", "reference", (str(ref),)), models=[Source("run", "model", (str(tmp_path / "plural2.nc"),))], variable="tas", cache=False)
+    assert any("'365_days'" in n and "'365_day'" in n for n in cmp.notes)
