@@ -220,7 +220,7 @@ def _check_complete(path: str) -> None:
 
 
 def _unreadable(path: str, exc: BaseException) -> InputError:
-    text = " ".join(str(exc).split())[:160] or type(exc).__name__
+    text = " ".join(str(exc).split()) or type(exc).__name__  # whole: the cause must not be cut off
     return InputError(
         f"cannot read the file ({text})",
         file=path,
