@@ -124,7 +124,7 @@ def write_curvilinear(
 ) -> Path:
     """A field on 2-D latitude/longitude (``coordinates`` attribute, optional CF vertex bounds)."""
     coords, year, month = _time_coord(start_year, years)
-    data = _values(field, lat, lon, year, month) if values is None else values
+    data = _values(field, lat, lon, year, month) if values is None else np.broadcast_to(values, (year.size, *lat.shape)).copy()
     ds = xr.Dataset(coords=coords)
     ds["nav_lat"] = (dims, lat, {"standard_name": "latitude", "units": "degrees_north"})
     ds["nav_lon"] = (dims, lon, {"standard_name": "longitude", "units": "degrees_east"})
@@ -158,6 +158,7 @@ def write_mesh(
     standard_name: str = "air_temperature",
     area: np.ndarray | None = None,
     dtype: str = "float64",
+    standard_names: bool = False,
 ) -> Path:
     """A field on an unstructured mesh: dimension nCells, 1-D centres (degrees in, stored as ``angle_units``)."""
     coords, year, month = _time_coord(start_year, years)
@@ -168,6 +169,9 @@ def write_mesh(
     lon_units = {"radians": "radians", None: None}.get(angle_units, "degrees_east")
     ds[names[0]] = ("nCells", lat * scale, {} if lat_units is None else {"units": lat_units})
     ds[names[1]] = ("nCells", lon * scale, {} if lon_units is None else {"units": lon_units})
+    if standard_names:
+        ds[names[0]].attrs["standard_name"] = "latitude"
+        ds[names[1]].attrs["standard_name"] = "longitude"
     attrs = {"standard_name": standard_name, "units": units}
     if area is not None:
         ds["areaCell"] = ("nCells", area, {"units": "m2"})

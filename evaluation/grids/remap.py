@@ -9,8 +9,8 @@ source kind        conservative                 bilinear               nearest
 =================  ===========================  =====================  ==============
 regular            exact overlaps (xarray-      linear in lat/lon      nearest centre
                    regrid interval tools)       (xarray-regrid)
-rotated            exact overlaps of the        pyresample bilinear    nearest centre
-                   sampled cells (shapely)
+rotated            exact overlaps of the        bilinear in rotated    nearest centre
+                   sampled cells (shapely)      coordinates (scipy)
 curvilinear        as rotated                   pyresample bilinear    nearest centre
 unstructured       area-weighted mean of the    —                      nearest centre
                    cells centred in each
@@ -62,10 +62,10 @@ REMAPPERS: dict[tuple[str, str], Remapper] = {
     ("regular", "bilinear"): Remapper(remap_regular.bilinear, "bilinear in latitude and longitude"),
     ("regular", "nearest"): Remapper(remap_points.nearest, _NEAREST),
     ("rotated", "conservative"): Remapper(_polygons("rotated"), _SAMPLED),
-    ("rotated", "bilinear"): Remapper(remap_points.bilinear, "bilinear between the four surrounding centres (pyresample)"),
+    ("rotated", "bilinear"): Remapper(remap_points.bilinear_rotated, "bilinear in rotated latitude and longitude"),
     ("rotated", "nearest"): Remapper(remap_points.nearest, _NEAREST),
     ("curvilinear", "conservative"): Remapper(_polygons("curvilinear"), _SAMPLED),
-    ("curvilinear", "bilinear"): Remapper(remap_points.bilinear, "bilinear between the four surrounding centres (pyresample)"),
+    ("curvilinear", "bilinear"): Remapper(remap_points.bilinear, "bilinear between the four nearest centres (pyresample)"),
     ("curvilinear", "nearest"): Remapper(remap_points.nearest, _NEAREST),
     ("unstructured", "conservative"): Remapper(
         remap_points.binned,
@@ -88,7 +88,7 @@ def _remapper(kind: str, method: str) -> Remapper:
         raise InputError(f"unknown regrid method '{method}'", remedy=f"use one of {', '.join(REGRID_METHODS)}")
     if (kind, method) not in REMAPPERS:
         offered = [m for (k, m) in REMAPPERS if k == kind]
-        raise InputError(f"'{method}' remapping is not available from a {kind} grid", remedy=f"use --regrid {' or '.join(offered)}")
+        raise InputError(f"'{method}' remapping is not available from {kind} grids", remedy=f"use --regrid {' or '.join(offered)}")
     return REMAPPERS[(kind, method)]
 
 

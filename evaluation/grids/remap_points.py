@@ -8,8 +8,14 @@
   mean of the mesh cells whose centres fall inside it; a target cell holding no centre
   (a target finer than the mesh) takes the nearest cell as above.  This is not exactly
   conservative: a mesh cell counts wholly for the target cell holding its centre.
-* ``bilinear`` (rotated and curvilinear grids): pyresample's bilinear resampler, which
-  finds the four surrounding source centres and interpolates bilinearly between them.
+* ``bilinear`` from a rotated grid: the target centres are turned into rotated
+  coordinates, where the source is a regular grid, and interpolated bilinearly there
+  (scipy's RegularGridInterpolator) — exact for fields linear in rotated latitude and
+  longitude.
+* ``bilinear`` from a curvilinear grid: pyresample's bilinear resampler.  It takes the four
+  nearest source centres, which are not always the corners of the enclosing cell: on a
+  sheared test grid 92 % of the targets are exact for a linear field and the rest are
+  off by up to 1 % of the field's range (measured in the tests).
 """
 
 from __future__ import annotations
@@ -21,7 +27,7 @@ import xarray as xr
 from .remap_sparse import SOURCE_GRID_COORDS, apply_matrix, cached
 from .spherical import EARTH_RADIUS, to_xyz
 
-__all__ = ["nearest", "binned", "bilinear", "source_spacing"]
+__all__ = ["nearest", "binned", "bilinear", "bilinear_rotated", "source_spacing"]
 
 
 def _centres(target: xr.Dataset) -> tuple[np.ndarray, np.ndarray]:
@@ -102,8 +108,13 @@ def binned(da: xr.DataArray, source_grid: xr.Dataset, target: xr.Dataset) -> xr.
 
 def bilinear(da: xr.DataArray, source_grid: xr.Dataset, target: xr.Dataset) -> xr.DataArray:
     """Bilinear interpolation from a logically rectangular grid (pyresample)."""
-    from pyresample import geometry
-    from pyresample.bilinear import NumpyBilinearResampler
+    import warnings
+
+    with warnings.catch_warnings():
+        # pyresample warns at import that its optional zarr-based resampler is unavailable
+        warnings.simplefilter("ignore")
+        from pyresample import geometry
+        from pyresample.bilinear import NumpyBilinearResampler
 
     tlat, tlon = target["lat"].values, target["lon"].values
     lon2, lat2 = np.meshgrid(tlon, tlat)
@@ -119,8 +130,47 @@ def bilinear(da: xr.DataArray, source_grid: xr.Dataset, target: xr.Dataset) -> x
     def kernel(x: np.ndarray) -> np.ndarray:
         lead = x.shape[:-2]
         flat = np.asarray(x, dtype="float64").reshape(-1, *x.shape[-2:])
-        out = np.stack([resampler.resample(f, fill_value=np.nan)[::-1] for f in flat]) if flat.shape[0] else np.empty((0, *lon2.shape))
+        with warnings.catch_warnings():
+            # pyproj warns about the PROJ-string form of EPSG:4326, numpy about 0/0 for targets
+            # outside the source (they come out NaN, as they should)
+            warnings.simplefilter("ignore")
+            out = np.stack([resampler.resample(f, fill_value=np.nan)[::-1] for f in flat]) if flat.shape[0] else np.empty((0, *lon2.shape))
         return out.reshape(*lead, *lon2.shape)
+
+    src = da.drop_vars([c for c in SOURCE_GRID_COORDS if c in da.coords])
+    if src.chunks is not None:
+        src = src.chunk({"y": -1, "x": -1})
+    out = xr.apply_ufunc(
+        kernel,
+        src,
+        input_core_dims=[["y", "x"]],
+        output_core_dims=[["lat", "lon"]],
+        dask="parallelized",
+        output_dtypes=["float64"],
+        dask_gufunc_kwargs={"output_sizes": {"lat": tlat.size, "lon": tlon.size}},
+    )
+    return out.assign_coords(lat=tlat, lon=tlon)
+
+
+def bilinear_rotated(da: xr.DataArray, source_grid: xr.Dataset, target: xr.Dataset) -> xr.DataArray:
+    """Bilinear interpolation in rotated coordinates, where a rotated grid is regular."""
+    from scipy.interpolate import RegularGridInterpolator
+
+    from .rotated import true_to_rotated
+
+    tlat, tlon = target["lat"].values, target["lon"].values
+    lon2, lat2 = np.meshgrid(tlon, tlat)
+    rlon, rlat = true_to_rotated(lon2, lat2, tuple(source_grid["crs"].attrs.items()))
+    y, x = source_grid["y"].values, source_grid["x"].values
+    ys, xs = (slice(None, None, -1) if y[0] > y[-1] else slice(None)), (slice(None, None, -1) if x[0] > x[-1] else slice(None))
+    rlon = np.where(rlon < x[xs][0], rlon + 360.0, rlon)  # a rotated axis running past 180°
+    points = np.stack([rlat.ravel(), rlon.ravel()], axis=-1)
+
+    def kernel(v: np.ndarray) -> np.ndarray:
+        lead = v.shape[:-2]
+        flat = np.asarray(v, dtype="float64").reshape(-1, *v.shape[-2:])
+        out = [RegularGridInterpolator((y[ys], x[xs]), f[ys][:, xs], bounds_error=False, fill_value=np.nan)(points) for f in flat]
+        return np.asarray(out).reshape(*lead, tlat.size, tlon.size)
 
     src = da.drop_vars([c for c in SOURCE_GRID_COORDS if c in da.coords])
     if src.chunks is not None:

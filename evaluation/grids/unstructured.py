@@ -50,6 +50,7 @@ def _angle_units(var: xr.Variable, axis: str) -> str | None:
 
 
 def _is(var: xr.Variable, axis: str) -> bool:
+    """Latitude/longitude by standard_name or by units (radians need the standard_name to tell which)."""
     wanted = "latitude" if axis == "lat" else "longitude"
     return attr(var, "standard_name") == wanted or unit_key(attr(var, "units")) in (LAT_UNITS if axis == "lat" else LON_UNITS)
 
