@@ -27,9 +27,8 @@ from dataclasses import dataclass
 import numpy as np
 import xarray as xr
 
-from . import timecoding
+from . import grids, timecoding
 from .errors import InputError
-from . import grids
 
 __all__ = [
     "CF_CALENDARS",
