@@ -67,9 +67,10 @@ def test_demo_manifest_file_and_folder_give_the_same_collection(demo: Path) -> N
 
 
 def test_demo_variables_are_the_shared_time_varying_ones(demo: Path) -> None:
-    # the scenario: the references hold all six variables between them, every one is also
-    # in some run; the land fraction sftlf is a fixed field and is not compared
-    assert Collection.from_path(demo).variables() == ["pr", "psl", "rlut", "rsdt", "rsut", "tas"]
+    # the scenario: the references hold all seven variables between them (ta on pressure
+    # levels), every one is also in some run; the land fraction sftlf is a fixed field and
+    # is not compared
+    assert Collection.from_path(demo).variables() == ["pr", "psl", "rlut", "rsdt", "rsut", "ta", "tas"]
 
 
 def test_variables_need_a_model_and_a_reference(demo: Path, tmp_path: Path) -> None:
@@ -123,7 +124,7 @@ def test_folder_layout_without_manifest(demo: Path, tmp_path: Path) -> None:
     assert [s.name for s in collection.references] == ["halyard-rean", "tessera-obs"]  # sorted folders
     assert [s.name for s in collection.models] == ["cobble-b", "larkspur-2", "pumice-ctl", "tidewell-3"]
     assert collection.source("cobble-b").paths == (str(folder.resolve() / "runs" / "cobble-b" / "*.nc"),)
-    assert collection.variables() == ["pr", "psl", "rlut", "rsdt", "rsut", "tas"]
+    assert collection.variables() == ["pr", "psl", "rlut", "rsdt", "rsut", "ta", "tas"]
 
 
 def test_unknown_source_names_the_known_ones(demo: Path) -> None:
