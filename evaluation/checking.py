@@ -94,7 +94,9 @@ class FileReport:
             what.append(f"calendar {self.calendar}")
         if self.span:
             steps = self.span["steps"]
-            what.append(f"{self.span['start']} to {self.span['end']} ({steps} step{'s' if steps != 1 else ''})")
+            what.append(
+                f"{self.span['start']} to {self.span['end']} ({steps} step{'s' if steps != 1 else ''})"
+            )
         if self.variables:
             what.append("variables " + ", ".join(_variable_text(v) for v in self.variables))
         verdict = "can be scored" if self.can_score else "cannot be scored"
@@ -149,8 +151,15 @@ def check_file(path: str) -> FileReport:
             report.notes += _attribute_notes(raw)
             report.notes += timecoding.stamp_notes(raw)
             desc = grids.describe(raw, where=path)
-            report.grid = {"kind": desc.kind, "size": "x".join(map(str, desc.shape)), "dims": list(desc.dims), "cells": desc.cells}
-            report.variables = [v for v in report.variables if v["name"] not in (desc.lat, desc.lon)]  # 2-D coordinates
+            report.grid = {
+                "kind": desc.kind,
+                "size": "x".join(map(str, desc.shape)),
+                "dims": list(desc.dims),
+                "cells": desc.cells,
+            }
+            report.variables = [
+                v for v in report.variables if v["name"] not in (desc.lat, desc.lon)
+            ]  # 2-D coordinates
             report.notes += list(desc.notes)
             if desc.kind == "regular":
                 report.notes += _bounds_notes(raw, desc)
@@ -158,16 +167,22 @@ def check_file(path: str) -> FileReport:
     except InputError as err:
         report.problems.append(_sentence(err))
         return report
-    except Exception as exc:  # a reader's failure on a file nobody foresaw: one line, and the other files still checked
+    except (
+        Exception
+    ) as exc:  # a reader's failure on a file nobody foresaw: one line, and the other files still checked
         if os.environ.get("GRIDSCORE_DEBUG"):
             raise
         text = " ".join(f"{type(exc).__name__}: {exc}".split())[:200]
-        report.problems.append(f"gridscore could not read this file ({text}) — please report it; GRIDSCORE_DEBUG=1 shows the traceback")
+        report.problems.append(
+            f"gridscore could not read this file ({text}) — please report it; GRIDSCORE_DEBUG=1 shows the traceback"
+        )
         return report
     _describe_time(ds, report)
     refused = dict(ds.attrs.get(io.REFUSED_ATTR, {}) or {})
     report.problems += [str(why) for why in refused.values()]
-    report.variables = [_as_opened(v, ds) for v in report.variables if v["name"] in ds.data_vars or v["name"] in refused]
+    report.variables = [
+        _as_opened(v, ds) for v in report.variables if v["name"] in ds.data_vars or v["name"] in refused
+    ]
     _check_variables(report, set(refused))
     report.can_score = not report.problems
     return report
@@ -211,7 +226,11 @@ def _describe_time(ds: xr.Dataset, report: FileReport) -> None:
     values = t.values
     report.frequency = timecoding.frequency(t)
     report.calendar = str(getattr(values[0], "calendar", "") or t.encoding.get("calendar", "")) or None
-    report.span = {"start": f"{values[0].year:04d}-{values[0].month:02d}", "end": f"{values[-1].year:04d}-{values[-1].month:02d}", "steps": int(values.size)}
+    report.span = {
+        "start": f"{values[0].year:04d}-{values[0].month:02d}",
+        "end": f"{values[-1].year:04d}-{values[-1].month:02d}",
+        "steps": int(values.size),
+    }
     if report.frequency == "monthly" and complete_years(t) is None:
         months = sorted({v.month for v in values})
         names = ", ".join(calendar.month_abbr[m].upper() for m in months)
@@ -230,7 +249,9 @@ def _check_variables(report: FileReport, refused: set[str]) -> None:
             continue  # the opener said why (io.REFUSED_ATTR)
         if not v["units"]:
             if v["has_time"]:
-                report.problems.append(f"{where} has no units attribute — add a CF units attribute (e.g. 'K', 'kg m-2 s-1')")
+                report.problems.append(
+                    f"{where} has no units attribute — add a CF units attribute (e.g. 'K', 'kg m-2 s-1')"
+                )
             continue
         try:
             parse_units(v["units"])
@@ -247,9 +268,13 @@ def _check_variables(report: FileReport, refused: set[str]) -> None:
         fixed = all(v["standard_name"] in _FIXED_STANDARD_NAMES for v in report.variables)
         names = ", ".join(v["name"] for v in report.variables)
         if fixed:
-            report.notes.append(f"fixed fields only ({names}): read beside the time series of the same source, not scored on their own")
+            report.notes.append(
+                f"fixed fields only ({names}): read beside the time series of the same source, not scored on their own"
+            )
         else:
-            report.problems.append(f"no variable with a time axis ({names}) — give monthly, annual or climatological time series")
+            report.problems.append(
+                f"no variable with a time axis ({names}) — give monthly, annual or climatological time series"
+            )
 
 
 def _attribute_notes(raw: xr.Dataset) -> list[str]:
@@ -272,4 +297,6 @@ def _bounds_notes(raw: xr.Dataset, desc) -> list[str]:
 
 def to_json(reports: Sequence[FileReport]) -> str:
     """The reports as a JSON document: ``{"can_score": bool, "files": [...]}``."""
-    return json.dumps({"can_score": all(r.can_score for r in reports), "files": [r.as_dict() for r in reports]}, indent=2)
+    return json.dumps(
+        {"can_score": all(r.can_score for r in reports), "files": [r.as_dict() for r in reports]}, indent=2
+    )

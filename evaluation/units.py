@@ -13,10 +13,13 @@ keep a unit string from being read as something it does not mean:
   a Celsius degree, 57.3 times too large, in pint and in UDUNITS alike);
 * :data:`AMBIGUOUS`, spellings refused outright because the registries disagree on
   them (``C`` is the coulomb in UDUNITS and pint, degrees Celsius in cf-xarray);
-* angles (degree, radian) count as a dimension of their own, although pint and UDUNITS
-  take them as dimensionless, so that a field in ``degrees`` is never turned into a
-  fraction by a factor of π/180; and a month or a year, which have no fixed length,
-  are never converted into days or seconds.
+* angles (degree, radian) and practical salinity count as dimensions of their own,
+  although pint and UDUNITS take them as dimensionless, so that a field in ``degrees``
+  is never turned into a fraction by a factor of π/180; and a month or a year, which
+  have no fixed length, are never converted into days or seconds.
+
+A number inside a unit string is kept (``1e-3``, CF's unit of salinity, is 0.001).
+Anomalies (:func:`is_difference`) convert without the Celsius offset.
 """
 
 from __future__ import annotations

@@ -82,7 +82,19 @@ def test_check_agrees_with_score(files, case, tmp_path):
     # the definition of "can be scored": score against a good reference succeeds exactly
     # when check passes the file
     out = tmp_path / "t.csv"
-    score = main(["score", "--reference", f"obs={files['ok']}", "--model", f"m={files[case]}", "--variable", "tas", "--output", str(out)])
+    score = main(
+        [
+            "score",
+            "--reference",
+            f"obs={files['ok']}",
+            "--model",
+            f"m={files[case]}",
+            "--variable",
+            "tas",
+            "--output",
+            str(out),
+        ]
+    )
     assert (score == 0) == check_file(str(files[case])).can_score
 
 
@@ -91,13 +103,23 @@ def test_check_agrees_with_score(files, case, tmp_path):
     ("lunar", "calendar"), ("noise", "cannot read"), ("half3", "truncated"),
 ])  # fmt: skip
 def test_problems_name_the_true_reason(files, case, needle):
-    assert any(needle in p for p in check_file(str(files[case])).problems), check_file(str(files[case])).problems
+    assert any(needle in p for p in check_file(str(files[case])).problems), check_file(
+        str(files[case])
+    ).problems
 
 
 def test_summary_says_what_the_file_is(files, capsys):
     assert main(["check", str(files["ok"])]) == 0
     first = capsys.readouterr().out.splitlines()[0]
-    for part in (str(files["ok"]), "can be scored", "regular grid 12x24", "monthly", "calendar noleap", "1995-01 to 1996-12 (24 steps)", "tas [K]"):
+    for part in (
+        str(files["ok"]),
+        "can be scored",
+        "regular grid 12x24",
+        "monthly",
+        "calendar noleap",
+        "1995-01 to 1996-12 (24 steps)",
+        "tas [K]",
+    ):
         assert part in first, part
 
 
@@ -110,19 +132,42 @@ def test_notes_are_not_problems(files):
 
 
 def test_json_output(files, capsys):
-    code = main(["check", "--json", str(files["ok"]), str(files["degdotc"]), str(files["noise"]), str(files["ok"].parent / "absent.nc")])
+    code = main(
+        [
+            "check",
+            "--json",
+            str(files["ok"]),
+            str(files["degdotc"]),
+            str(files["noise"]),
+            str(files["ok"].parent / "absent.nc"),
+        ]
+    )
     record = json.loads(capsys.readouterr().out)
     assert code == 2 and record["can_score"] is False
     by_name = {Path(f["path"]).name: f for f in record["files"]}
     ok = by_name["ok.nc"]
     assert ok["can_score"] and ok["grid"]["kind"] == "regular" and ok["grid"]["size"] == "12x24"
-    assert ok["frequency"] == "monthly" and ok["calendar"] == "noleap" and ok["span"] == {"start": "1995-01", "end": "1996-12", "steps": 24}
+    assert (
+        ok["frequency"] == "monthly"
+        and ok["calendar"] == "noleap"
+        and ok["span"] == {"start": "1995-01", "end": "1996-12", "steps": 24}
+    )
     assert ok["variables"][0]["name"] == "tas" and ok["variables"][0]["units"] == "K"
     assert by_name["degdotc.nc"]["variables"][0]["units"] == "deg. C" and by_name["degdotc.nc"]["can_score"]
     assert not by_name["noise.nc"]["can_score"] and by_name["noise.nc"]["problems"]
     assert by_name["absent.nc"]["problems"] == ["file not found — check the path"]
     for f in record["files"]:
-        assert set(f) == {"path", "can_score", "problems", "notes", "grid", "frequency", "calendar", "span", "variables"}
+        assert set(f) == {
+            "path",
+            "can_score",
+            "problems",
+            "notes",
+            "grid",
+            "frequency",
+            "calendar",
+            "span",
+            "variables",
+        }
 
 
 def test_hostile_names_are_printed_as_plain_text(files, capsys):
@@ -147,8 +192,12 @@ def test_a_glob_and_a_missing_path(files):
 def test_exit_status_seen_by_a_shell(files):
     exe = Path(sys.executable).with_name("gridscore")
     env = {k: v for k, v in os.environ.items() if k != "GRIDSCORE_DEBUG"}
-    good = subprocess.run([str(exe), "check", str(files["ok"])], capture_output=True, text=True, env=env, timeout=300)
-    bad = subprocess.run([str(exe), "check", str(files["half"])], capture_output=True, text=True, env=env, timeout=300)
+    good = subprocess.run(
+        [str(exe), "check", str(files["ok"])], capture_output=True, text=True, env=env, timeout=300
+    )
+    bad = subprocess.run(
+        [str(exe), "check", str(files["half"])], capture_output=True, text=True, env=env, timeout=300
+    )
     assert good.returncode == 0 and bad.returncode == 2
     assert "Traceback" not in bad.stdout + bad.stderr
 

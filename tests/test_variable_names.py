@@ -10,7 +10,6 @@ from __future__ import annotations
 import itertools
 import json
 
-import numpy as np
 import pytest
 from cfdata import cf_dataset, write_cf
 
@@ -23,7 +22,10 @@ COMMON = dict(dlat=15.0, start_year=1995, years=3, dtype="float64")
 
 
 def _write(path, ds):
-    encoding = {name: {"_FillValue": None} for name in itertools.chain(ds.coords, [v for v in ds.data_vars if "nv" in ds[v].dims])}
+    encoding = {
+        name: {"_FillValue": None}
+        for name in itertools.chain(ds.coords, [v for v in ds.data_vars if "nv" in ds[v].dims])
+    }
     ds.to_netcdf(path, encoding=encoding)
     return path
 
@@ -48,8 +50,15 @@ def _bias(cmp: Comparison, name: str) -> float:
 
 def test_the_mapped_name_is_read(files):
     ref = Source("obs", "reference", str(files["ref"]))
-    plain = Comparison(reference=ref, models=[Source("run-a", "model", str(files["run"]))], variable="tas", cache=False)
-    mapped = Comparison(reference=ref, models=[Source("run-a", "model", str(files["run"]), variables={"tas": "TS"})], variable="tas", cache=False)
+    plain = Comparison(
+        reference=ref, models=[Source("run-a", "model", str(files["run"]))], variable="tas", cache=False
+    )
+    mapped = Comparison(
+        reference=ref,
+        models=[Source("run-a", "model", str(files["run"]), variables={"tas": "TS"})],
+        variable="tas",
+        cache=False,
+    )
     assert _bias(plain, "run-a") == pytest.approx(11.5, rel=1e-9)
     assert _bias(mapped, "run-a") == pytest.approx(1.5, rel=1e-9)
     assert mapped.provenance()["variable_names"] == {"run-a": "tas read from TS"}
@@ -60,7 +69,15 @@ def test_cli_variable_in_with_odd_paths_and_the_cache(files, tmp_path):
     # the same files scored twice: once without, once with the mapping; the persistent
     # cache must not hand the first answer to the second request
     out1, out2 = tmp_path / "plain.json", tmp_path / "mapped.json"
-    base = ["score", "--reference", f"obs={files['ref']}", "--model", f"run-a={files['run']}", "--variable", "tas"]
+    base = [
+        "score",
+        "--reference",
+        f"obs={files['ref']}",
+        "--model",
+        f"run-a={files['run']}",
+        "--variable",
+        "tas",
+    ]
     assert main([*base, "--output", str(out1)]) == 0
     assert main([*base, "--variable-in", "run-a=TS", "--output", str(out2)]) == 0
 
@@ -76,15 +93,42 @@ def test_cli_variable_in_with_odd_paths_and_the_cache(files, tmp_path):
     assert json.dumps(rows1) != json.dumps(rows2)
 
 
-@pytest.mark.parametrize(("pair", "needle"), [("nobody=TS", "no source 'nobody'"), ("run-a", "NAME=VARIABLE"), ("run-a=", "NAME=VARIABLE")])
+@pytest.mark.parametrize(
+    ("pair", "needle"),
+    [("nobody=TS", "no source 'nobody'"), ("run-a", "NAME=VARIABLE"), ("run-a=", "NAME=VARIABLE")],
+)
 def test_cli_variable_in_mistakes_exit_2(files, capsys, pair, needle):
-    code = main(["score", "--reference", f"obs={files['ref']}", "--model", f"run-a={files['run']}", "--variable", "tas", "--variable-in", pair])
+    code = main(
+        [
+            "score",
+            "--reference",
+            f"obs={files['ref']}",
+            "--model",
+            f"run-a={files['run']}",
+            "--variable",
+            "tas",
+            "--variable-in",
+            pair,
+        ]
+    )
     assert code == 2
     assert needle in capsys.readouterr().err
 
 
 def test_cli_variable_in_absent_name_names_the_file(files, capsys):
-    code = main(["score", "--reference", f"obs={files['ref']}", "--model", f"run-a={files['run']}", "--variable", "tas", "--variable-in", "run-a=TSX"])
+    code = main(
+        [
+            "score",
+            "--reference",
+            f"obs={files['ref']}",
+            "--model",
+            f"run-a={files['run']}",
+            "--variable",
+            "tas",
+            "--variable-in",
+            "run-a=TSX",
+        ]
+    )
     err = capsys.readouterr().err
     assert code == 2 and "TSX" in err and "run.nc" in err
 
@@ -97,7 +141,11 @@ def test_manifest_variables(files):
     )
     coll = Collection.from_path(manifest)
     run = coll.source("run-a")
-    assert dict(run.variables) == {"tas": "TS"} and run.name_in_files("tas") == "TS" and run.name_in_files("pr") == "pr"
+    assert (
+        dict(run.variables) == {"tas": "TS"}
+        and run.name_in_files("tas") == "TS"
+        and run.name_in_files("pr") == "pr"
+    )
     assert "tas" in coll.variables()
     cmp = Comparison(reference=coll.source("obs"), models=[run], variable="tas", cache=False)
     assert _bias(cmp, "run-a") == pytest.approx(1.5, rel=1e-9)
@@ -106,7 +154,9 @@ def test_manifest_variables(files):
 @pytest.mark.parametrize("value", ['"TS"', "{ tas = 3 }", '{ tas = "" }', '["TS"]'])
 def test_manifest_variables_must_be_a_table_of_names(files, value):
     manifest = files["dir"] / "bad.toml"
-    manifest.write_text(f'[[source]]\nname = "run-a"\nrole = "model"\npaths = ["ref.nc"]\nvariables = {value}\n')
+    manifest.write_text(
+        f'[[source]]\nname = "run-a"\nrole = "model"\npaths = ["ref.nc"]\nvariables = {value}\n'
+    )
     with pytest.raises(InputError, match="table of names"):
         Collection.from_path(manifest)
 
@@ -118,8 +168,21 @@ def test_a_source_with_names_stays_hashable():
 
 def test_unnamed_reference_whose_path_holds_equals_and_commas(files, tmp_path):
     out = tmp_path / "t.csv"
-    code = main(["score", "--reference", str(files["run"]), "--model", f"run-b={files['ref']}", "--variable", "tas",
-                 "--variable-in", "run=TS", "--output", str(out)])
+    code = main(
+        [
+            "score",
+            "--reference",
+            str(files["run"]),
+            "--model",
+            f"run-b={files['ref']}",
+            "--variable",
+            "tas",
+            "--variable-in",
+            "run=TS",
+            "--output",
+            str(out),
+        ]
+    )
     assert code == 0  # the reference is named after its file stem, 'run'
     import pandas as pd
 
@@ -144,8 +207,16 @@ def test_dashboard_offers_a_variable_a_run_stores_under_its_own_name(files):
 
 
 def _fluxes(names, offsets, standard):
-    ds = cf_dataset(variable=names[0], units="W m-2", standard_name="toa_incoming_shortwave_flux" if standard else None, offset=offsets[0], **COMMON)
-    for name, off, sn in zip(names[1:], offsets[1:], ("toa_outgoing_shortwave_flux", "toa_outgoing_longwave_flux"), strict=True):
+    ds = cf_dataset(
+        variable=names[0],
+        units="W m-2",
+        standard_name="toa_incoming_shortwave_flux" if standard else None,
+        offset=offsets[0],
+        **COMMON,
+    )
+    for name, off, sn in zip(
+        names[1:], offsets[1:], ("toa_outgoing_shortwave_flux", "toa_outgoing_longwave_flux"), strict=True
+    ):
         ds[name] = ds[names[0]] - offsets[0] + off
         ds[name].attrs = {"units": "W m-2", **({"standard_name": sn} if standard else {})}
     return ds
@@ -157,6 +228,10 @@ def test_a_derived_variable_from_inputs_stored_under_other_names(tmp_path):
     ref = _write(tmp_path / "ref_flux.nc", _fluxes(("rsdt", "rsut", "rlut"), (0.0, -100.0, -10.0), True))
     run = _write(tmp_path / "run_flux.nc", _fluxes(("SOLIN", "FSUTOA", "FLUT"), (2.0, -99.5, -11.0), False))
     src = Source("run-f", "model", str(run), variables={"rsdt": "SOLIN", "rsut": "FSUTOA", "rlut": "FLUT"})
-    cmp = Comparison(reference=Source("obs", "reference", str(ref)), models=[src], variable="toa_net", cache=False)
+    cmp = Comparison(
+        reference=Source("obs", "reference", str(ref)), models=[src], variable="toa_net", cache=False
+    )
     assert _bias(cmp, "run-f") == pytest.approx(2.5, rel=1e-9)
-    assert cmp.provenance()["variable_names"] == {"run-f": "rsdt read from SOLIN; rsut read from FSUTOA; rlut read from FLUT"}
+    assert cmp.provenance()["variable_names"] == {
+        "run-f": "rsdt read from SOLIN; rsut read from FSUTOA; rlut read from FLUT"
+    }
