@@ -380,6 +380,19 @@ def month_climatology_to_time(ds: xr.Dataset, name: str) -> xr.Dataset:
     return out
 
 
+def _climatological_steps(ds: xr.Dataset, name: str, values: np.ndarray) -> bool:
+    """At most 12 steps in distinct months of one year, and a variable whose ``cell_methods``
+    say climatological statistics (CF 1.10 section 7.4: ``time: mean within years time: mean
+    over years``) — a climatology written without climatology bounds."""
+    if values.size == 0 or values.size > 12 or len({t.year for t in values}) != 1 or len({t.month for t in values}) != values.size:
+        return False
+    for var in ds.data_vars.values():
+        methods = _text(var.attrs.get("cell_methods", "")).lower()
+        if name in var.dims and ("within years" in methods or "over years" in methods):
+            return True
+    return False
+
+
 def decode(ds: xr.Dataset, *, file: str | None = None, notes: list[str] | None = None) -> xr.Dataset:
     """Decode the time coordinate of one raw file (opened with ``decode_times=False``).
 
@@ -432,6 +445,8 @@ def decode(ds: xr.Dataset, *, file: str | None = None, notes: list[str] | None =
                         file=file,
                         remedy="write each time bound as [start, end] with end after start",
                     )
+    if kind is None and interval is None and _climatological_steps(ds, name, values):
+        kind = "climatology"
     new_attrs = {k: v for k, v in attrs.items() if k not in ("units", "calendar", "bounds", "climatology", "time_origin")}
     new_attrs.update(standard_name="time", axis="T", calendar=cal)
     if kind:

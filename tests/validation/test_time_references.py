@@ -204,11 +204,23 @@ def _climatology_cf_axis(path, clim):
     return path
 
 
-@pytest.mark.parametrize("form", ["month dimension", "CF climatology axis"])
+def _climatology_cell_methods(path, clim):
+    # twelve mid-month steps of one year, no bounds; CF 1.10 section 7.4 cell_methods say it is a climatology
+    cal, units = "noleap", "days since 2000-01-01"
+    t = cftime.date2num([cftime.datetime(2000, m, 16, calendar=cal) for m in range(1, 13)], units, calendar=cal)
+    path = write_raw(path, t, {"units": units, "calendar": cal, "standard_name": "time"}, clim)
+    with xr.open_dataset(path, decode_times=False) as raw:
+        ds = raw.load()
+    ds["tas"].attrs["cell_methods"] = "time: mean within years time: mean over years"
+    ds.to_netcdf(path.with_name("clim_cm.nc"))
+    return path.with_name("clim_cm.nc")
+
+
+@pytest.mark.parametrize("form", ["month dimension", "CF climatology axis", "climatology cell_methods"])
 def test_a_12_month_climatology_serves_as_reference_for_the_mean_state(tmp_path, form):
     months = months_of(1991, 1995)
     clim = np.stack([field(2000, m) for m in range(1, 13)])
-    writer = _climatology_month_dim if form == "month dimension" else _climatology_cf_axis
+    writer = {"month dimension": _climatology_month_dim, "CF climatology axis": _climatology_cf_axis, "climatology cell_methods": _climatology_cell_methods}[form]
     ref = writer(tmp_path / "clim.nc", clim)
     run = monthly_file(tmp_path / "run.nc", months, "noleap", seed=0.7)
     cmp = Comparison(reference=Source("clim", "reference", (str(ref),)), models=[Source("run", "model", (str(run),))], variable="tas", cache=False)
