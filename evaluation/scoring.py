@@ -302,7 +302,10 @@ class Comparison:
         dated = {n: p for n, p in self._prepared.items() if p.kind != "climatology"}
         for name, prep in list(dated.items()):
             if prep.span is None:
-                err = InputError("no complete year of monthly data", file=prep.files, remedy="give at least twelve consecutive months")
+                if prep.monthly.sizes.get("time", 0) == 0 and prep.monthly["time"].attrs.get("gridscore_from") == "sub-monthly":
+                    err = InputError("the sub-monthly steps complete no month", file=prep.files, remedy="give every step of at least one whole month")
+                else:
+                    err = InputError("no complete year of monthly data", file=prep.files, remedy="give at least twelve consecutive months")
                 if name == ref:
                     raise err
                 failures.append(err)

@@ -439,6 +439,9 @@ def decode(ds: xr.Dataset, *, file: str | None = None, notes: list[str] | None =
                 attrs["gridscore_climatology_years"] = years
             else:
                 values, interval = _midpoints(bounds[:, 0], bounds[:, 1])
+                outside = int(sum(1 for t, lo, hi in zip(stamps, bounds[:, 0], bounds[:, 1], strict=True) if t < lo or t > hi))
+                if outside:
+                    notes.append(f"{outside} of {stamps.size} time stamps lie outside their bounds: the bounds decide which month each value belongs to — check time:bounds")
                 if np.any(interval <= 0):
                     raise InputError(
                         f"time bounds '{_text(bname)}' have an interval that does not end after it starts",

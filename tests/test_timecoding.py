@@ -288,3 +288,15 @@ def test_daily_to_monthly_builds_a_graph_and_reads_no_data(tmp_path, raise_if_co
         ds = io.open_source(str(path))
         monthly = season_means(ds["tas"], "JJA")
     assert monthly.chunks is not None  # computed later, in the scoring's one pass per source
+
+
+def test_stamps_outside_their_bounds_leave_a_note_and_the_bounds_decide(tmp_path):
+    units = "days since 2001-01-01"
+    lo = np.array([0.0, 31.0])
+    hi = np.array([31.0, 59.0])
+    path = write_raw(tmp_path / "odd.nc", np.array([100.0, 200.0]), {"units": units, "calendar": "noleap"}, np.zeros((2, 3, 4)), bounds=np.stack([lo, hi], axis=1))
+    notes: list[str] = []
+    with xr.open_dataset(path, decode_times=False) as raw:
+        ds = timecoding.decode(raw, notes=notes)
+    assert [t.month for t in ds["time"].values] == [1, 2]  # midpoints of January and February
+    assert notes and "2 of 2 time stamps lie outside their bounds" in notes[0]
