@@ -88,7 +88,7 @@ class Source:
 
     def names_in_files(self, variable: str) -> dict[str, str]:
         """Every name read under another name for ``variable``: ``{"tas": "TS"}``, or for a
-        derived variable stored nowhere, its inputs (``{"rlut": "FLUT"}``)."""
+        derived variable stored nowhere, its inputs (``{"rlut": "LW_OUT_TOP"}``)."""
         if variable in self.variables:
             return {variable: self.variables[variable]}
         from .derived import DERIVED

@@ -226,12 +226,12 @@ def test_a_derived_variable_from_inputs_stored_under_other_names(tmp_path):
     # net TOA flux = rsdt - rsut - rlut; the run's fields are the reference's plus
     # (+2, +0.5, -1) W m-2, so the bias is 2 - 0.5 + 1 = 2.5 (common practice: linearity)
     ref = _write(tmp_path / "ref_flux.nc", _fluxes(("rsdt", "rsut", "rlut"), (0.0, -100.0, -10.0), True))
-    run = _write(tmp_path / "run_flux.nc", _fluxes(("SOLIN", "FSUTOA", "FLUT"), (2.0, -99.5, -11.0), False))
-    src = Source("run-f", "model", str(run), variables={"rsdt": "SOLIN", "rsut": "FSUTOA", "rlut": "FLUT"})
+    run = _write(tmp_path / "run_flux.nc", _fluxes(("SW_IN_TOP", "SW_OUT_TOP", "LW_OUT_TOP"), (2.0, -99.5, -11.0), False))
+    src = Source("run-f", "model", str(run), variables={"rsdt": "SW_IN_TOP", "rsut": "SW_OUT_TOP", "rlut": "LW_OUT_TOP"})
     cmp = Comparison(
         reference=Source("obs", "reference", str(ref)), models=[src], variable="toa_net", cache=False
     )
     assert _bias(cmp, "run-f") == pytest.approx(2.5, rel=1e-9)
     assert cmp.provenance()["variable_names"] == {
-        "run-f": "rsdt read from SOLIN; rsut read from FSUTOA; rlut read from FLUT"
+        "run-f": "rsdt read from SW_IN_TOP; rsut read from SW_OUT_TOP; rlut read from LW_OUT_TOP"
     }
