@@ -47,8 +47,7 @@ class TargetChoice:
 
 
 def _divides(d: float, total: float) -> bool:
-    n = total / d
-    return d > 0 and abs(n - round(n)) < 1e-9
+    return d > 0 and abs(total / d - round(total / d)) < 1e-9
 
 
 def parse_target_grid(text: str | None, *, sources: Sequence[str] = (), reference: str | None = None) -> TargetChoice:
