@@ -454,6 +454,13 @@ def _vertical(ds: xr.Dataset, out: xr.Dataset) -> tuple[xr.Dataset, dict[str, st
                 out[v].attrs["gridscore_single_level"] = text
         elif action == "keep":
             kept[axis.name] = axis  # type: ignore[union-attr]
+            if axis.pressure:  # type: ignore[union-attr]
+                # model levels with the pressure of every level: get_variable attaches it
+                out[v].attrs["gridscore_pressure"] = axis.pressure  # type: ignore[union-attr]
+                if axis.pressure not in out.data_vars:  # type: ignore[union-attr]
+                    renamed = dict(zip(ds[v].dims, out[v].dims, strict=True))
+                    source = ds[axis.pressure].variable  # type: ignore[union-attr]
+                    out[axis.pressure] = xr.Variable([renamed[d] for d in source.dims], source.data, source.attrs)  # type: ignore[union-attr]
         else:
             levels = f" (levels {axis.listing()})" if axis is not None else ""
             refused[str(v)] = f"variable '{v}' cannot be scored: {text}{levels}"
@@ -523,10 +530,10 @@ def get_variable(ds: xr.Dataset, name: str, *, source: str | None = None) -> xr.
     files do not store it.  Raises :class:`InputError` listing the variables found.
     """
     if name in ds.data_vars:
-        return _one_level_dim(ds[name])
+        return _with_pressure(ds, _one_level_dim(ds[name]))
     for vname, var in ds.data_vars.items():
         if _matches(var.variable, str(vname), name):
-            return _one_level_dim(var.rename(name))
+            return _with_pressure(ds, _one_level_dim(var.rename(name)))
     refused = ds.attrs.get(REFUSED_ATTR, {})
     if name in refused:
         raise InputError(
@@ -548,6 +555,15 @@ def get_variable(ds: xr.Dataset, name: str, *, source: str | None = None) -> xr.
         file=source or ds.attrs.get("gridscore_files", "").split("\n")[0] or None,
         remedy="choose a variable the files hold",
     )
+
+
+def _with_pressure(ds: xr.Dataset, da: xr.DataArray) -> xr.DataArray:
+    """A variable on model levels with the pressure of every level as coordinate ``level_pressure``."""
+    name = da.attrs.get("gridscore_pressure")
+    if not name or name not in ds.data_vars:
+        return da
+    pressure = _one_level_dim(ds[name])
+    return da.assign_coords(level_pressure=(pressure.dims, pressure.data, pressure.attrs))
 
 
 def _one_level_dim(da: xr.DataArray) -> xr.DataArray:

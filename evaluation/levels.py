@@ -154,6 +154,7 @@ class VerticalAxis:
     positive: str
     kind: str | None
     problem: str = ""
+    pressure: str = ""  # model levels: the variable holding the pressure of every level
 
     def labels(self) -> list[str]:
         """Each level as people read it (``850 hPa``); model levels as plain numbers."""
@@ -163,6 +164,8 @@ class VerticalAxis:
 
     def listing(self) -> str:
         """The levels in one line, for listings and remedies: ``1000, 850, 500 hPa``."""
+        if self.pressure:
+            return f"{self.values.size} model levels, pressure from '{self.pressure}'"
         if self.kind is None:
             return ", ".join(self.labels())
         unit = KINDS[self.kind].display_units
@@ -210,7 +213,11 @@ def describe_vertical(ds: xr.Dataset, dim: str) -> VerticalAxis | None:
     positive = (_attr(var, "positive") or "").lower()
     standard_name = _attr(var, "standard_name") or ""
     if standard_name in MODEL_LEVEL_NAMES:
-        return VerticalAxis(dim, values, units, positive, None, f"its vertical axis '{dim}' holds {MODEL_LEVEL_NAMES[standard_name]}")
+        return VerticalAxis(
+            dim, values, units, positive, None,
+            f"its vertical axis '{dim}' holds {MODEL_LEVEL_NAMES[standard_name]}, and interpolation from model levels to "
+            "pressure is not offered unless the file holds the pressure of every level (standard_name air_pressure)",
+        )
     measures = _measures(units)
     kind = STANDARD_NAME_KINDS.get(standard_name)
     if kind is None and measures == "pressure":
@@ -410,6 +417,12 @@ def select_level(
     where = files if files else source
     name = da.name
     if level is None:
+        if LEVEL_DIM in da.dims and da[LEVEL_DIM].attrs.get("level_kind") == "model":
+            raise InputError(
+                f"variable '{name}' of '{source}' is on {da.sizes[LEVEL_DIM]} model levels and no level was chosen",
+                file=where,
+                remedy="choose a pressure with --level, e.g. --level 500hPa (interpolated in each column in ln p)",
+            )
         if LEVEL_DIM in da.dims:
             values, units, kind = _vertical_of(da)
             example = format_level(values[len(values) // 2], units, kind).replace(" ", "")
@@ -432,6 +445,8 @@ def select_level(
                 remedy=f"choose --level {stored.replace(' ', '')} or leave --level out",
             )
         raise InputError(f"variable '{name}' of '{source}' has no vertical levels", file=where, remedy="leave --level out for this variable")
+    if da[LEVEL_DIM].attrs.get("level_kind") == "model":
+        return _column_level(da, request, source=source, where=where)
     values, units, kind = _vertical_of(da)
     if KINDS[kind].dimension != request.dimension:
         raise InputError(
@@ -450,6 +465,59 @@ def select_level(
         )
     out = interpolate_levels(da, [request.value], units=request.units).isel({LEVEL_DIM: 0}, drop=True)
     out.attrs = {**da.attrs, "level": label}
+    return out
+
+
+#: Name of the coordinate holding the pressure of every model level (see io.get_variable).
+COLUMN_PRESSURE = "level_pressure"
+
+
+def _column_kernel(values: np.ndarray, pressure: np.ndarray, target: float) -> np.ndarray:
+    """Linear interpolation in ln p along the last axis, column by column; NaN outside.
+
+    Hand-written because the pressure differs in every column: numpy.interp takes one
+    abscissa, and a Python loop over columns would be slow.  The levels may be ordered
+    either way.
+    """
+    ln_p = np.log(np.where(pressure > 0, pressure, np.nan))
+    flip = ln_p[..., :1] > ln_p[..., -1:]
+    ln_p = np.where(flip, ln_p[..., ::-1], ln_p)
+    values = np.where(flip, values[..., ::-1], values)
+    t = np.log(target)
+    n = ln_p.shape[-1]
+    above = np.sum(ln_p < t, axis=-1)
+    lower = np.clip(above - 1, 0, n - 2)[..., None]
+    lo_p, hi_p = np.take_along_axis(ln_p, lower, -1)[..., 0], np.take_along_axis(ln_p, lower + 1, -1)[..., 0]
+    lo_v, hi_v = np.take_along_axis(values, lower, -1)[..., 0], np.take_along_axis(values, lower + 1, -1)[..., 0]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        w = (t - lo_p) / (hi_p - lo_p)
+        out = np.where(np.isclose(t, hi_p, rtol=1e-12, atol=0.0), hi_v, np.where(w == 0, lo_v, lo_v * (1 - w) + hi_v * w))
+    inside = (t >= lo_p - 1e-12) & (t <= hi_p + 1e-12)
+    return np.where(inside, out, np.nan)
+
+
+def _column_level(da: xr.DataArray, request: LevelRequest, *, source: str, where) -> xr.DataArray:
+    """A pressure level from model levels with the pressure of every level in the file."""
+    if request.dimension != "pressure" or COLUMN_PRESSURE not in da.coords:
+        raise InputError(
+            f"variable '{da.name}' of '{source}' is on model levels: only a pressure can be asked for",
+            file=where,
+            remedy="give a level in hPa, e.g. --level 500hPa",
+        )
+    pressure = da[COLUMN_PRESSURE]
+    target = request.value_in(str(pressure.attrs.get("units", "Pa")))
+    bare = da.drop_vars(COLUMN_PRESSURE)
+    out = xr.apply_ufunc(
+        _column_kernel, bare, pressure.drop_vars([c for c in pressure.coords if c != LEVEL_DIM and c not in bare.coords], errors="ignore"),
+        kwargs={"target": target},
+        input_core_dims=[[LEVEL_DIM], [LEVEL_DIM]],
+        dask="parallelized",
+        output_dtypes=[np.float64],
+    )
+    out = out.drop_vars(LEVEL_DIM, errors="ignore").transpose(*[d for d in da.dims if d != LEVEL_DIM])
+    label = request.label("pressure")
+    out.attrs = {**da.attrs, "level": label}
+    out.name = da.name
     return out
 
 
@@ -542,8 +610,28 @@ def vertical_block(ds: xr.Dataset, var: xr.DataArray, extra: Sequence[str]) -> t
         return "refuse", None, f"it has several vertical axes ({', '.join(a.name for a in vertical)})"
     axis = vertical[0]
     if axis.kind is None:
+        pressure = _pressure_companion(ds, var, axis) if _attr(ds.variables[axis.name], "standard_name") in MODEL_LEVEL_NAMES else ""
+        if pressure:
+            return "keep", VerticalAxis(axis.name, axis.values, axis.units, axis.positive, None, pressure=pressure), ""
         return "refuse", axis, axis.problem
     return "keep", axis, ""
+
+
+def _pressure_companion(ds: xr.Dataset, var: xr.DataArray, axis: VerticalAxis) -> str:
+    """The variable of ``ds`` holding the pressure of every model level of ``var``, or ''.
+
+    It must have ``standard_name = air_pressure`` (or units of pressure), the model-level
+    dimension, and no dimension ``var`` lacks (CF 4.3.3 lets a file carry it as an
+    auxiliary coordinate or a data variable).
+    """
+    for name, candidate in ds.variables.items():
+        if name == axis.name or axis.name not in candidate.dims or not set(candidate.dims) <= set(var.dims):
+            continue
+        if _attr(candidate, "standard_name") == "air_pressure" or (
+            candidate.ndim > 1 and _measures(_attr(candidate, "units")) == "pressure"
+        ):
+            return str(name)
+    return ""
 
 
 def level_coordinate(axis: VerticalAxis, ds: xr.Dataset) -> xr.Variable:
@@ -552,10 +640,11 @@ def level_coordinate(axis: VerticalAxis, ds: xr.Dataset) -> xr.Variable:
     attrs: Mapping[str, object] = {
         "units": axis.units,
         "positive": axis.positive,
-        "level_kind": axis.kind,
+        "level_kind": axis.kind or "model",
         "axis": "Z",
-        "long_name": str(source.attrs.get("long_name", f"{axis.kind} level")),
+        "long_name": str(source.attrs.get("long_name", f"{axis.kind or 'model'} level")),
         "original_name": axis.name,
+        **({"pressure_variable": axis.pressure} if axis.pressure else {}),
     }
     standard_name = _attr(source, "standard_name")
     if standard_name:
@@ -596,4 +685,10 @@ def labels_from_listing(text: str) -> list[str]:
     if not text or " " not in text:
         return []
     values, _, unit = text.rpartition(" ")
-    return [f"{v.strip()} {unit}" for v in values.split(",") if v.strip()]
+    labels = [f"{v.strip()} {unit}" for v in values.split(",") if v.strip()]
+    try:
+        for label in labels:
+            parse_level(label)
+    except InputError:  # model levels: any pressure may be asked for, none is listed
+        return []
+    return labels

@@ -245,7 +245,8 @@ class Comparison:
         if LEVEL_DIM in da.dims:
             kind = da[LEVEL_DIM].attrs.get("level_kind")
             first = next(iter(self._columns.values()), None)
-            if first is not None and first[LEVEL_DIM].attrs.get("level_kind") != kind:
+            family = {"model": "pressure"}  # model levels are read at a pressure
+            if first is not None and family.get(first[LEVEL_DIM].attrs.get("level_kind"), first[LEVEL_DIM].attrs.get("level_kind")) != family.get(kind, kind):
                 raise InputError(
                     f"'{src.name}' holds '{self.variable}' on {kind} levels, the reference on {first[LEVEL_DIM].attrs.get('level_kind')} levels",
                     file=files,
@@ -589,6 +590,12 @@ class Comparison:
                 f"'{name}' holds '{self.variable}' on a single level; a vertical section needs several",
                 file=self._prepared[name].files,
                 remedy="choose a variable stored on pressure, height or depth levels",
+            )
+        if column[LEVEL_DIM].attrs.get("level_kind") == "model":
+            raise InputError(
+                f"'{name}' holds '{self.variable}' on model levels; a vertical section needs fixed pressure, height or depth levels",
+                file=self._prepared[name].files,
+                remedy="give the variable on pressure levels for the section (scores at one --level work)",
             )
         key = self._cache_key(name, f"levels-{season}")
         means = self._cache.get(key) if self._cache else None

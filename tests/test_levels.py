@@ -206,6 +206,62 @@ def test_sources_on_different_kinds_of_axis_are_refused(tmp_path: Path, pair) ->
                    variable="ta", level="50m", cache=False)
 
 
+# ---------------------------------------------------------------------------- model levels
+SIGMA = (0.1, 0.3, 0.5, 0.7, 0.85, 0.95, 0.995)
+
+
+def surface_pressure(lat, lon):
+    """Pa; a plateau near 30N where the lowest model level lies above 850 hPa."""
+    return 101000.0 - 20000.0 * np.exp(-(((lat - 30.0) / 10.0) ** 2)) + 0.0 * lon
+
+
+def sigma_file(path: Path, *, with_pressure: bool) -> Path:
+    """T = a + b ln p on sigma levels, p = sigma * ps (atmosphere_sigma_coordinate with ptop = 0, CF appendix D)."""
+    field = lambda s, lat, lon, m: 250.0 + 30.0 * np.log(s * surface_pressure(lat, lon) / 1.0e5)  # noqa: E731
+    axis = {"standard_name": "atmosphere_sigma_coordinate", "positive": "down"}
+    written = write_levels(path, levels=SIGMA, axis_attrs=axis, axis_name="lev", field=field, years=2)
+    if not with_pressure:
+        return written
+    ds = xr.load_dataset(written)
+    ps = xr.DataArray(surface_pressure(ds["lat"].values[:, None], ds["lon"].values[None, :]), dims=("lat", "lon"))
+    pressure = (ds["lev"] * ps).broadcast_like(ds["ta"]).transpose(*ds["ta"].dims)
+    ds["pfull"] = (ds["ta"].dims, pressure.values, {"standard_name": "air_pressure", "units": "Pa"})
+    full = path.with_name("with-pressure.nc")
+    ds.to_netcdf(full)
+    return full
+
+
+def test_model_levels_without_pressure_are_refused_with_the_reason(tmp_path: Path) -> None:
+    with pytest.raises(InputError, match="sigma model levels.*not offered unless the file holds the pressure"):
+        opened(sigma_file(tmp_path / "s.nc", with_pressure=False))
+
+
+def test_model_levels_with_pressure_are_read_at_a_pressure_in_each_column(tmp_path: Path) -> None:
+    da = opened(sigma_file(tmp_path / "s.nc", with_pressure=True))
+    assert da["level"].attrs["level_kind"] == "model" and "level_pressure" in da.coords
+    with pytest.raises(InputError, match="model levels and no level was chosen"):
+        levels.select_level(da, None, source="s")
+    mid = levels.select_level(da, "500hPa", source="s")
+    # a + b ln p is exact under interpolation linear in ln p, whatever the column's pressures
+    np.testing.assert_allclose(mid.values, 250.0 + 30.0 * np.log(0.5), atol=1e-9)
+    low = levels.select_level(da, "1000hPa", source="s").isel(time=0)
+    lowest = 0.995 * surface_pressure(low["lat"].values, 0.0)
+    below = lowest < 1.0e5  # 1000 hPa lies under the lowest model level: below the surface
+    assert np.isnan(low.values[below]).all() and np.isfinite(low.values[~below]).all()
+
+
+def test_a_run_on_model_levels_scores_against_pressure_levels(tmp_path: Path) -> None:
+    run = sigma_file(tmp_path / "s.nc", with_pressure=True)
+    ref = write_levels(tmp_path / "r.nc", levels=(1000.0, 850.0, 500.0, 250.0), years=2,
+                       field=lambda p, lat, lon, m: 250.0 + 30.0 * np.log(p / 1000.0) + 0.0 * lat)
+    cmp = Comparison(reference=Source("r", "reference", [str(ref)]), models=[Source("m", "model", [str(run)])],
+                     variable="ta", level="500hPa", cache=False)
+    table = cmp.scores()
+    assert abs(table.loc[table["metric"] == "bias", "value"].item()) < 1e-9
+    with pytest.raises(InputError, match="model levels; a vertical section needs"):
+        cmp.zonal_section("m", "ANN")
+
+
 # ---------------------------------------------------------------------------- command line
 def gridscore() -> str:
     exe = Path(sys.executable).with_name("gridscore")

@@ -126,3 +126,23 @@ def test_section_of_a_log_linear_field_is_exact_across_level_sets(tmp_path: Path
     assert np.isnan(section["difference"].values[~inside]).all()  # 100 hPa: above the run's top level
     assert section.attrs["bias"] == pytest.approx(0.5, abs=1e-9)
     assert section.attrs["rmse"] == pytest.approx(0.5, abs=1e-9)
+
+
+def test_column_interpolation_matches_numpy_interp_in_every_column() -> None:
+    # Source: numpy.interp on ln p, one column at a time, for pressures that differ per
+    # column (model levels with the pressure of every level) and either level order.
+    rng = np.random.default_rng(3)
+    sigma = np.array([0.1, 0.25, 0.45, 0.65, 0.8, 0.92, 0.99])
+    ps = rng.uniform(70000.0, 103000.0, size=(5, 6))
+    pressure = sigma[None, None, :] * ps[..., None]
+    values = rng.normal(250.0, 20.0, size=pressure.shape)
+    for target in (30000.0, 50000.0, 85000.0, 100000.0):
+        ours = levels._column_kernel(values, pressure, target)
+        reversed_order = levels._column_kernel(values[..., ::-1], pressure[..., ::-1], target)
+        for i in range(ps.shape[0]):
+            for j in range(ps.shape[1]):
+                ln_p = np.log(pressure[i, j])
+                inside = ln_p[0] <= np.log(target) <= ln_p[-1]
+                expected = np.interp(np.log(target), ln_p, values[i, j]) if inside else np.nan
+                np.testing.assert_allclose(ours[i, j], expected, atol=1e-10)
+                np.testing.assert_allclose(reversed_order[i, j], expected, atol=1e-10)
