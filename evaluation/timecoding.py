@@ -336,17 +336,21 @@ def _month_index(dates: Sequence) -> np.ndarray:
     return np.array([t.year * 12 + t.month - 1 for t in dates], dtype="int64")
 
 
-def _mid_month(year: int, month: int, calendar: str) -> cftime.datetime:
+def _month_span(year: int, month: int, calendar: str) -> tuple[cftime.datetime, cftime.datetime]:
+    """00:00 on the 1st of the month and of the month after, in ``calendar``."""
     zero = calendar in _YEAR_ZERO_CALENDARS
     first = cftime.datetime(year, month, 1, calendar=calendar, has_year_zero=zero)
     following = cftime.datetime(year + (month == 12), month % 12 + 1, 1, calendar=calendar, has_year_zero=zero)
+    return first, following
+
+
+def _mid_month(year: int, month: int, calendar: str) -> cftime.datetime:
+    first, following = _month_span(year, month, calendar)
     return first + (following - first) / 2
 
 
 def _month_days(year: int, month: int, calendar: str) -> float:
-    zero = calendar in _YEAR_ZERO_CALENDARS
-    first = cftime.datetime(year, month, 1, calendar=calendar, has_year_zero=zero)
-    following = cftime.datetime(year + (month == 12), month % 12 + 1, 1, calendar=calendar, has_year_zero=zero)
+    first, following = _month_span(year, month, calendar)
     return (following - first).total_seconds() / 86400.0
 
 
