@@ -300,3 +300,19 @@ def test_stamps_outside_their_bounds_leave_a_note_and_the_bounds_decide(tmp_path
         ds = timecoding.decode(raw, notes=notes)
     assert [t.month for t in ds["time"].values] == [1, 2]  # midpoints of January and February
     assert notes and "2 of 2 time stamps lie outside their bounds" in notes[0]
+
+
+def test_files_with_their_own_reference_dates_are_decoded_each_and_joined(tmp_path):
+    # model output often counts each file's time from its own start
+    cal = "360_day"
+    paths = []
+    for year in (2001, 2002):
+        dates = daily_dates((year, 1, 1), (year + 1, 1, 1), cal)
+        units = f"days since {year}-01-01"
+        t = cftime.date2num(dates, units, calendar=cal)
+        data = np.stack([month_value(d.year, d.month) for d in dates])
+        paths.append(str(write_raw(tmp_path / f"d{year}.nc", t + 0.5, {"units": units, "calendar": cal}, data, bounds=np.stack([t, t + 1.0], axis=1))))
+    ds = io.open_source(paths)
+    assert [(t.year, t.month) for t in ds["time"].values] == [(y, m) for y in (2001, 2002) for m in range(1, 13)]
+    for i, t in enumerate(ds["time"].values):
+        np.testing.assert_allclose(ds["tas"].values[i], month_value(t.year, t.month), rtol=0, atol=1e-9)
