@@ -229,6 +229,15 @@ class Comparison:
         da = io.get_variable(ds, stored_as, source=src.name)
         if stored_as != self.variable:
             da = da.rename(self.variable)
+        fixed = _FIXED_FIELDS.get(str(da.attrs.get("standard_name", "")))
+        if fixed is not None:
+            # a land fraction or cell area written with a time step is still not a time series
+            files = io.expand_paths(src.paths, source=src.name)
+            raise InputError(
+                f"variable '{self.variable}' of '{src.name}' is a fixed field ({fixed}), not a time series that scores compare",
+                file=files,
+                remedy="score a time-varying variable; a land fraction in the reference's files is used for the land and ocean regions",
+            )
         if "time" not in da.dims:
             # name the files, not only the source: the message must say which file to fix
             files = io.expand_paths(src.paths, source=src.name)
@@ -426,7 +435,7 @@ class Comparison:
         prep = self._prepared[name]
         files = [vars(f) for f in io.file_identity(prep.files)]
         stored_as = sorted(self._sources[name].names_in_files(self.variable).items())
-        return Cache.key(kind="reduction-v2", files=files, variable=self.variable, stored_as=stored_as, units=self.units, what=what, period=str(self.period), level=self.level)
+        return Cache.key(kind="reduction-v3", files=files, variable=self.variable, stored_as=stored_as, units=self.units, what=what, period=str(self.period), level=self.level)
 
     def _choose_target(self) -> tuple[xr.Dataset, str]:
         """The regular grid every source is remapped onto, and the sentence saying which."""
@@ -812,6 +821,16 @@ class _Expanded:
     paths: tuple[str, ...]
 
 
+# CF standard names of fields that describe the grid or the surface, not the climate
+_FIXED_FIELDS = {
+    "land_area_fraction": "a land fraction",
+    "cell_area": "cell areas",
+    "surface_altitude": "surface altitude",
+    "sea_area_fraction": "a sea fraction",
+    "sea_floor_depth_below_geoid": "ocean depth",
+}
+
+
 def _land_from(ds: xr.Dataset) -> xr.DataArray:
     var = ds["sftlf"] if "sftlf" in ds.data_vars else next(ds[v] for v in ds.data_vars if ds[v].attrs.get("standard_name") == "land_area_fraction")
     if "time" in var.dims:
@@ -842,7 +861,7 @@ def score_table(
     key = None
     if store is not None:
         key = Cache.key(
-            kind="scores-v3",
+            kind="scores-v4",
             sources=[(s.name, s.role, [vars(f) for f in io.file_identity(io.expand_paths(s.paths, source=s.name))], sorted(s.names_in_files(variable).items())) for s in [reference, *models]],
             variable=variable,
             regions=[parse_region(r).id for r in regions],
