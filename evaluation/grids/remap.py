@@ -54,7 +54,7 @@ def _polygons(kind: str) -> Callable[[xr.DataArray, xr.Dataset, xr.Dataset], xr.
 
 
 _EXACT = "first-order conservative, exact overlap areas of the cells (Jones 1999)"
-_SAMPLED = f"first-order conservative, exact overlaps of the cells sampled with {remap_polygons.EDGE_POINTS} points per edge (Jones 1999)"
+_SAMPLED = f"first-order conservative, exact overlaps of the cells sampled with at least {remap_polygons.EDGE_POINTS} points per edge (Jones 1999)"
 _NEAREST = "nearest source cell centre (target cells more than two source spacings away stay missing)"
 
 REMAPPERS: dict[tuple[str, str], Remapper] = {
