@@ -149,6 +149,20 @@ def test_score_with_an_explicit_period_and_glob(data, tmp_path):
     assert set(t.period) == {"1996-1998"} and set(t.model) == {"w"}
 
 
+def test_a_partial_table_lists_each_omission_on_stderr(data, tmp_path):
+    # a run whose file is noise is left out whole, the other run is scored, and the exit code is 0
+    # (DJF 1995 lacks December 1994, so the DJF rows come from DJF 1996 alone)
+    out = tmp_path / "s.csv"
+    proc = run("score", "--reference", data["ref"], "--model", f"warm={data['warm']}", "--model", f"noisy={data['noise']}",
+               "--variable", "tas", "--period", "1995-1996", "--season", "DJF", "--season", "JJA", "--output", out)
+    assert proc.returncode == 0, proc.stderr
+    lines = [line for line in proc.stderr.splitlines() if line.startswith("gridscore: left out: ")]
+    assert any(line.startswith("gridscore: left out: noisy all: ") and str(data["noise"]) in line for line in lines)
+    t = pd.read_csv(out)
+    assert set(t.model) == {"warm"} and set(t.season) == {"DJF", "JJA"}
+    assert "Traceback" not in proc.stderr
+
+
 # ---------------------------------------------------------------------------- check
 
 
