@@ -506,6 +506,17 @@ def _column_level(da: xr.DataArray, request: LevelRequest, *, source: str, where
         )
     pressure = da[COLUMN_PRESSURE]
     target = request.value_in(str(pressure.attrs.get("units", "Pa")))
+    # one time step tells whether the level lies within the model's levels anywhere (a
+    # level above the model top everywhere would otherwise be a field of missing values)
+    first = pressure.isel(time=0) if "time" in pressure.dims else pressure
+    low, high = float(first.min()), float(first.max())
+    if not low <= target <= high:
+        shown = f"{format_level(low, str(pressure.attrs.get('units', 'Pa')), 'pressure')} to {format_level(high, str(pressure.attrs.get('units', 'Pa')), 'pressure')}"
+        raise InputError(
+            f"level {request.label('pressure')} lies outside the pressures of the model levels of '{source}' ({shown}); gridscore does not extrapolate",
+            file=where,
+            remedy="choose a level within the levels every source has",
+        )
     bare = da.drop_vars(COLUMN_PRESSURE)
     out = xr.apply_ufunc(
         _column_kernel, bare, pressure.drop_vars([c for c in pressure.coords if c != LEVEL_DIM and c not in bare.coords], errors="ignore"),

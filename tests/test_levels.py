@@ -241,6 +241,8 @@ def test_model_levels_with_pressure_are_read_at_a_pressure_in_each_column(tmp_pa
     assert da["level"].attrs["level_kind"] == "model" and "level_pressure" in da.coords
     with pytest.raises(InputError, match="model levels and no level was chosen"):
         levels.select_level(da, None, source="s")
+    with pytest.raises(InputError, match="outside the pressures of the model levels"):
+        levels.select_level(da, "5hPa", source="s")  # above the top level (0.1 ps) everywhere
     mid = levels.select_level(da, "500hPa", source="s")
     # a + b ln p is exact under interpolation linear in ln p, whatever the column's pressures
     np.testing.assert_allclose(mid.values, 250.0 + 30.0 * np.log(0.5), atol=1e-9)
