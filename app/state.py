@@ -8,8 +8,9 @@ the core.
 
 The URL query carries every value, defaults included, under the names ``variable``,
 ``level`` (``500 hPa``; empty for a variable without levels), ``reference``, ``models``
-(comma-separated), ``region``, ``season``, ``period`` (``YYYY-YYYY``), ``field`` and
-``tab``.  Query values are validated against the options
+(comma-separated), ``region``, ``season``, ``period`` (``YYYY-YYYY``), ``field``,
+``target_grid`` (``reference``, a source's name or a spacing such as ``2.5x2.5``; the
+options are the collection's) and ``tab``.  Query values are validated against the options
 before they are applied; a bad value falls back to the default and leaves a notice.
 
 This module does not import Panel: the state can be built and tested without a server.
@@ -65,7 +66,10 @@ TABS: dict[str, str] = {
 }
 
 #: The URL query names, in the order they are written.
-QUERY_NAMES: tuple[str, ...] = ("variable", "level", "reference", "models", "region", "season", "period", "field", "tab")
+QUERY_NAMES: tuple[str, ...] = ("variable", "level", "reference", "models", "region", "season", "period", "field", "target_grid", "tab")
+
+#: Global spacings the common-grid control offers besides the sources' own grids.
+TARGET_SPACINGS: tuple[str, ...] = ("1x1", "2.5x2.5", "5x5")
 
 #: How many runs a fresh session shows: enough to compare, few enough to read the maps.
 DEFAULT_RUNS = 3
@@ -97,6 +101,7 @@ class Request:
     period: str
     field: str
     level: str = ""  # "500 hPa"; empty for a variable without levels
+    target_grid: str = "reference"  # the common grid: reference, a source's name or a spacing
 
     def query(self, *, tab: str) -> dict[str, str]:
         """Every URL value of this request, defaults included.
@@ -113,6 +118,7 @@ class Request:
             "season": self.season,
             "period": self.period,
             "field": self.field,
+            "target_grid": self.target_grid,
             "tab": tab,
         }
 
@@ -192,6 +198,7 @@ class Selection(param.Parameterized):
     period = param.String(default="", doc="YYYY-YYYY within the common years.")
     field = param.Selector(default="difference", objects=list(FIELDS), doc="What the maps show.")
     tab = param.Selector(default="maps", objects=list(TABS), doc="The view on display.")
+    target_grid = param.Selector(default="reference", objects=["reference"], doc="The common grid every source is remapped onto.")
 
     span = param.ClassSelector(class_=Period, default=None, allow_None=True, doc="Years every source covers.")
     default_period = param.ClassSelector(class_=Period, default=None, allow_None=True)
@@ -214,10 +221,15 @@ class Selection(param.Parameterized):
         self.tab = self.param.tab.default
         self.param.variable.objects = variables
         self.param.variable.default = variables[0]
+        # the collection's own choice (manifest target_grid) first; test doubles may offer none
+        grids = list(dict.fromkeys(getattr(options, "target_grids", lambda: ["reference"])()))
+        self.param.target_grid.objects = grids
+        self.param.target_grid.default = grids[0]
+        self.target_grid = grids[0]
         self._set_variable(variables[0])
         self.param.watch(self._variable_changed, ["variable"])
         self.param.watch(self._span_source_changed, ["reference"])
-        self.param.watch(self._choice_changed, ["models", "region", "season", "period", "field", "level"])
+        self.param.watch(self._choice_changed, ["models", "region", "season", "period", "field", "level", "target_grid"])
 
     # ------------------------------------------------------------------ options
     def _set_variable(self, variable: str) -> None:
@@ -252,6 +264,7 @@ class Selection(param.Parameterized):
             "season": self.param.season.default,
             "period": str(self.default_period) if self.default_period else "",
             "field": self.param.field.default,
+            "target_grid": self.param.target_grid.default,
             "tab": self.param.tab.default,
         }
 
@@ -346,6 +359,15 @@ class Selection(param.Parameterized):
                 else:
                     self.notify(f"Map field '{_echo(value)}' is not known; showing '{FIELDS[self.param.field.default]}'.")
                     self.field = self.param.field.default
+        if "target_grid" in query:
+            value = query["target_grid"].strip()
+            with param.parameterized.discard_events(self):
+                if value in self.param.target_grid.objects:
+                    self.target_grid = value
+                else:
+                    offered = ", ".join(self.param.target_grid.objects)
+                    self.notify(f"Common grid '{_echo(value)}' is not offered ({_echo(offered)}); showing {self.param.target_grid.default}.")
+                    self.target_grid = self.param.target_grid.default
         if "tab" in query:
             value = query["tab"].strip()
             if value in self.param.tab.objects:
@@ -428,6 +450,7 @@ class Selection(param.Parameterized):
             period=self.period,
             field=self.field,
             level=self.level,
+            target_grid=self.target_grid,
         )
         if request != self.request:
             self.request = request

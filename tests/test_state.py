@@ -99,8 +99,9 @@ def test_url_round_trip_reproduces_the_view(results: Results) -> None:
 
 def test_query_names_are_the_contract() -> None:
     # issue 3, "Shareable link": these names exactly
-    # and `level`, the vertical level of a variable on levels (the --level of the CLI)
-    assert QUERY_NAMES == ("variable", "level", "reference", "models", "region", "season", "period", "field", "tab")
+    # and `level`, the vertical level of a variable on levels (the --level of the CLI),
+    # and `target_grid`, the common grid (the --target-grid of the CLI)
+    assert QUERY_NAMES == ("variable", "level", "reference", "models", "region", "season", "period", "field", "target_grid", "tab")
 
 
 def test_level_from_a_link_is_read_in_any_units(results: Results) -> None:
@@ -384,3 +385,14 @@ def test_password_option_is_validated(tmp_path: Path) -> None:
 def test_loopback_addresses(address: str, loopback: bool) -> None:
     # RFC 5735 / RFC 4291: 127.0.0.0/8 and ::1 are loopback; 192.0.2.0/24 is a documentation range
     assert is_loopback(address) is loopback
+
+
+def test_common_grid_from_a_link_is_checked_against_the_options(results: Results) -> None:
+    sel = Selection(results)
+    offered = sel.param.target_grid.objects
+    assert offered[0] == "reference" and "2.5x2.5" in offered and all(s.name in offered for s in results.collection.sources)
+    sel.apply_query({"target_grid": "2.5x2.5"})
+    assert sel.target_grid == "2.5x2.5" and not sel.notices
+    sel.apply_query({"target_grid": "<b>0.7x0.7</b>"})
+    assert sel.target_grid == "reference"
+    assert sel.notices and "is not offered" in sel.notices[-1]

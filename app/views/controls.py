@@ -105,6 +105,9 @@ class Controls(Viewer):
             label="Map field", options={label: key for key, label in FIELDS.items()}, value=sel.field, inline=False,
             css_classes=["gs-field"],
         )
+        self.target_grid = pn.widgets.Select(
+            label="Common grid", options=self._grid_options(), value=sel.target_grid, css_classes=["gs-target-grid"],
+        )
         self.copy = pn.widgets.Button(
             label="Copy link to this view", color="primary", sizing_mode="stretch_width", css_classes=["gs-copy"]
         )
@@ -121,10 +124,11 @@ class Controls(Viewer):
         self.period.param.watch(self._period_picked, "value_throttled")
         self.reset_period.on_click(self._period_reset)
         self.field.param.watch(lambda e: setattr(sel, "field", e.new), "value")
+        self.target_grid.param.watch(self._grid_picked, "value")
         doc = pn.state.curdoc
         sel.param.watch(
             lambda *events: on_document(doc, self._show),
-            ["variable", "level", "reference", "models", "region", "season", "period", "field", "span"],
+            ["variable", "level", "reference", "models", "region", "season", "period", "field", "target_grid", "span"],
         )
         self._show()
 
@@ -144,6 +148,8 @@ class Controls(Viewer):
             pn.Row(self.period_note, pn.layout.HSpacer(), self.reset_period, sizing_mode="stretch_width"),
             _section("Maps show"),
             self.field,
+            self.target_grid,
+            _hint("Every run and the reference are remapped onto this regular grid before they are compared."),
             _section("Share"),
             self.copy,
             _hint("The address bar always holds the whole view: send it to a colleague to show the same picture."),
@@ -151,6 +157,19 @@ class Controls(Viewer):
         )
 
     # ------------------------------------------------------------------ widget -> selection
+    def _grid_options(self) -> dict[str, str]:
+        """Label -> URL value of every common grid the selection offers."""
+        def label(value: str) -> str:
+            if value == "reference":
+                return "The reference's grid"
+            return f"Global {value.replace('x', '° x ')}°" if value[:1].isdigit() else f"Grid of {value}"
+
+        return {label(v): v for v in self.selection.param.target_grid.objects}
+
+    def _grid_picked(self, event: param.parameterized.Event) -> None:
+        if event.new in self.selection.param.target_grid.objects and event.new != self.selection.target_grid:
+            self.selection.target_grid = event.new
+
     def _level_picked(self, event: param.parameterized.Event) -> None:
         if event.new in self.selection.param.level.objects and event.new != self.selection.level:
             self.selection.level = event.new
@@ -203,6 +222,7 @@ class Controls(Viewer):
             self.box.value = self._box_text(sel.region)
         self.season.value = sel.season
         self.field.value = sel.field
+        self.target_grid.value = sel.target_grid
         span = sel.span
         if span is None:
             self.period.disabled = True

@@ -37,7 +37,7 @@ class CycleView(ResultView):
         results = self.results
         cycles = {}
         for name in (request.reference, *request.models):
-            args = (request.reference, request.variable, request.period, request.region, name, request.level)
+            args = (request.reference, request.variable, request.period, request.region, name, request.level, request.target_grid)
             cycles[name] = await results.fetch(("cycle",) + args, results.seasonal_cycle, *args)
         return cycles
 

@@ -201,7 +201,7 @@ class MapsView(ResultView):
         results = self.results
         items = []
         for kind, source, signed in self._layout_of(request):
-            args = (request.reference, request.variable, request.period, request.season, kind, source, request.level)
+            args = (request.reference, request.variable, request.period, request.season, kind, source, request.level, request.target_grid)
             data = await results.fetch(("map",) + args, results.map_field, *args)
             items.append(MapField(source=source, title=_title(kind, source, request.reference), data=data, signed=signed, quantity=_QUANTITY[kind]))
         return {"items": items}
@@ -259,7 +259,7 @@ class MapsView(ResultView):
     # ------------------------------------------------------------------ NetCDF downloads
     def _field_download(self, item: MapField, request: Request) -> pn.widgets.FileDownload:
         results = self.results
-        args = (request.reference, request.variable, request.period, request.region, request.season, request.level)
+        args = (request.reference, request.variable, request.period, request.region, request.season, request.level, request.target_grid)
 
         async def make() -> io.BytesIO:
             record = await results.fetch(("provenance",) + args, results.provenance, *args)

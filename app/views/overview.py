@@ -83,7 +83,7 @@ class OverviewView(ResultView):
     async def load(self, request: Request) -> dict[str, Any]:
         regions = tuple(REGIONS) if self.split == "region" else (request.region,)
         seasons = _SEASONS if self.split == "season" else (request.season,)
-        args = (request.reference, request.period, regions, seasons)
+        args = (request.reference, request.period, regions, seasons, request.target_grid)
         results = self.results
         tidy = await results.fetch(("overview",) + args, results.overview, *args)
         return {"tidy": tidy, "split": self.split}

@@ -33,7 +33,7 @@ class ZonalMeanView(ResultView):
         results = self.results
         profiles = {}
         for name in (request.reference, *request.models):
-            args = (request.reference, request.variable, request.period, request.season, name, request.level)
+            args = (request.reference, request.variable, request.period, request.season, name, request.level, request.target_grid)
             profiles[name] = await results.fetch(("zonal",) + args, results.zonal_mean, *args)
         return profiles
 

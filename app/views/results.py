@@ -155,6 +155,8 @@ class Results:
     def __init__(self, collection: Any, *, max_items: int = 512, max_comparisons: int = 24, regrid: str = "conservative") -> None:
         self.collection = collection
         self.regrid = regrid
+        #: the common grid of every comparison: the manifest's target_grid (default: each reference's own)
+        self.target_grid = str(getattr(collection, "target_grid", "reference"))
         self.products = BoundedCache(max_items=max_items)
         self._comparisons = BoundedCache(max_items=max_comparisons)
         self._lock = threading.RLock()
@@ -288,7 +290,15 @@ class Results:
         self._worker.shutdown(wait=False, cancel_futures=True)
 
     # ------------------------------------------------------------------ comparisons
-    def comparison(self, reference: str, variable: str, period: str | None = None, level: str = "") -> Comparison:
+    def target_grids(self) -> list[str]:
+        """The common grids offered: the collection's own choice first, the reference's grid,
+        every source's, and a few global spacings."""
+        from app.state import TARGET_SPACINGS
+
+        names = [s.name for s in (*self.collection.references, *self.collection.models)]
+        return list(dict.fromkeys([self.target_grid, "reference", *names, *TARGET_SPACINGS]))
+
+    def comparison(self, reference: str, variable: str, period: str | None = None, level: str = "", target_grid: str = "") -> Comparison:
         """The comparison of every run holding ``variable`` against ``reference``.
 
         Runs that the core rejects (unreadable, or not covering ``period``) are left out
@@ -297,21 +307,22 @@ class Results:
         years gives the same object.
         """
         with self._lock:
-            return self._entry(reference, variable, period, level)[0]
+            return self._entry(reference, variable, period, level, target_grid)[0]
 
-    def left_out(self, reference: str, variable: str, period: str | None = None, level: str = "") -> tuple[str, ...]:
+    def left_out(self, reference: str, variable: str, period: str | None = None, level: str = "", target_grid: str = "") -> tuple[str, ...]:
         """The runs that comparison could not use, each as ``"name: reason"``."""
         with self._lock:
-            return self._entry(reference, variable, period, level)[1]
+            return self._entry(reference, variable, period, level, target_grid)[1]
 
-    def _entry(self, reference: str, variable: str, period: str | None, level: str = "") -> tuple[Comparison, tuple[str, ...]]:
+    def _entry(self, reference: str, variable: str, period: str | None, level: str = "", target_grid: str = "") -> tuple[Comparison, tuple[str, ...]]:
         level = self._level(variable, level) or ""
+        target_grid = target_grid or self.target_grid
         if period is not None:
             period = str(parse_period(period))
-            default = self._entry(reference, variable, None, level)
+            default = self._entry(reference, variable, None, level, target_grid)
             if str(default[0].period) == period:
                 return default
-        key = (reference, variable, period, level)
+        key = (reference, variable, period, level, target_grid)
         entry = self._comparisons.get(key)
         if entry is not _MISSING:
             return entry
@@ -322,7 +333,7 @@ class Results:
         while True:
             try:
                 cmp = Comparison(reference=self.source(reference), models=runs, variable=variable, period=period, regrid=self.regrid,
-                                 level=level or None)
+                                 level=level or None, target_grid=target_grid)
                 break
             except InputError as error:
                 culprit = next((r.name for r in runs if _blames(error, r)), None)
@@ -342,18 +353,18 @@ class Results:
         return cmp.span, cmp.period
 
     # ------------------------------------------------------------------ products (worker thread)
-    def scores(self, reference: str, variable: str, period: str, region: str, season: str, level: str = "") -> pd.DataFrame:
+    def scores(self, reference: str, variable: str, period: str, region: str, season: str, level: str = "", target_grid: str = "") -> pd.DataFrame:
         """The tidy score table of every run of the comparison (the views pick theirs)."""
-        cmp = self.comparison(reference, variable, period, level)
+        cmp = self.comparison(reference, variable, period, level, target_grid)
         return cmp.scores(regions=[parse_region(region).id], seasons=[season])
 
-    def provenance(self, reference: str, variable: str, period: str, region: str, season: str, level: str = "") -> dict:
-        cmp = self.comparison(reference, variable, period, level)
+    def provenance(self, reference: str, variable: str, period: str, region: str, season: str, level: str = "", target_grid: str = "") -> dict:
+        cmp = self.comparison(reference, variable, period, level, target_grid)
         return cmp.provenance(regions=[parse_region(region).id], seasons=[season])
 
-    def map_field(self, reference: str, variable: str, period: str, season: str, kind: str, name: str, level: str = "") -> xr.DataArray:
+    def map_field(self, reference: str, variable: str, period: str, season: str, kind: str, name: str, level: str = "", target_grid: str = "") -> xr.DataArray:
         """One field of :class:`~evaluation.scoring.Comparison`: ``kind`` is the method name."""
-        cmp = self.comparison(reference, variable, period, level)
+        cmp = self.comparison(reference, variable, period, level, target_grid)
         method = {
             "climatology": cmp.climatology,
             "difference": cmp.difference,
@@ -362,23 +373,23 @@ class Results:
         }[kind]
         return method(name, season).load()
 
-    def zonal_mean(self, reference: str, variable: str, period: str, season: str, name: str, level: str = "") -> xr.DataArray:
-        return self.comparison(reference, variable, period, level).zonal_mean(name, season).load()
+    def zonal_mean(self, reference: str, variable: str, period: str, season: str, name: str, level: str = "", target_grid: str = "") -> xr.DataArray:
+        return self.comparison(reference, variable, period, level, target_grid).zonal_mean(name, season).load()
 
-    def zonal_section(self, reference: str, variable: str, period: str, season: str, name: str, level: str = "") -> xr.Dataset:
+    def zonal_section(self, reference: str, variable: str, period: str, season: str, name: str, level: str = "", target_grid: str = "") -> xr.Dataset:
         """Zonal-mean section (level × latitude) of a run and the reference, with its scores."""
-        return self.comparison(reference, variable, period, level).zonal_section(name, season).load()
+        return self.comparison(reference, variable, period, level, target_grid).zonal_section(name, season).load()
 
-    def regional_series(self, reference: str, variable: str, period: str, region: str, season: str, name: str, level: str = "") -> xr.DataArray:
-        return self.comparison(reference, variable, period, level).regional_series(name, parse_region(region).id, season).load()
+    def regional_series(self, reference: str, variable: str, period: str, region: str, season: str, name: str, level: str = "", target_grid: str = "") -> xr.DataArray:
+        return self.comparison(reference, variable, period, level, target_grid).regional_series(name, parse_region(region).id, season).load()
 
-    def seasonal_cycle(self, reference: str, variable: str, period: str, region: str, name: str, level: str = "") -> xr.DataArray:
-        return self.comparison(reference, variable, period, level).seasonal_cycle(name, parse_region(region).id).load()
+    def seasonal_cycle(self, reference: str, variable: str, period: str, region: str, name: str, level: str = "", target_grid: str = "") -> xr.DataArray:
+        return self.comparison(reference, variable, period, level, target_grid).seasonal_cycle(name, parse_region(region).id).load()
 
-    def units(self, reference: str, variable: str, period: str, level: str = "") -> str:
-        return self.comparison(reference, variable, period, level).units
+    def units(self, reference: str, variable: str, period: str, level: str = "", target_grid: str = "") -> str:
+        return self.comparison(reference, variable, period, level, target_grid).units
 
-    def overview(self, reference: str, period: str, regions: tuple[str, ...], seasons: tuple[str, ...]) -> pd.DataFrame:
+    def overview(self, reference: str, period: str, regions: tuple[str, ...], seasons: tuple[str, ...], target_grid: str = "") -> pd.DataFrame:
         """Scores of every run for every variable of the collection (for the summary heat map).
 
         The selected reference is used where it holds the variable, else the first
@@ -391,9 +402,9 @@ class Results:
             ref = reference if reference in refs else refs[0]
             try:
                 try:
-                    cmp = self.comparison(ref, variable, period)
+                    cmp = self.comparison(ref, variable, period, target_grid=target_grid)
                 except InputError:
-                    cmp = self.comparison(ref, variable, None)
+                    cmp = self.comparison(ref, variable, None, target_grid=target_grid)
                 tables.append(cmp.scores(regions=list(regions), seasons=list(seasons)))
             except InputError:
                 continue

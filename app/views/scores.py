@@ -137,10 +137,10 @@ class ScoresView(ResultView):
 
     async def load(self, request: Request) -> dict[str, Any]:
         results = self.results
-        args = (request.reference, request.variable, request.period, request.region, request.season, request.level)
+        args = (request.reference, request.variable, request.period, request.region, request.season, request.level, request.target_grid)
         tidy = await results.fetch(("scores",) + args, results.scores, *args)
         record = await results.fetch(("provenance",) + args, results.provenance, *args)
-        left = await results.run(results.left_out, request.reference, request.variable, request.period, request.level)
+        left = await results.run(results.left_out, request.reference, request.variable, request.period, request.level, request.target_grid)
         # a partial table: sources with no rows for this season, with the reason (plain text)
         left = (*left, *(f"{o['source']} {o['season']}: {o['reason']}" for o in record.get("omitted", []) if o["season"] == request.season))
         mine = tidy[tidy["model"].isin(request.models)].reset_index(drop=True)

@@ -122,7 +122,7 @@ class SectionView(ResultView):
         for name in (request.reference, *request.models):
             if name != request.reference and name not in results.models(request.variable):
                 continue
-            args = (request.reference, request.variable, request.period, request.season, name, request.level)
+            args = (request.reference, request.variable, request.period, request.season, name, request.level, request.target_grid)
             sections[name] = await results.fetch(("section",) + args, results.zonal_section, *args)
         return sections
 

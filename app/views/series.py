@@ -37,7 +37,7 @@ class SeriesView(ResultView):
         results = self.results
         series = {}
         for name in (request.reference, *request.models):
-            args = (request.reference, request.variable, request.period, request.region, request.season, name, request.level)
+            args = (request.reference, request.variable, request.period, request.region, request.season, name, request.level, request.target_grid)
             series[name] = await results.fetch(("series",) + args, results.regional_series, *args)
         return series
 

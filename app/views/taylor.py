@@ -109,9 +109,10 @@ class TaylorView(ResultView):
 
     async def load(self, request: Request) -> dict[str, Any]:
         results = self.results
-        args = (request.reference, request.variable, request.period, request.region, request.season, request.level)
+        args = (request.reference, request.variable, request.period, request.region, request.season, request.level, request.target_grid)
         tidy = await results.fetch(("scores",) + args, results.scores, *args)
-        units = await results.fetch(("units",) + args[:3], results.units, *args[:3])
+        unit_args = (*args[:3], request.level, request.target_grid)  # the same comparison as the scores
+        units = await results.fetch(("units",) + unit_args, results.units, *unit_args)
         return {"tidy": tidy[tidy["model"].isin(request.models)], "units": units}
 
     def figure(self, data: dict[str, Any], request: Request) -> hv.Overlay | None:
