@@ -16,7 +16,7 @@ import numpy as np
 import pandas as pd
 import pytest
 import xarray as xr
-from leveldata import PRESSURE, write_levels
+from leveldata import write_levels
 
 from evaluation import io, levels
 from evaluation.errors import InputError
