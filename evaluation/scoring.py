@@ -27,9 +27,9 @@ from . import io
 from .cache import Cache, default_cache
 from .errors import InputError
 from .export import TIDY_COLUMNS
-from .levels import LEVEL_DIM, interpolate_levels, parse_level, section_scores, section_weights, select_level
 from .grids import REGRID_METHODS, describe_method, grid_of, regrid, same_grid
 from .grids.target import parse_target_grid, regular_grid, regular_near
+from .levels import LEVEL_DIM, interpolate_levels, parse_level, section_scores, section_weights, select_level
 from .metrics import METRICS, pattern_stats, relative_errors, weighted_mean, zonal_mean
 from .regions import parse_region, region_weights
 from .timeaxis import (
@@ -155,10 +155,11 @@ class Comparison:
         level: str | None = None,
         target_grid: str | None = None,
         cache: Cache | None | bool = True,
+        alternatives: Sequence[Source] = (),
     ) -> None:
         if not models:
             raise InputError("no model run given", remedy="add at least one --model NAME=PATH")
-        names = [reference.name, *(m.name for m in models)]
+        names = [reference.name, *(a.name for a in alternatives), *(m.name for m in models)]
         dupes = sorted({n for n in names if names.count(n) > 1})
         if dupes:
             raise InputError(f"source names must be unique (repeated: {', '.join(dupes)})", remedy="give each run and the reference its own name")
@@ -167,6 +168,9 @@ class Comparison:
         self._target_choice = parse_target_grid(target_grid, sources=names, reference=reference.name)
         self.reference = reference
         self.models = list(models)
+        #: alternative references: every run is also scored against each, and each is scored
+        #: against the primary ``reference`` as if it were a run (the observational spread)
+        self.alternatives = list(alternatives)
         self.variable = variable
         self.regrid_method = regrid
         self._lock = threading.RLock()
@@ -195,22 +199,24 @@ class Comparison:
         if self._prepared[reference.name].kind == "annual":
             self.notes.append(f"the reference '{reference.name}' holds annual means: only ANN can be scored")
         failures: list[InputError] = []
-        for m in self.models:
+        for m in [*self.alternatives, *self.models]:
             try:
                 prepared = self._prepare_source(m, self._open(m))
                 if prepared.kind == "climatology":
                     raise InputError(
-                        f"'{m.name}' is a 12-month climatology, which can serve as the reference only",
+                        f"'{m.name}' is a 12-month climatology, which can serve as the primary reference only",
                         file=prepared.files,
                         remedy="give the run's monthly, daily or annual time series",
                     )
             except InputError as err:
-                failures.append(err)
+                if m in self.models:
+                    failures.append(err)
                 self._omit(m.name, "all", err.message)
                 continue
             self._sources[m.name] = m
             self._prepared[m.name] = prepared
         self.models = [m for m in self.models if m.name in self._prepared]
+        self.alternatives = [a for a in self.alternatives if a.name in self._prepared]
         self._require_runs(failures)
         self.period = self._choose_period(period, failures)
         self._require_runs(failures)
@@ -284,10 +290,10 @@ class Comparison:
         if entry not in self.omissions:
             self.omissions.append(entry)
 
-    def _omitted(self, source: str, season: str) -> str | None:
-        """The reason a source (or the reference, for every run) has no rows for a season."""
+    def _omitted(self, source: str, season: str, against: str | None = None) -> str | None:
+        """The reason a source (or the reference it is scored against) has no rows for a season."""
         for o in self.omissions:
-            if o["source"] in (source, self.reference.name) and o["season"] in (season, "all"):
+            if o["source"] in (source, against or self.reference.name) and o["season"] in (season, "all"):
                 return o["reason"]
         return None
 
@@ -344,6 +350,7 @@ class Comparison:
         self._prepared.pop(name, None)
         self._sources.pop(name, None)
         self.models = [m for m in self.models if m.name != name]
+        self.alternatives = [a for a in self.alternatives if a.name != name]
 
     def _note_time_kinds(self) -> None:
         ref = self._prepared[self.reference.name]
@@ -494,24 +501,26 @@ class Comparison:
         return prep.seasons[season]
 
     # ------------------------------------------------------------------ masks and weights
-    def _pair(self, name: str, season: str) -> tuple[xr.DataArray, xr.DataArray, xr.DataArray]:
-        """Climatologies of a run and the reference over their common label years, and their common validity mask."""
-        run_series, ref_series = self._aligned(name, season)
+    def _pair(self, name: str, season: str, against: str | None = None) -> tuple[xr.DataArray, xr.DataArray, xr.DataArray]:
+        """Climatologies of a run and the reference (or ``against``, another reference) over
+        their common label years, and their common validity mask."""
+        run_series, ref_series = self._aligned(name, season, against)
         model = climatology(run_series)
         ref = climatology(ref_series)
         mask = model.notnull() & ref.notnull()
         return model, ref, mask
 
-    def _aligned(self, name: str, season: str) -> tuple[xr.DataArray, xr.DataArray]:
-        """Yearly season means of a run and the reference on the label years both have.
+    def _aligned(self, name: str, season: str, against: str | None = None) -> tuple[xr.DataArray, xr.DataArray]:
+        """Yearly season means of a run and the reference (or ``against``) on the label years both have.
 
         A season complete in one source only (DJF of the period's first year when the
         other source starts in January) must enter neither, else the two cover
         different years and a trend shows up as bias.
         """
+        against = against or self.reference.name
         run_series = self.season_series(name, season)
-        ref_series = self.season_series(self.reference.name, season)
-        if self._prepared[self.reference.name].kind == "climatology":
+        ref_series = self.season_series(against, season)
+        if self._prepared[against].kind == "climatology":
             # the reference has no years: its climatology stands beside each of the run's years
             ref_series = ref_series.isel(year=0, drop=True).expand_dims(year=run_series["year"].values).transpose(*run_series.dims)
             return run_series, ref_series
@@ -701,21 +710,60 @@ class Comparison:
         return out
 
     # ------------------------------------------------------------------ scores
-    def _arrays(self, name: str, season: str) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
-        """Plain arrays of one run against the reference for one season.
+    def _arrays(self, name: str, season: str, against: str | None = None) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+        """Plain arrays of one run against the reference (or ``against``) for one season.
 
         ``years``, the run's and the reference's yearly means ``(year, cell)`` with
         masked cells set to 0, both climatologies ``(cell)`` and the common mask.  The
         score loop runs on these with matrix products instead of labelled arrays: it
         visits every region with the same arrays.
         """
-        run_s, ref_s = self._aligned(name, season)
+        run_s, ref_s = self._aligned(name, season, against)
         years = run_s["year"].values.astype("float64")
         m = np.asarray(run_s.transpose("year", "lat", "lon").values, dtype="float64").reshape(years.size, -1)
         r = np.asarray(ref_s.transpose("year", "lat", "lon").values, dtype="float64").reshape(years.size, -1)
         clim_m, clim_r = m.mean(axis=0), r.mean(axis=0)  # NaN in any year gives NaN, as climatology()
         mask = np.isfinite(clim_m) & np.isfinite(clim_r)
         return years, np.where(mask, m, 0.0), np.where(mask, r, 0.0), clim_m, clim_r, mask
+
+    def _score_runs(self, scored: list[Source], season: str, against: str, regions: list[str], area: np.ndarray,
+                    fraction: dict[str, np.ndarray]) -> dict[str, dict[str, dict[str, float]]]:
+        """Every metric but ``rel_error`` of each run against one reference: region -> run -> metric -> value.
+
+        A run without a season in years the reference has is removed from ``scored`` and
+        recorded as an omission.
+        """
+        from .trends import detrend, ols_trend
+
+        values: dict[str, dict[str, dict[str, float]]] = {r: {} for r in regions}
+        for m in list(scored):
+            years, ms_all, rs_all, clim_m, clim_r, mask = self._arrays(m.name, season, against)
+            if years.size == 0:
+                # against an alternative reference the omission names the pair, so the run keeps its primary rows
+                who = m.name if against == self.reference.name else f"{m.name} against {against}"
+                self._omit(who, season, f"no {season} season in years the reference '{against}' also has")
+                scored.remove(m)
+                continue
+            for region in regions:
+                w = area * fraction[region] * mask
+                stats = pattern_stats(clim_m, clim_r, w, where=f"{m.name}, {region}, {season}")
+                ms, rs = ms_all @ w / w.sum(), rs_all @ w / w.sum()
+                t_m, t_r = ols_trend(ms, years), ols_trend(rs, years)
+                sd_m = float(np.nanstd(detrend(ms, years), ddof=1)) if years.size > 2 else float("nan")
+                sd_r = float(np.nanstd(detrend(rs, years), ddof=1)) if years.size > 2 else float("nan")
+                stats.update(
+                    trend=t_m.slope * 10.0,
+                    ref_trend=t_r.slope * 10.0,
+                    trend_pvalue=t_m.pvalue,
+                    ref_trend_pvalue=t_r.pvalue,
+                    iav_ratio=sd_m / sd_r if sd_r > 0 else float("nan"),
+                )
+                if self._prepared[against].kind == "climatology":
+                    # these need the reference's own years, which a climatology does not have
+                    stats.update(ref_trend=float("nan"), ref_trend_pvalue=float("nan"), iav_ratio=float("nan"))
+                values[region][m.name] = stats
+            del ms_all, rs_all
+        return values
 
     def scores(self, *, regions: Sequence[str] = ("global",), seasons: Sequence[str] = ("ANN",)) -> pd.DataFrame:
         """The tidy score table (columns :data:`TIDY_COLUMNS`, metrics in registry order).
@@ -725,9 +773,15 @@ class Comparison:
         Spatial statistics use the climatologies over the label years both sources
         have; regional-mean series, trends and interannual variability use the same
         years and the same common mask.
-        """
-        from .trends import detrend, ols_trend
 
+        With alternative references, every run is scored against each reference (the
+        ``reference`` column says which), then each alternative reference against the
+        primary as if it were a run.  All references share the period, the target grid
+        and the region weights (land and ocean from the primary's land fraction), so a
+        run's rows against reference B equal a request with B alone on that grid, period
+        and land fraction.  ``rel_error`` is relative to the median RMSE of the runs
+        (never of the references) against the same reference.
+        """
         seasons = [parse_season(s) for s in seasons]
         regions = [parse_region(r).id for r in regions]
         self.prepare(seasons)
@@ -736,44 +790,30 @@ class Comparison:
         land = self._reference_land()
         fraction = {r: region_weights(r, grid, land=land).values.ravel() for r in regions}
         rows = []
+        primary = self.reference.name
         for season in seasons:
-            # one run's arrays at a time (they are the large part of the memory)
-            values: dict[str, dict[str, dict[str, float]]] = {r: {} for r in regions}
-            scored = [m for m in self.models if self._omitted(m.name, season) is None]
-            for m in list(scored):
-                years, ms_all, rs_all, clim_m, clim_r, mask = self._arrays(m.name, season)
-                if years.size == 0:
-                    self._omit(m.name, season, f"no {season} season in years the reference also has")
-                    scored.remove(m)
-                    continue
+            for against in [primary, *(a.name for a in self.alternatives)]:
+                # against the primary, each alternative reference is scored as if it were a run
+                scored = [*self.models, *(self.alternatives if against == primary else [])]
+                scored = [m for m in scored if self._omitted(m.name, season, against) is None]
+                values = self._score_runs(scored, season, against, regions, area, fraction)
                 for region in regions:
-                    w = area * fraction[region] * mask
-                    stats = pattern_stats(clim_m, clim_r, w, where=f"{m.name}, {region}, {season}")
-                    ms, rs = ms_all @ w / w.sum(), rs_all @ w / w.sum()
-                    t_m, t_r = ols_trend(ms, years), ols_trend(rs, years)
-                    sd_m = float(np.nanstd(detrend(ms, years), ddof=1)) if years.size > 2 else float("nan")
-                    sd_r = float(np.nanstd(detrend(rs, years), ddof=1)) if years.size > 2 else float("nan")
-                    stats.update(
-                        trend=t_m.slope * 10.0,
-                        ref_trend=t_r.slope * 10.0,
-                        trend_pvalue=t_m.pvalue,
-                        ref_trend_pvalue=t_r.pvalue,
-                        iav_ratio=sd_m / sd_r if sd_r > 0 else float("nan"),
-                    )
-                    if self._prepared[self.reference.name].kind == "climatology":
-                        # these need the reference's own years, which a climatology does not have
-                        stats.update(ref_trend=float("nan"), ref_trend_pvalue=float("nan"), iav_ratio=float("nan"))
-                    values[region][m.name] = stats
-                del ms_all, rs_all
-            for region in regions:
-                rel = relative_errors({k: v["rmse"] for k, v in values[region].items()})
-                for m in scored:
-                    values[region][m.name]["rel_error"] = rel[m.name]
-                    for key, metric in METRICS.items():
-                        rows.append(
-                            (m.name, self.reference.name, self.variable, self.level, region, season, str(self.period), key,
-                             float(values[region][m.name][key]), metric.units(self.units))
-                        )
+                    # the median of the runs only: an alternative reference does not move the runs' relative errors
+                    runs_rmse = {k: v["rmse"] for k, v in values[region].items() if k in {m.name for m in self.models}}
+                    rel = relative_errors(runs_rmse)
+                    finite = [v for v in runs_rmse.values() if np.isfinite(v)]
+                    median = float(np.median(finite)) if finite else float("nan")
+                    for m in scored:
+                        if m.name not in values[region]:
+                            continue
+                        rmse = values[region][m.name]["rmse"]
+                        # an alternative reference: its RMSE against the primary relative to the runs' median
+                        values[region][m.name]["rel_error"] = rel[m.name] if m.name in rel else (rmse - median) / median if median else float("nan")
+                        for key, metric in METRICS.items():
+                            rows.append(
+                                (m.name, against, self.variable, self.level, region, season, str(self.period), key,
+                                 float(values[region][m.name][key]), metric.units(self.units))
+                            )
         if not rows:
             raise InputError(
                 "nothing could be scored: " + "; ".join(f"{o['source']} {o['season']}: {o['reason']}" for o in self.omissions),
@@ -786,10 +826,11 @@ class Comparison:
         """Where the numbers come from, for the exporters."""
         from .export import provenance
 
-        srcs = [_Expanded(s.name, s.role, tuple(self._prepared[s.name].files)) for s in [self.reference, *self.models]]
+        every = [self.reference, *self.alternatives, *self.models]
+        srcs = [_Expanded(s.name, s.role, tuple(self._prepared[s.name].files)) for s in every]
         renamed = {
             s.name: "; ".join(f"{wanted} read from {stored}" for wanted, stored in s.names_in_files(self.variable).items())
-            for s in [self.reference, *self.models]
+            for s in every
             if s.names_in_files(self.variable)
         }
         record = provenance(
@@ -808,6 +849,12 @@ class Comparison:
         }
         if renamed:
             record["variable_names"] = renamed  # e.g. {"run-a": "tas read from TS"}
+        # the primary first; with several, the rule by which run differences are read against their spread
+        record["references"] = [self.reference.name, *(a.name for a in self.alternatives)]
+        if self.alternatives:
+            from .uncertainty import RULE
+
+            record["observational_uncertainty"] = RULE
         record["omitted"] = [dict(o) for o in self.omissions]  # rows left out: {source, season, reason}
         if self.notes:
             record["notes"] = list(self.notes)
