@@ -97,3 +97,36 @@ def test_the_cli_refuses_a_wrong_grid_with_exit_2(tmp_path):
     bad = _broken(tmp_path, _set_lat(lambda v: v * 2.0))
     ref = str(write_cf(tmp_path / "ref.nc", dlat=10.0, years=1))
     assert main(["score", "--reference", ref, "--model", f"bad={bad}", "--variable", "tas"]) == 2
+
+
+def test_cli_target_grid_is_named_in_the_provenance(tmp_path):
+    import json
+
+    from app.cli import main
+
+    ref = str(write_cf(tmp_path / "ref.nc", dlat=4.0, years=1))
+    run = str(write_cf(tmp_path / "run.nc", dlat=3.0, years=1, offset=1.0))
+    out = tmp_path / "s.json"
+    assert main(["score", "--reference", ref, "--model", f"run={run}", "--variable", "tas", "--target-grid", "5x5", "--season", "JAN", "--output", str(out)]) == 0
+    prov = json.loads(out.read_text())["provenance"]
+    assert prov["target_grid"] == "global regular 5° x 5° grid"
+    assert prov["remapping"]["run"].startswith("regular grid: first-order conservative")
+    assert main(["score", "--reference", ref, "--model", f"run={run}", "--variable", "tas", "--target-grid", "0.7x0.7"]) == 2
+    assert main(["score", "--reference", ref, "--model", f"run={run}", "--variable", "tas", "--target-grid", "run", "--season", "JAN", "--output", str(out)]) == 0
+    assert json.loads(out.read_text())["provenance"]["target_grid"] == "grid of 'run' (regular 60x120)"
+
+
+def test_manifest_target_grid(tmp_path):
+    from evaluation.catalog import Collection
+
+    write_cf(tmp_path / "ref.nc", dlat=10.0, years=1)
+    body = '[[source]]\nname = "ref"\nrole = "reference"\npaths = ["ref.nc"]\n'
+    (tmp_path / "manifest.toml").write_text('target_grid = "2.5x2.5"\n' + body)
+    assert Collection.from_path(tmp_path).target_grid == "2.5x2.5"
+    (tmp_path / "manifest.toml").write_text('target_grid = "ref"\n' + body)
+    assert Collection.from_path(tmp_path).target_grid == "ref"
+    (tmp_path / "manifest.toml").write_text(body)
+    assert Collection.from_path(tmp_path).target_grid == "reference"
+    (tmp_path / "manifest.toml").write_text('target_grid = "7x7"\n' + body)
+    with pytest.raises(InputError, match="target_grid: .*must divide 180"):
+        Collection.from_path(tmp_path)
