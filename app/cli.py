@@ -122,17 +122,21 @@ def _cmd_score(args) -> int:
 
     _check_output(args.output)
 
-    reference = _source_arg(args.reference, role="reference", default_name="reference")
+    # the first --reference is the primary; every further one an alternative reference
+    references = [_source_arg(r, role="reference", default_name="reference") for r in args.reference]
     models = [_source_arg(m, role="model") for m in args.model]
-    reference, *models = _with_names_in_files([reference, *models], args.variable_in or [], variable=args.variable)
-    if any(m.name == reference.name for m in models):
-        reference = dataclasses.replace(reference, name=f"{reference.name} (reference)")
+    sources = _with_names_in_files([*references, *models], args.variable_in or [], variable=args.variable)
+    references, models = sources[: len(references)], sources[len(references):]
+    references = [
+        dataclasses.replace(r, name=f"{r.name} (reference)") if any(m.name == r.name for m in models) else r for r in references
+    ]
+    reference, alternatives = references[0], references[1:]
     regions = args.region or ["global"]
     seasons = args.season or ["ANN"]
     with _scheduler(args), _progress(True):
         table, provenance = score_table(
             reference=reference, models=models, variable=args.variable, regions=regions, seasons=seasons,
-            period=args.period, regrid=args.regrid, level=args.level, target_grid=args.target_grid,
+            period=args.period, regrid=args.regrid, level=args.level, target_grid=args.target_grid, alternatives=alternatives,
         )
     _print_omissions(provenance)
     period = table["period"].iloc[0] if len(table) else args.period
@@ -142,8 +146,20 @@ def _cmd_score(args) -> int:
         print(f"wrote {len(table)} rows to {args.output}", file=sys.stderr)
     else:
         level = f" at {table['level'].iloc[0]}" if len(table) and table["level"].iloc[0] else ""
-        _print_wide(table, title=f"{args.variable}{level} against {reference.name}, {period} ({units})")
+        if alternatives:
+            for against, part in table.groupby("reference", sort=False):
+                _print_wide(part, title=f"{args.variable}{level} against {against}, {period} ({units})")
+                print()
+            print(f"Observational uncertainty: {_rule()}")
+        else:
+            _print_wide(table, title=f"{args.variable}{level} against {reference.name}, {period} ({units})")
     return EXIT_OK
+
+
+def _rule() -> str:
+    from evaluation.uncertainty import RULE
+
+    return RULE
 
 
 def _print_omissions(provenance: dict) -> None:
@@ -249,7 +265,11 @@ def build_parser() -> argparse.ArgumentParser:
         p.add_argument("--workers", type=int, metavar="N", help="start a local dask cluster with N worker processes")
 
     p = sub.add_parser("score", help="score model runs against a reference", description="Area-weighted scores of runs against a reference.")
-    p.add_argument("--reference", required=True, metavar="PATH", help="reference file, quoted glob, or NAME=PATH")
+    p.add_argument(
+        "--reference", required=True, action="append", metavar="[NAME=]PATH",
+        help="reference file, quoted glob, or NAME=PATH (repeatable: the first is the primary; every run is also scored "
+        "against each further one, and each further one against the primary)",
+    )
     p.add_argument("--model", required=True, action="append", metavar="NAME=PATH", help="a run (repeatable); PATH may be a quoted glob")
     p.add_argument("--variable", required=True, metavar="VAR", help="variable name or CF standard_name")
     p.add_argument("--level", metavar="VALUE+UNITS", help="one vertical level of a variable on levels, e.g. 850hPa, 85000Pa, 2m (interpolated where a source lacks it)")

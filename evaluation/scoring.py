@@ -129,6 +129,11 @@ class Comparison:
         spacing such as ``"2.5x2.5"`` (a global regular grid).  A chosen grid that is not
         regular is replaced by a regular grid of about its mean spacing (see
         :mod:`evaluation.grids.target`); :attr:`target_grid_text` says which grid was used.
+    alternatives
+        Further references, in order (``reference`` is the primary).  Every run is also
+        scored against each, and each is scored against the primary as if it were a run,
+        on the same period, target grid and region weights.  One that cannot be read is
+        left out like a run (:attr:`omissions`).
     units
         Units to compare in; default :func:`preferred_units` of the reference.
     cache
@@ -900,16 +905,22 @@ def score_table(
     level: str | None = None,
     target_grid: str | None = None,
     cache: Cache | None | bool = True,
+    alternatives: Sequence[Source] = (),
 ) -> tuple[pd.DataFrame, dict]:
     """The tidy table and its provenance for one request, served whole from the cache when
     the same request on the same files (path, size, modification time) was answered before.
+
+    ``reference`` is the primary reference; ``alternatives`` are further references (every
+    run is scored against each, and each against the primary; see :meth:`Comparison.scores`).
     """
     store = default_cache() if cache is True else (cache or None)
     key = None
     if store is not None:
         key = Cache.key(
-            kind="scores-v4",
-            sources=[(s.name, s.role, [vars(f) for f in io.file_identity(io.expand_paths(s.paths, source=s.name))], sorted(s.names_in_files(variable).items())) for s in [reference, *models]],
+            kind="scores-v5",
+            # every reference in order (the primary first), then the runs
+            sources=[(s.name, s.role, [vars(f) for f in io.file_identity(io.expand_paths(s.paths, source=s.name))], sorted(s.names_in_files(variable).items()))
+                     for s in [reference, *alternatives, *models]],
             variable=variable,
             regions=[parse_region(r).id for r in regions],
             seasons=[parse_season(s) for s in seasons],
@@ -921,7 +932,8 @@ def score_table(
         hit = store.get_json(key)
         if hit is not None:
             return pd.DataFrame(hit["table"], columns=list(TIDY_COLUMNS)), hit["provenance"]
-    cmp = Comparison(reference=reference, models=models, variable=variable, period=period, regrid=regrid, level=level, target_grid=target_grid, cache=store or False)
+    cmp = Comparison(reference=reference, models=models, variable=variable, period=period, regrid=regrid, level=level, target_grid=target_grid,
+                     cache=store or False, alternatives=alternatives)
     table = cmp.scores(regions=regions, seasons=seasons)
     prov = cmp.provenance(regions=regions, seasons=seasons)
     if store is not None and key is not None:
