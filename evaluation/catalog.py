@@ -14,6 +14,18 @@ A manifest is a small, human-editable TOML file::
     description = "control run"     # optional
     variables = { tas = "TS" }      # optional: this source's files store tas as TS
 
+    [[source]]
+    name = "obs-b"
+    role = "reference"
+    paths = ["refs/obs-b/*.nc"]
+    reference_for = ["tas"]         # optional: the variables this reference serves, see below
+
+A variable is compared with every reference that holds it: first, in manifest order, the
+references whose ``reference_for`` lists it, then those without ``reference_for``; a
+reference whose ``reference_for`` does not list the variable is not used for it.  The
+first is the primary reference, the others alternative references
+(:meth:`Collection.references_for`).
+
 A folder without a manifest is read by its layout: every sub-folder of
 ``DIR/references/`` is a reference and every sub-folder of ``DIR/runs/`` a model run,
 each holding its ``*.nc`` files.  The manifest is the only way a collection names files.
@@ -39,7 +51,7 @@ MANIFEST_NAME = "manifest.toml"
 ROLES = ("model", "reference")
 # the folder layout read when there is no manifest: sub-folder -> role
 LAYOUT = {"references": "reference", "runs": "model"}
-_SOURCE_KEYS = ("name", "role", "paths", "colour", "description", "variables")
+_SOURCE_KEYS = ("name", "role", "paths", "colour", "description", "variables", "reference_for")
 _TOP_KEYS = ("title", "description", "target_grid", "source")
 # '#rgb' / '#rrggbb' or a CSS colour word such as 'teal'
 _COLOUR = re.compile(r"^(#[0-9a-fA-F]{3}|#[0-9a-fA-F]{6}|[a-zA-Z]{3,20})$")
@@ -67,6 +79,8 @@ class Collection:
     root: Path
     sources: tuple[Source, ...]
     target_grid: str = "reference"
+    #: reference name -> the variables its ``reference_for`` lists (references without it are absent)
+    reference_for: tuple[tuple[str, tuple[str, ...]], ...] = ()
 
     @classmethod
     def from_path(cls, path: str | os.PathLike[str]) -> Collection:
@@ -139,6 +153,7 @@ class Collection:
             _source_from_table(entry, index, root, manifest) for index, entry in enumerate(entries)
         )
         _check_unique(sources, manifest)
+        marks = tuple((s.name, _reference_for(entry, s, manifest)) for entry, s in zip(entries, sources, strict=True) if "reference_for" in entry)
         target_grid = _text(table, "target_grid", manifest, default="reference").strip() or "reference"
         try:
             target_grid = parse_target_grid(target_grid, sources=[s.name for s in sources]).text
@@ -150,6 +165,7 @@ class Collection:
             root=root,
             sources=sources,
             target_grid=target_grid,
+            reference_for=marks,
         )
 
     @classmethod
@@ -183,6 +199,20 @@ class Collection:
     def references(self) -> tuple[Source, ...]:
         """The references, in manifest order."""
         return tuple(s for s in self.sources if s.role == "reference")
+
+    def references_for(self, variable: str) -> tuple[Source, ...]:
+        """The references to use for ``variable``, the primary first.
+
+        Notes
+        -----
+        Those whose ``reference_for`` lists the variable (manifest order), then those
+        without ``reference_for``.  Whether a reference's files hold the variable is not
+        checked here (only headers tell; the dashboard filters by them).
+        """
+        marked = dict(self.reference_for)
+        first = [s for s in self.references if variable in marked.get(s.name, ())]
+        rest = [s for s in self.references if s.name not in marked]
+        return (*first, *rest)
 
     def source(self, name: str) -> Source:
         """The source called ``name``; InputError names the known ones otherwise."""
@@ -293,6 +323,23 @@ def _source_from_table(entry: dict, index: int, root: Path, manifest: Path) -> S
         description=_text(entry, "description", manifest, default="", context=label),
         variables=_names_in_files(entry, label, manifest),
     )
+
+
+def _reference_for(entry: dict, source: Source, manifest: Path) -> tuple[str, ...]:
+    """``reference_for = ["tas", "pr"]``: the variables a reference serves."""
+    value = entry["reference_for"]
+    label = f"source {source.name!r}"
+    if source.role != "reference":
+        raise InputError(f"{label} is a model run but has reference_for", file=manifest, remedy='remove reference_for, or set role = "reference"')
+    if isinstance(value, str):
+        value = [value]
+    if not isinstance(value, list) or not value or not all(isinstance(v, str) and v.strip() and not _CONTROL.search(v) for v in value):
+        raise InputError(
+            f"{label} has reference_for that is not a list of variable names",
+            file=manifest,
+            remedy='write reference_for = ["tas", "pr"]',
+        )
+    return tuple(dict.fromkeys(v.strip() for v in value))
 
 
 def _names_in_files(entry: dict, label: str, manifest: Path) -> dict[str, str]:

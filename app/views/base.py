@@ -28,14 +28,40 @@ from evaluation.regions import parse_region
 from ..state import Request, Selection
 from .results import Results
 
-__all__ = ["PageGate", "ResultView", "caption", "error_box", "gate_page", "on_document", "safe_filename", "text_html"]
+__all__ = [
+    "PageGate", "ResultView", "caption", "error_box", "gate_page", "on_document", "plot_title", "safe_filename", "text_html",
+    "text_tooltip",
+]
 
 log = logging.getLogger("gridscore.app")
+#: The ASCII punctuation characters CommonMark allows to be backslash-escaped.
+_MARKDOWN_PUNCTUATION = re.compile(r"([!-/:-@\[-`{-~])")
 
 
 def text_html(text: Any) -> str:
     """Text from a file or a person, escaped for an HTML pane (holoviz/panel#5516)."""
     return html.escape(str(text), quote=True)
+
+
+def plot_title(text: Any) -> str:
+    """A plot title holding names from files or a manifest, kept literal.
+
+    HoloViews formats titles with ``str.format`` (``{label}``, ``{group}``): a ``{`` or
+    ``}`` in a run's name would be read as a field (a KeyError that breaks the maps).
+    Doubling the braces keeps them as they are.
+    """
+    return str(text).replace("{", "{{").replace("}", "}}")
+
+
+def text_tooltip(text: Any) -> str:
+    """A widget tooltip (``description``) that shows ``text`` as written.
+
+    Panel renders a widget's ``description`` as Markdown with raw HTML allowed, so a name
+    such as ``<img src=x onerror=...>`` would run in the page.  CommonMark lets every
+    ASCII punctuation character be escaped with a backslash and then shows it literally,
+    which turns the whole text into plain text (no HTML, links or emphasis).
+    """
+    return _MARKDOWN_PUNCTUATION.sub(r"\\\1", " ".join(str(text).split()))
 
 
 def caption(text: str) -> pn.pane.HTML:
@@ -160,6 +186,12 @@ class ResultView(Viewer):
     async def load(self, request: Request) -> Any:
         raise NotImplementedError
 
+    async def alternatives(self, request: Request) -> list[str]:
+        """The other references of the request's comparison (drawn as the references' spread)."""
+        results = self.results
+        args = (request.reference, request.variable, request.period, request.level, request.target_grid)
+        return await results.fetch(("alternatives",) + args, results.alternatives, *args)
+
     def draw(self, data: Any, request: Request) -> pn.viewable.Viewable:
         raise NotImplementedError
 
@@ -267,7 +299,7 @@ class ResultView(Viewer):
                 width=70,
                 height=34,
                 margin=(4, 4),
-                description=f"Download this figure as {fmt.upper()} (drawn on the server for reports)",
+                description=text_tooltip(f"Download this figure as {fmt.upper()} (drawn on the server for reports)"),
                 css_classes=[f"gs-download-{fmt}"],
             )
             buttons.append(button)

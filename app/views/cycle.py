@@ -11,7 +11,7 @@ from evaluation.regions import parse_region
 
 from ..state import Request
 from .base import ResultView
-from .lines import curve, line_figure
+from .lines import curve, line_figure, reference_band
 
 __all__ = ["CycleView"]
 
@@ -27,7 +27,8 @@ class CycleView(ResultView):
     explanation = (
         "The mean of each calendar month over the period, averaged over the region. It shows "
         "whether a run has the right amplitude and timing of the year's cycle (the season "
-        "control does not apply here)."
+        "control does not apply here). With several references, the grey band spans them: the "
+        "observational spread."
     )
 
     def key(self, request: Request) -> Any:
@@ -36,7 +37,7 @@ class CycleView(ResultView):
     async def load(self, request: Request) -> dict[str, Any]:
         results = self.results
         cycles = {}
-        for name in (request.reference, *request.models):
+        for name in (request.reference, *request.models, *await self.alternatives(request)):
             args = (request.reference, request.variable, request.period, request.region, name, request.level, request.target_grid)
             cycles[name] = await results.fetch(("cycle",) + args, results.seasonal_cycle, *args)
         return cycles
@@ -47,10 +48,13 @@ class CycleView(ResultView):
         info = self.results.variable_info(request.variable)
         xdim = hv.Dimension("month", label="Month")
         ydim = hv.Dimension("value", label=info.long_name or request.variable, unit=units)
-        curves = [
+        refs = {n: da for n, da in data.items() if n == request.reference or n not in request.models}
+        band = reference_band(refs, "month", xdim=xdim, ydim=ydim)
+        curves = ([] if band is None else [band]) + [
             curve(da["month"].values, da.values, label=name, colour=self.results.colour(name), xdim=xdim, ydim=ydim,
                   reference=name == request.reference)
             for name, da in data.items()
+            if name == request.reference or name not in refs
         ]
         region = parse_region(request.region).label
         title = f"{region}: monthly climatology of {request.variable}, {request.period}"

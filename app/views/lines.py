@@ -11,7 +11,10 @@ from collections.abc import Sequence
 import holoviews as hv
 import numpy as np
 
-__all__ = ["curve", "line_figure"]
+__all__ = ["BAND_COLOUR", "curve", "line_figure", "reference_band"]
+
+#: Fill of the references' spread (a grey that a thick black reference line stays visible on).
+BAND_COLOUR = "#9ca3af"
 
 _MPL_DASH = {"solid": "-", "dashed": "--", "dotted": ":"}
 
@@ -35,8 +38,40 @@ def curve(
     )
 
 
+def reference_band(curves: dict, dim: str, *, xdim: hv.Dimension, ydim: hv.Dimension) -> hv.Area | None:
+    """The spread of several references: a filled band from their lowest to their highest value.
+
+    Parameters
+    ----------
+    curves
+        Reference name -> 1-D DataArray along ``dim`` (the primary and the alternatives).
+    dim
+        The shared dimension (``year``, ``month`` or ``lat``).
+
+    Notes
+    -----
+    The curves are joined on the union of their coordinates; where only some references
+    have a value the band spans those, where none has one it has a gap.  ``None`` for fewer
+    than two references.  The band's label names every reference (as text).
+    """
+    if len(curves) < 2:
+        return None
+    import pandas as pd
+
+    frame = pd.concat({name: pd.Series(da.values, index=da[dim].values) for name, da in curves.items()}, axis=1).sort_index()
+    with np.errstate(all="ignore"):
+        low, high = frame.min(axis=1, skipna=True), frame.max(axis=1, skipna=True)
+    label = f"reference spread ({', '.join(curves)})"
+    x = np.asarray(frame.index, dtype="float64")
+    band = hv.Area((x, low.to_numpy(dtype="float64"), high.to_numpy(dtype="float64")), kdims=[xdim], vdims=[ydim, f"{ydim.name}_high"], label=label)
+    return band.opts(color=BAND_COLOUR, alpha=0.35, line_alpha=0.0, backend="bokeh").opts(color=BAND_COLOUR, alpha=0.35, backend="matplotlib")
+
+
 def line_figure(curves: list[hv.Element], *, title: str, xticks: list | None = None, xlim: tuple | None = None) -> hv.Overlay:
     """Overlay the curves with a legend outside the plot, readable at any width."""
+    from .base import plot_title
+
+    title = plot_title(title)  # names in titles keep their braces (HoloViews formats titles)
     overlay = hv.Overlay(curves)
     bokeh = dict(
         title=title,

@@ -218,8 +218,10 @@ class Results:
         return level or default_level(self.levels(variable)) or None
 
     def references(self, variable: str) -> list[str]:
+        """The references holding ``variable``, in the collection's order for it (``reference_for``)."""
         holders = self._variables.get(variable, {})
-        return [s.name for s in self.collection.references if s.name in holders]
+        ordered = getattr(self.collection, "references_for", lambda v: self.collection.references)(variable)
+        return [s.name for s in ordered if s.name in holders]
 
     def models(self, variable: str) -> list[str]:
         holders = self._variables.get(variable, {})
@@ -329,11 +331,13 @@ class Results:
         runs = [self.source(n) for n in self.models(variable)]
         if not runs:
             raise InputError(f"no model run holds '{variable}'", remedy="choose another variable")
+        # every other reference holding the variable: its spread is drawn and marks run differences
+        alternatives = [self.source(n) for n in self.references(variable) if n != reference]
         left: list[str] = []
         while True:
             try:
                 cmp = Comparison(reference=self.source(reference), models=runs, variable=variable, period=period, regrid=self.regrid,
-                                 level=level or None, target_grid=target_grid)
+                                 level=level or None, target_grid=target_grid, alternatives=alternatives)
                 break
             except InputError as error:
                 culprit = next((r.name for r in runs if _blames(error, r)), None)
@@ -354,7 +358,8 @@ class Results:
 
     # ------------------------------------------------------------------ products (worker thread)
     def scores(self, reference: str, variable: str, period: str, region: str, season: str, level: str = "", target_grid: str = "") -> pd.DataFrame:
-        """The tidy score table of every run of the comparison (the views pick theirs)."""
+        """The tidy score table of every run of the comparison (the views pick theirs): rows
+        against every reference, and the alternative references' rows against ``reference``."""
         cmp = self.comparison(reference, variable, period, level, target_grid)
         return cmp.scores(regions=[parse_region(region).id], seasons=[season])
 
@@ -386,6 +391,10 @@ class Results:
     def seasonal_cycle(self, reference: str, variable: str, period: str, region: str, name: str, level: str = "", target_grid: str = "") -> xr.DataArray:
         return self.comparison(reference, variable, period, level, target_grid).seasonal_cycle(name, parse_region(region).id).load()
 
+    def alternatives(self, reference: str, variable: str, period: str, level: str = "", target_grid: str = "") -> list[str]:
+        """The other references of the comparison (those it could read), in order."""
+        return [a.name for a in self.comparison(reference, variable, period, level, target_grid).alternatives]
+
     def units(self, reference: str, variable: str, period: str, level: str = "", target_grid: str = "") -> str:
         return self.comparison(reference, variable, period, level, target_grid).units
 
@@ -405,7 +414,9 @@ class Results:
                     cmp = self.comparison(ref, variable, period, target_grid=target_grid)
                 except InputError:
                     cmp = self.comparison(ref, variable, None, target_grid=target_grid)
-                tables.append(cmp.scores(regions=list(regions), seasons=list(seasons)))
+                table = cmp.scores(regions=list(regions), seasons=list(seasons))
+                runs = {m.name for m in cmp.models}
+                tables.append(table[(table["reference"] == ref) & table["model"].isin(runs)])
             except InputError:
                 continue
         if not tables:

@@ -19,11 +19,12 @@ from bokeh.models.widgets.tables import NumberFormatter
 from evaluation.export import METRIC_ORDER, table_bytes, wide_table
 from evaluation.metrics import METRICS
 from evaluation.regions import parse_region
+from evaluation.uncertainty import RULE, run_pairs
 
 from ..state import Request
-from .base import ResultView, safe_filename, text_html
+from .base import ResultView, safe_filename, text_html, text_tooltip
 
-__all__ = ["ScoresView", "best_rows", "number_format"]
+__all__ = ["ScoresView", "best_rows", "number_format", "within_best"]
 
 #: Table downloads offered: exporter format -> button label.
 DOWNLOADS = {"csv": "CSV", "xlsx": "Excel", "md": "Markdown", "tex": "LaTeX"}
@@ -35,6 +36,10 @@ TABLE_CSS = """
 :host .tabulator-col { font-size: 12px; }
 """
 _BEST_STYLE = "background-color: #d7f0ec; font-weight: 700; color: #0b4f4c"
+#: A value within observational uncertainty of the best: underlined, and named in the "≈ best" column.
+_WITHIN_STYLE = "text-decoration: underline dotted; font-style: italic"
+#: The text column that names, per run, the metrics it ties with the best within observational uncertainty.
+WITHIN_COLUMN = "≈ best (obs. uncertainty)"
 
 
 def best_rows(values: pd.Series, metric: str) -> list[bool]:
@@ -84,9 +89,34 @@ GROUPS: dict[str, tuple[str, ...]] = {
 }
 
 
-def score_widget(shown: pd.DataFrame, units: dict[str, str]) -> pn.widgets.Tabulator:
-    """A sortable table of runs × metrics with formatted numbers and the best values marked."""
+def within_best(shown: pd.DataFrame, pairs: pd.DataFrame, metrics: list[str]) -> dict[str, list[bool]]:
+    """Per metric, which runs are not best but within observational uncertainty of a best run.
+
+    ``pairs`` is :func:`evaluation.uncertainty.run_pairs` of the same runs (one region,
+    season and period); an undecided pair (one reference, NaN) marks nothing.
+    """
+    marks: dict[str, list[bool]] = {}
+    for m in metrics:
+        best = best_rows(shown[m], m)
+        best_runs = set(shown.loc[best, "Run"]) if any(best) else set()
+        tied = pairs[(pairs["metric"] == m) & (pairs["within"] == True)]  # noqa: E712 (None is undecided)
+        close = {b for a, b in zip(tied["model_a"], tied["model_b"], strict=True) if a in best_runs}
+        close |= {a for a, b in zip(tied["model_a"], tied["model_b"], strict=True) if b in best_runs}
+        marks[m] = [(not f) and run in close for run, f in zip(shown["Run"], best, strict=True)]
+    return marks
+
+
+def score_widget(shown: pd.DataFrame, units: dict[str, str], within: dict[str, list[bool]] | None = None) -> pn.widgets.Tabulator:
+    """A sortable table of runs × metrics with formatted numbers and the best values marked;
+    with ``within`` (:func:`within_best`), the values tied with the best within observational
+    uncertainty are underlined and named in a text column."""
     metrics = list(units)
+    if within:
+        shown = shown.copy()
+        shown[WITHIN_COLUMN] = [
+            ", ".join(METRICS[m].label if m in METRICS else m for m in metrics if within.get(m, [False] * len(shown))[i]) or "–"
+            for i in range(len(shown))
+        ]
     titles = {"Run": "Run"}
     formatters: dict[str, Any] = {}
     for m in metrics:
@@ -100,7 +130,8 @@ def score_widget(shown: pd.DataFrame, units: dict[str, str]) -> pn.widgets.Tabul
 
     def highlight(column: pd.Series) -> list[str]:
         flags = marks.get(str(column.name), [False] * len(column))
-        return [_BEST_STYLE if f else "" for f in flags]
+        tied = (within or {}).get(str(column.name), [False] * len(column))
+        return [_BEST_STYLE if f else _WITHIN_STYLE if t else "" for f, t in zip(flags, tied, strict=True)]
 
     widget = pn.widgets.Tabulator(
         shown,
@@ -143,8 +174,13 @@ class ScoresView(ResultView):
         left = await results.run(results.left_out, request.reference, request.variable, request.period, request.level, request.target_grid)
         # a partial table: sources with no rows for this season, with the reason (plain text)
         left = (*left, *(f"{o['source']} {o['season']}: {o['reason']}" for o in record.get("omitted", []) if o["season"] == request.season))
-        mine = tidy[tidy["model"].isin(request.models)].reset_index(drop=True)
-        return {"tidy": mine, "provenance": record, "left_out": left, "runs": int(tidy["model"].nunique())}
+        alternatives = await self.alternatives(request)
+        # the selected runs against every reference, and the other references against the selected one
+        every = tidy[tidy["model"].isin([*request.models, *alternatives])].reset_index(drop=True)
+        mine = every[(every["reference"] == request.reference) & every["model"].isin(request.models)].reset_index(drop=True)
+        pairs = run_pairs(every[every["model"].isin(request.models)], primary=request.reference) if alternatives else None
+        runs = tidy.loc[(tidy["reference"] == request.reference) & ~tidy["model"].isin(alternatives), "model"].nunique()
+        return {"tidy": mine, "every": every, "pairs": pairs, "alternatives": alternatives, "provenance": record, "left_out": left, "runs": int(runs)}
 
     def table(self, tidy: pd.DataFrame) -> tuple[pd.DataFrame, dict[str, str]]:
         """The shown frame (one row per run, one column per metric) and each column's units."""
@@ -164,7 +200,8 @@ class ScoresView(ResultView):
             metrics = [m for m in group if m in units]
             if metrics:
                 tables.append(pn.pane.HTML(f'<div class="gs-section-title">{text_html(heading)}</div>', margin=(6, 10, 2, 10)))
-                tables.append(score_widget(shown[["Run", *metrics]], {m: units[m] for m in metrics}))
+                within = within_best(shown, data["pairs"], metrics) if data.get("pairs") is not None else None
+                tables.append(score_widget(shown[["Run", *metrics]], {m: units[m] for m in metrics}, within))
         others = [m for m in units if not any(m in g for g in GROUPS.values())]
         if others:
             tables.append(score_widget(shown[["Run", *others]], {m: units[m] for m in others}))
@@ -174,6 +211,13 @@ class ScoresView(ResultView):
             f"median over all {data['runs']} runs of the collection (Gleckler et al. 2008)."
         )
         parts: list[Any] = [pn.pane.HTML(f'<div class="gs-hint">{text_html(context)}</div>', margin=(0, 10, 6, 10))]
+        if data.get("alternatives"):
+            rule = (
+                f"Observational uncertainty, from the references {', '.join([request.reference, *data['alternatives']])}: "
+                f"underlined values, named in the column '{WITHIN_COLUMN}', are within observational uncertainty of the "
+                f"best value. {RULE} The downloads hold every run against every reference."
+            )
+            parts.append(pn.pane.HTML(f'<div class="gs-hint gs-obs-rule">{text_html(rule)}</div>', margin=(0, 10, 6, 10)))
         if data["left_out"]:
             text = "Left out of this comparison: " + "; ".join(data["left_out"])
             parts.append(pn.pane.HTML(f'<div class="gs-notice">{text_html(text)}</div>', margin=(0, 10, 6, 10)))
@@ -181,7 +225,7 @@ class ScoresView(ResultView):
         return pn.Column(*parts, sizing_mode="stretch_width")
 
     def _downloads(self, data: dict[str, Any], request: Request) -> pn.Row:
-        tidy, record = data["tidy"], data["provenance"]
+        tidy, record = data.get("every", data["tidy"]), data["provenance"]
         base = safe_filename("scores", request.variable, request.reference, request.region, request.season, request.period)
         results = self.results
         buttons = []
@@ -199,7 +243,7 @@ class ScoresView(ResultView):
                     color="light",
                     width=120,
                     height=34,
-                    description=f"Download the table as {label} with its provenance",
+                    description=text_tooltip(f"Download the table as {label} with its provenance"),
                     css_classes=[f"gs-download-{fmt}"],
                 )
             )

@@ -14,7 +14,7 @@ from evaluation.units import trend_units
 
 from ..state import Request
 from .base import ResultView
-from .lines import curve, line_figure
+from .lines import curve, line_figure, reference_band
 
 __all__ = ["SeriesView"]
 
@@ -27,7 +27,8 @@ class SeriesView(ResultView):
     explanation = (
         "The area-weighted mean over the region for each year of the period (for a season, the "
         "season's mean in each year; DJF belongs to the year of its January). Dashed lines are "
-        "least-squares trends; the legend gives them per decade."
+        "least-squares trends; the legend gives them per decade. With several references, the grey band "
+        "spans them (from the lowest to the highest reference value each year): the observational spread."
     )
 
     def key(self, request: Request) -> Any:
@@ -36,7 +37,7 @@ class SeriesView(ResultView):
     async def load(self, request: Request) -> dict[str, Any]:
         results = self.results
         series = {}
-        for name in (request.reference, *request.models):
+        for name in (request.reference, *request.models, *await self.alternatives(request)):
             args = (request.reference, request.variable, request.period, request.region, request.season, name, request.level, request.target_grid)
             series[name] = await results.fetch(("series",) + args, results.regional_series, *args)
         return series
@@ -47,8 +48,13 @@ class SeriesView(ResultView):
         info = self.results.variable_info(request.variable)
         xdim = hv.Dimension("year", label="Year")
         ydim = hv.Dimension("value", label=info.long_name or request.variable, unit=units)
-        curves = []
+        # the references' spread under the lines; alternative references are drawn only as the band
+        refs = {n: da for n, da in data.items() if n == request.reference or n not in request.models}
+        band = reference_band(refs, "year", xdim=xdim, ydim=ydim)
+        curves: list = [] if band is None else [band]
         for name, da in data.items():
+            if name in refs and name != request.reference:
+                continue
             years = da["year"].values.astype("float64")
             colour = self.results.colour(name)
             fit = ols_trend(da)  # the core's trend: regressed on the year coordinate

@@ -19,7 +19,7 @@ import panel as pn
 import param
 
 from ..state import Request
-from .base import ResultView
+from .base import ResultView, plot_title
 from .look import REFERENCE_COLOUR
 
 __all__ = ["TaylorView", "taylor_points"]
@@ -92,7 +92,9 @@ class TaylorView(ResultView):
         "Distance from the origin: spatial standard deviation of the climatology; angle: pattern "
         "correlation with the reference (labels on the outer arc); green arcs: centred RMS "
         "difference from the reference point (black). The closer a run is to the reference "
-        "point, the better its pattern."
+        "point, the better its pattern. Black diamonds are the other references, placed as if they "
+        "were runs: runs nearer the reference point than they are differ from it by no more than "
+        "the observations do."
     )
 
     normalised = param.Boolean(default=True)
@@ -113,7 +115,10 @@ class TaylorView(ResultView):
         tidy = await results.fetch(("scores",) + args, results.scores, *args)
         unit_args = (*args[:3], request.level, request.target_grid)  # the same comparison as the scores
         units = await results.fetch(("units",) + unit_args, results.units, *unit_args)
-        return {"tidy": tidy[tidy["model"].isin(request.models)], "units": units}
+        alternatives = await self.alternatives(request)
+        # the runs and the alternative references, all scored against the selected reference
+        mine = tidy[(tidy["reference"] == request.reference) & tidy["model"].isin([*request.models, *alternatives])]
+        return {"tidy": mine, "units": units, "alternatives": alternatives}
 
     def figure(self, data: dict[str, Any], request: Request) -> hv.Overlay | None:
         points, ref_std = taylor_points(data["tidy"], normalised=self.normalised)
@@ -161,10 +166,15 @@ class TaylorView(ResultView):
         # the reference and the runs
         layers.append(_points(pd.DataFrame({"x": [ref_std], "y": [0.0], "model": [request.reference], "corr": [1.0], "std": [ref_std], "crmse": [0.0]}),
                               label=f"{request.reference} (reference)", colour=REFERENCE_COLOUR, marker="square"))
+        alternatives = data.get("alternatives", [])
         for _, row in points.iterrows():
-            layers.append(_points(pd.DataFrame([row]), label=str(row["model"]), colour=self.results.colour(str(row["model"]))))
+            name = str(row["model"])
+            if name in alternatives:  # another reference, scored against the selected one as if it were a run
+                layers.append(_points(pd.DataFrame([row]), label=f"{name} (alternative reference)", colour=REFERENCE_COLOUR, marker="diamond"))
+            else:
+                layers.append(_points(pd.DataFrame([row]), label=name, colour=self.results.colour(name)))
         scale = "normalised" if self.normalised else f"[{data['units']}]"
-        title = f"Taylor diagram: {request.variable}, {request.region}, {request.season} {request.period}"
+        title = plot_title(f"Taylor diagram: {request.variable}, {request.region}, {request.season} {request.period}")
         xlim = (-top * 1.2 if half else 0.0, top * 1.2)
         ylim = (0.0, top * 1.2)
         radii = [round(float(v), 10) for v in np.arange(0.0, top + step / 2, step)]
@@ -212,5 +222,5 @@ def _points(frame: pd.DataFrame, *, label: str, colour: str, marker: str = "circ
     return points.opts(color=colour, size=13, marker=marker, line_color="white", tools=["hover"],
                        hover_tooltips=[("Source", "@model"), ("Correlation", "@corr{0.000}"), ("Std dev", "@std{0.000}"),
                                        ("Centred RMS difference", "@crmse{0.000}")], backend="bokeh").opts(
-        color=colour, s=80, marker="s" if marker == "square" else "o", edgecolors="white", backend="matplotlib"
+        color=colour, s=80, marker={"square": "s", "diamond": "D"}.get(marker, "o"), edgecolors="white", backend="matplotlib"
     )
