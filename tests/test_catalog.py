@@ -163,7 +163,22 @@ BAD_MANIFESTS = {
     "no name": ('[[source]]\nrole = "model"\npaths = ["{ref}"]\n', "source #1 has no name"),
     "name not a string": ('[[source]]\nname = 3\nrole = "model"\npaths = ["{ref}"]\n', "must be a string"),
     "source not a table": ('source = "a"\n', "list of tables"),
+    "reference_for on a run": ('[[source]]\nname = "a"\nrole = "model"\npaths = ["{ref}"]\nreference_for = ["tas"]\n', "model run but has reference_for"),
+    "reference_for not names": ('[[source]]\nname = "a"\nrole = "reference"\npaths = ["{ref}"]\nreference_for = [1]\n', "not a list of variable names"),
 }
+
+
+def test_reference_for_orders_the_references_of_a_variable(demo: Path, tmp_path: Path) -> None:
+    ref = demo / "references" / "tessera-obs" / "tas_*.nc"
+    text = "".join(
+        f'[[source]]\nname = "{name}"\nrole = "reference"\npaths = ["{ref}"]\n' + (f"reference_for = {marks}\n" if marks else "")
+        for name, marks in [("plain", ""), ("for-pr", '["pr"]'), ("for-tas", '["tas", "pr"]'), ("also-tas", '"tas"')]
+    )
+    collection = Collection.from_path(write_manifest(tmp_path / "order", text))
+    # marked ones first in manifest order, then unmarked ones; a reference marked for other variables only is not used
+    assert [s.name for s in collection.references_for("tas")] == ["for-tas", "also-tas", "plain"]
+    assert [s.name for s in collection.references_for("pr")] == ["for-pr", "for-tas", "plain"]
+    assert [s.name for s in collection.references_for("psl")] == ["plain"]
 
 
 @pytest.mark.parametrize("case", list(BAD_MANIFESTS))

@@ -163,6 +163,36 @@ def test_a_partial_table_lists_each_omission_on_stderr(data, tmp_path):
     assert "Traceback" not in proc.stderr
 
 
+def test_score_with_two_references(data, tmp_path):
+    # the first --reference is the primary; the second (unnamed: named after its file) is an alternative
+    out = tmp_path / "s.csv"
+    proc = run("score", "--reference", f"obs={data['ref']}", "--reference", data["coarse"], "--model", f"warm={data['warm']}",
+               "--model", f"same={data['ref']}", "--variable", "tas", "--region", "global", "--region", "tropics",
+               "--season", "ANN", "--season", "JJA", "--output", out)
+    assert proc.returncode == 0, proc.stderr
+    t = pd.read_csv(out, keep_default_na=False)
+    # (2 runs x 2 references + 1 alternative reference scored against the primary) x regions x seasons x metrics
+    assert len(t) == (2 * 2 + 1) * 2 * 2 * len(CONTRACT_METRICS)
+    assert list(t.columns) == CONTRACT_COLUMNS
+    assert set(t.loc[t.reference == "coarse", "model"]) == {"warm", "same"}
+    assert set(t.loc[t.reference == "obs", "model"]) == {"warm", "same", "coarse"}
+    import json
+
+    record = json.loads(out.with_name("s.provenance.json").read_text())
+    assert record["references"] == ["obs", "coarse"] and "observational uncertainty" in record["observational_uncertainty"]
+    # a run identical to the primary: its bias against the alternative is minus the alternative's bias (common practice: linearity of the mean)
+    v = t.set_index(["model", "reference", "region", "season", "metric"])["value"].astype(float)
+    for region in ("global", "tropics"):
+        assert v[("same", "coarse", region, "ANN", "bias")] == pytest.approx(-v[("coarse", "obs", region, "ANN", "bias")], abs=1e-6)
+
+
+def test_score_with_two_references_prints_one_table_each(data, tmp_path):
+    proc = run("score", "--reference", data["ref"], "--reference", f"alt={data['coarse']}", "--model", f"warm={data['warm']}",
+               "--variable", "tas", cwd=tmp_path)
+    assert proc.returncode == 0, proc.stderr
+    assert "tas against ref" in proc.stdout and "tas against alt" in proc.stdout and "Observational uncertainty:" in proc.stdout
+
+
 # ---------------------------------------------------------------------------- check
 
 
