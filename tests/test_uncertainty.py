@@ -137,7 +137,7 @@ def test_bias_shift_and_rmse_triangle_inequality(both) -> None:
     v = table.set_index(KEY)["value"]
     for region in REGIONS:
         for season in SEASONS:
-            def get(model, reference, metric):
+            def get(model, reference, metric, region=region, season=season):
                 return float(v[(model, reference, "tas", "", region, season, PERIOD, metric)])
 
             shift = get("obs-b", "obs-p", "bias")
