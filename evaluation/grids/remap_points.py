@@ -20,6 +20,8 @@
 
 from __future__ import annotations
 
+from collections.abc import Callable
+
 import numpy as np
 import scipy.sparse as sp
 import xarray as xr
@@ -106,6 +108,30 @@ def binned(da: xr.DataArray, source_grid: xr.Dataset, target: xr.Dataset) -> xr.
     return apply_matrix(da, w, ("cell",), target)
 
 
+def _per_field(da: xr.DataArray, one: Callable[[np.ndarray], np.ndarray], target: xr.Dataset) -> xr.DataArray:
+    """Apply ``one`` (a ``(y, x)`` field -> ``(lat, lon)`` field) to every field of ``da``, lazily."""
+    tlat, tlon = target["lat"].values, target["lon"].values
+
+    def kernel(v: np.ndarray) -> np.ndarray:
+        flat = np.asarray(v, dtype="float64").reshape(-1, *v.shape[-2:])
+        out = np.stack([one(f) for f in flat]) if flat.shape[0] else np.empty((0, tlat.size, tlon.size))
+        return out.reshape(*v.shape[:-2], tlat.size, tlon.size)
+
+    src = da.drop_vars([c for c in SOURCE_GRID_COORDS if c in da.coords])
+    if src.chunks is not None:
+        src = src.chunk({"y": -1, "x": -1})
+    out = xr.apply_ufunc(
+        kernel,
+        src,
+        input_core_dims=[["y", "x"]],
+        output_core_dims=[["lat", "lon"]],
+        dask="parallelized",
+        output_dtypes=["float64"],
+        dask_gufunc_kwargs={"output_sizes": {"lat": tlat.size, "lon": tlon.size}},
+    )
+    return out.assign_coords(lat=tlat, lon=tlon)
+
+
 def bilinear(da: xr.DataArray, source_grid: xr.Dataset, target: xr.Dataset) -> xr.DataArray:
     """Bilinear interpolation from a logically rectangular grid (pyresample)."""
     import warnings
@@ -116,40 +142,23 @@ def bilinear(da: xr.DataArray, source_grid: xr.Dataset, target: xr.Dataset) -> x
         from pyresample import geometry
         from pyresample.bilinear import NumpyBilinearResampler
 
-    tlat, tlon = target["lat"].values, target["lon"].values
-    lon2, lat2 = np.meshgrid(tlon, tlat)
     swath = geometry.SwathDefinition(lons=source_grid["lon"].values, lats=source_grid["lat"].values)
     lat_b, lon_b = target["lat_bnds"].values, target["lon_bnds"].values
     # a regular latitude-longitude target is an area in EPSG:4326; pyresample's rows run north to south
     dest = geometry.AreaDefinition(
-        "target", "regular target grid", "latlon", "EPSG:4326", tlon.size, tlat.size,
+        "target", "regular target grid", "latlon", "EPSG:4326", target.sizes["lon"], target.sizes["lat"],
         (float(lon_b.min()), float(lat_b.min()), float(lon_b.max()), float(lat_b.max())),
     )
     resampler = NumpyBilinearResampler(swath, dest, radius_of_influence=2.0 * source_spacing(source_grid) * EARTH_RADIUS)
 
-    def kernel(x: np.ndarray) -> np.ndarray:
-        lead = x.shape[:-2]
-        flat = np.asarray(x, dtype="float64").reshape(-1, *x.shape[-2:])
+    def one(field: np.ndarray) -> np.ndarray:
         with warnings.catch_warnings():
             # pyproj warns about the PROJ-string form of EPSG:4326, numpy about 0/0 for targets
             # outside the source (they come out NaN, as they should)
             warnings.simplefilter("ignore")
-            out = np.stack([resampler.resample(f, fill_value=np.nan)[::-1] for f in flat]) if flat.shape[0] else np.empty((0, *lon2.shape))
-        return out.reshape(*lead, *lon2.shape)
+            return resampler.resample(field, fill_value=np.nan)[::-1]
 
-    src = da.drop_vars([c for c in SOURCE_GRID_COORDS if c in da.coords])
-    if src.chunks is not None:
-        src = src.chunk({"y": -1, "x": -1})
-    out = xr.apply_ufunc(
-        kernel,
-        src,
-        input_core_dims=[["y", "x"]],
-        output_core_dims=[["lat", "lon"]],
-        dask="parallelized",
-        output_dtypes=["float64"],
-        dask_gufunc_kwargs={"output_sizes": {"lat": tlat.size, "lon": tlon.size}},
-    )
-    return out.assign_coords(lat=tlat, lon=tlon)
+    return _per_field(da, one, target)
 
 
 def bilinear_rotated(da: xr.DataArray, source_grid: xr.Dataset, target: xr.Dataset) -> xr.DataArray:
@@ -158,30 +167,15 @@ def bilinear_rotated(da: xr.DataArray, source_grid: xr.Dataset, target: xr.Datas
 
     from .rotated import true_to_rotated
 
-    tlat, tlon = target["lat"].values, target["lon"].values
-    lon2, lat2 = np.meshgrid(tlon, tlat)
+    lon2, lat2 = np.meshgrid(target["lon"].values, target["lat"].values)
     rlon, rlat = true_to_rotated(lon2, lat2, tuple(source_grid["crs"].attrs.items()))
     y, x = source_grid["y"].values, source_grid["x"].values
     ys, xs = (slice(None, None, -1) if y[0] > y[-1] else slice(None)), (slice(None, None, -1) if x[0] > x[-1] else slice(None))
     rlon = np.where(rlon < x[xs][0], rlon + 360.0, rlon)  # a rotated axis running past 180°
     points = np.stack([rlat.ravel(), rlon.ravel()], axis=-1)
 
-    def kernel(v: np.ndarray) -> np.ndarray:
-        lead = v.shape[:-2]
-        flat = np.asarray(v, dtype="float64").reshape(-1, *v.shape[-2:])
-        out = [RegularGridInterpolator((y[ys], x[xs]), f[ys][:, xs], bounds_error=False, fill_value=np.nan)(points) for f in flat]
-        return np.asarray(out).reshape(*lead, tlat.size, tlon.size)
+    def one(field: np.ndarray) -> np.ndarray:
+        interp = RegularGridInterpolator((y[ys], x[xs]), field[ys][:, xs], bounds_error=False, fill_value=np.nan)
+        return interp(points).reshape(lon2.shape)
 
-    src = da.drop_vars([c for c in SOURCE_GRID_COORDS if c in da.coords])
-    if src.chunks is not None:
-        src = src.chunk({"y": -1, "x": -1})
-    out = xr.apply_ufunc(
-        kernel,
-        src,
-        input_core_dims=[["y", "x"]],
-        output_core_dims=[["lat", "lon"]],
-        dask="parallelized",
-        output_dtypes=["float64"],
-        dask_gufunc_kwargs={"output_sizes": {"lat": tlat.size, "lon": tlon.size}},
-    )
-    return out.assign_coords(lat=tlat, lon=tlon)
+    return _per_field(da, one, target)
