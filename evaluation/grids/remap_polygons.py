@@ -132,7 +132,7 @@ def _pole_longitudes(lon: np.ndarray, lat: np.ndarray, ring: np.ndarray) -> np.n
 
     original = lon.copy()
     for i in np.flatnonzero(at_pole):  # few points: the poles
-        before, after = neighbour(i, True), neighbour(i, False)
+        before, after = neighbour(int(i), True), neighbour(int(i), False)
         prev = first[ring[i]] if i == last[ring[i]] else i + 1
         nxt_on_pole = at_pole[prev]
         back_on_pole = at_pole[i - 1 if i > first[ring[i]] else last[ring[i]]]

@@ -7,6 +7,7 @@ that global grids map without gaps.
 
 from __future__ import annotations
 
+from collections.abc import Hashable
 from functools import lru_cache
 
 import numpy as np
@@ -68,7 +69,7 @@ def _overlaps(src_lat: bytes, src_lon: bytes, tgt_lat: bytes, tgt_lon: bytes) ->
     mu_tgt = np.sin(np.deg2rad(bounds(tgt_lat)))
     w_lat = utils.overlap(intervals(mu_src), intervals(mu_tgt))
     src_lon_b, tgt_lon_b = bounds(src_lon), bounds(tgt_lon)
-    w_lon = sum(utils.overlap(intervals(src_lon_b + shift), intervals(tgt_lon_b)) for shift in (-360.0, 0.0, 360.0))
+    w_lon = np.sum([utils.overlap(intervals(src_lon_b + shift), intervals(tgt_lon_b)) for shift in (-360.0, 0.0, 360.0)], axis=0)
     w_lat.setflags(write=False)
     w_lon.setflags(write=False)
     return w_lat, w_lon
@@ -95,7 +96,7 @@ def conservative(da: xr.DataArray, source_grid: xr.Dataset | None, target: xr.Da
     tgt_lat, tgt_lon = target["lat"].values, target["lon"].values
     da = da.drop_vars([c for c in ("lat_bnds", "lon_bnds", "cell_area") if c in da.coords])
     w_lat, w_lon = _overlaps(src_lat_b.tobytes(), src_lon_b.tobytes(), tgt_lat_b.tobytes(), tgt_lon_b.tobytes())
-    weights = {
+    weights: dict[Hashable, xr.DataArray] = {
         "lat": utils.create_dot_dataarray(utils.normalize_overlap(w_lat), "lat", tgt_lat, da["lat"].values),
         "lon": utils.create_dot_dataarray(utils.normalize_overlap(w_lon), "lon", tgt_lon, da["lon"].values),
     }
