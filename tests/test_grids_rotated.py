@@ -162,3 +162,14 @@ def test_bilinear_is_exact_for_a_field_linear_in_rotated_coordinates(tmp_path):
     assert ok.mean() > 0.5
     # bilinear interpolation is exact for functions linear in each coordinate (textbook); float32 storage
     np.testing.assert_allclose(out.values[ok], (280.0 + 0.5 * trp - 0.2 * trl)[ok], atol=1e-4)
+
+
+def test_a_pole_that_contradicts_the_files_own_latitudes_is_refused(tmp_path):
+    path = tmp_path / "r.nc"
+    write_rotated(path, rlat=np.arange(-5.0, 5.1, 1.0), rlon=np.arange(-5.0, 5.1, 1.0), pole_lat=39.25, pole_lon=-162.0, years=1)
+    with xr.open_dataset(path) as ds:
+        wrong = ds.load()
+    wrong["rotated_pole"].attrs["grid_north_pole_longitude"] = -150.0  # the 2-D lat/lon keep the true pole
+    wrong.to_netcdf(tmp_path / "wrong.nc")
+    with pytest.raises(InputError, match="away from the file's own latitude/longitude"):
+        io.open_source(str(tmp_path / "wrong.nc"))

@@ -125,6 +125,38 @@ def _axis_bounds(raw: xr.Dataset, name: str, kind: str) -> np.ndarray:
     return np.sort(infer_bounds(np.asarray(raw[name].values, dtype="float64"), kind=kind), axis=1)  # type: ignore[arg-type]
 
 
+#: Largest difference (degrees) tolerated between the rotation and the file's own 2-D
+#: latitude/longitude: files store them in single precision (about 1e-5°).
+AGREEMENT = 0.01
+
+
+def _check_against_file(raw: xr.Dataset, desc: GridDescription, lon: np.ndarray, lat: np.ndarray) -> None:
+    """Refuse a file whose own 2-D latitude/longitude contradict its grid mapping.
+
+    Many files carry both; a pole written wrongly (or for another grid) would otherwise
+    place the domain somewhere else without a word.
+    """
+    from .curvilinear import is_latitude, is_longitude
+
+    def two_d(test) -> np.ndarray | None:
+        for var in raw.variables.values():
+            if var.ndim == 2 and set(var.dims) == set(desc.dims) and test(var):
+                return np.asarray(var.transpose(*desc.dims).values, dtype="float64")
+        return None
+
+    file_lat, file_lon = two_d(is_latitude), two_d(is_longitude)
+    if file_lat is None or file_lon is None:
+        return
+    d_lat = np.nanmax(np.abs(file_lat - lat))
+    d_lon = np.nanmax(np.abs(((file_lon - lon + 180.0) % 360.0) - 180.0) * np.cos(np.deg2rad(lat)))
+    if max(d_lat, d_lon) > AGREEMENT:
+        raise InputError(
+            f"the rotated pole of the grid mapping places the cells up to {max(d_lat, d_lon):.3g}° away from the file's own latitude/longitude",
+            file=raw.encoding.get("source"),
+            remedy="correct grid_north_pole_latitude/_longitude (and north_pole_grid_longitude) of the grid mapping, or the 2-D latitude/longitude",
+        )
+
+
 def canonical(out: xr.Dataset, raw: xr.Dataset, desc: GridDescription) -> xr.Dataset:
     """True centres, corners and exact areas for ``out`` (already on dims ``y``/``x``)."""
     rlat = np.asarray(raw[desc.lat].values, dtype="float64")
@@ -140,6 +172,7 @@ def canonical(out: xr.Dataset, raw: xr.Dataset, desc: GridDescription) -> xr.Dat
     yb, xb = _axis_bounds(raw, desc.lat, "lat"), _axis_bounds(raw, desc.lon, "lon")
     rlon2, rlat2 = np.meshgrid(rlon, rlat)
     lon, lat = rotated_to_true(rlon2, rlat2, desc.mapping)
+    _check_against_file(raw, desc, lon, lat)
     # corners counter-clockwise in (rotated lon, rotated lat): CF vertex order
     c_rlat = np.stack([yb[:, 0], yb[:, 0], yb[:, 1], yb[:, 1]], axis=-1)[:, None, :].repeat(rlon.size, axis=1)
     c_rlon = np.stack([xb[:, 0], xb[:, 1], xb[:, 1], xb[:, 0]], axis=-1)[None, :, :].repeat(rlat.size, axis=0)
