@@ -33,6 +33,7 @@ each holding its ``*.nc`` files.  The manifest is the only way a collection name
 
 from __future__ import annotations
 
+import glob
 import os
 import re
 import tomllib
@@ -177,7 +178,8 @@ class Collection:
             if not parent.is_dir():
                 continue
             for child in sorted(p for p in parent.iterdir() if p.is_dir()):
-                pattern = str(child / "*.nc")
+                # a folder name is not a pattern: '[' or '*' in it must match itself
+                pattern = os.path.join(glob.escape(str(child)), "*.nc")
                 io.expand_paths(pattern, source=child.name)  # refuses a folder without files
                 sources.append(Source(name=child.name, role=role, paths=(pattern,)))
         if not sources:

@@ -22,7 +22,7 @@ from evaluation.errors import InputError
 from evaluation.trends import ols_trend
 
 from ..state import Request
-from .base import ResultView, safe_filename, text_html
+from .base import ResultView, safe_filename, text_html, text_tooltip
 from .lines import curve, line_figure
 from .results import Results
 from .scores import TABLE_CSS
@@ -142,7 +142,7 @@ class BudgetView(ResultView):
             callback=lambda: io.BytesIO(table.to_csv(index=False).encode("utf-8")),
             filename=safe_filename("budget", data["period"]) + ".csv",
             label="CSV", color="light", width=100, height=34,
-            description="Download the budget table (tidy: model, period, metric, value, units)",
+            description=text_tooltip("Download the budget table (tidy: model, period, metric, value, units)"),
         )
         parts += [
             runs,

@@ -21,7 +21,7 @@ from evaluation.export import field_bytes
 from evaluation.regions import parse_region
 
 from ..state import Request
-from .base import ResultView, safe_filename
+from .base import ResultView, plot_title, safe_filename, text_tooltip
 from .coastlines import coastline_path
 from .look import DIVERGING, SEQUENTIAL
 from .results import MapField
@@ -103,7 +103,7 @@ def map_element(item: MapField, *, clim: tuple[float, float], units: str) -> hv.
         cmap=palette,
         clim=clim,
         colorbar=True,
-        title=item.title,
+        title=plot_title(item.title),
         backend="bokeh",
     ).opts(
         tools=["hover", "box_select"],
@@ -122,7 +122,7 @@ def map_element(item: MapField, *, clim: tuple[float, float], units: str) -> hv.
         cmap=palette,
         clim=clim,
         colorbar=True,
-        title=item.title,
+        title=plot_title(item.title),
         clipping_colors={"NaN": (1.0, 1.0, 1.0, 0.0)},
         aspect=2,
         fig_inches=(7, 3.6),
@@ -219,7 +219,7 @@ class MapsView(ResultView):
         name = f"{info.long_name} ({request.variable})" if info.long_name else request.variable
         title = f"{name}, {request.season} {request.period}"
         layout = hv.Layout(maps).cols(2 if len(maps) > 1 else 1)
-        return layout.opts(shared_axes=True, backend="bokeh").opts(title=title, sublabel_format="", backend="matplotlib")
+        return layout.opts(shared_axes=True, backend="bokeh").opts(title=plot_title(title), sublabel_format="", backend="matplotlib")
 
     def draw(self, data: dict[str, Any], request: Request) -> pn.viewable.Viewable:
         figure = self.figure(data, request)
@@ -274,7 +274,8 @@ class MapsView(ResultView):
             color="light",
             width=min(320, 60 + 8 * len(item.title)),
             height=34,
-            description=f"Download '{item.title}' as CF NetCDF with provenance",
+            # the title holds run and reference names (folder names, manifest): text only
+            description=text_tooltip(f"Download '{item.title}' as CF NetCDF with provenance"),
             css_classes=["gs-download-nc"],
         )
 

@@ -20,7 +20,7 @@ import param
 from evaluation.regions import REGIONS, parse_region
 
 from ..state import Request
-from .base import ResultView
+from .base import ResultView, plot_title
 from .look import DIVERGING
 
 __all__ = ["OverviewView", "SPLITS", "error_matrix"]
@@ -38,6 +38,8 @@ def error_matrix(tidy: pd.DataFrame, *, split: str) -> pd.DataFrame:
     Rows other than the ``rel_error`` metric are ignored; NaN stays NaN (an empty cell).
     """
     rel = tidy[tidy["metric"] == "rel_error"].copy()
+    if "level" in rel.columns:  # a variable on levels is shown on its level: "ta 500 hPa"
+        rel["variable"] = [f"{v} {lv}" if isinstance(lv, str) and lv else v for v, lv in zip(rel["variable"], rel["level"], strict=True)]
     if split == "season":
         rel["column"] = rel["variable"] + " " + rel["season"]
     elif split == "region":
@@ -99,6 +101,9 @@ class OverviewView(ResultView):
         top = float(np.abs(finite).max()) if finite.size else 1.0
         top = top if top > 0 else 1.0  # all runs equal: a zero range breaks the colour bar
         frame = matrix.assign(text=[_cell_text(v) for v in matrix["value"]])
+        # HoloViews reshapes the hover columns into the grid; pyarrow-backed strings
+        # (pandas' default string type) cannot be reshaped, plain objects can.
+        frame = frame.astype({c: object for c in frame.columns if c != "value"})
         xdim = hv.Dimension("column", label="Variable", values=columns)
         ydim = hv.Dimension("model", label="Run", values=runs[::-1])
         vdim = hv.Dimension("value", label="Relative error")
@@ -108,7 +113,7 @@ class OverviewView(ResultView):
         labels = [hv.Labels(frame[dark], [xdim, ydim], "text"), hv.Labels(frame[~dark], [xdim, ydim], "text")]
         where = parse_region(request.region).label if data["split"] != "region" else "all regions"
         when = request.season if data["split"] != "season" else "seasons"
-        title = f"Relative RMSE error: {where}, {when}, {request.period}"
+        title = plot_title(f"Relative RMSE error: {where}, {when}, {request.period}")
         height = max(260, 60 + 44 * len(runs))
         heat = heat.opts(
             cmap=DIVERGING, clim=(-top, top), colorbar=True, tools=["hover"], xrotation=30 if len(columns) > 6 else 0,

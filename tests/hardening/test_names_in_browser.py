@@ -1,0 +1,124 @@
+"""Hostile names from every source reach the page as text, never as markup or script.
+
+Names come from folder names (a collection read by its layout), manifest fields, NetCDF
+attributes and link values.  Each page is watched by a dialog listener (every payload
+calls ``alert``) and checked for elements the payloads would create; every tab is opened.
+Braces in names must not break the plots (HoloViews formats titles with ``str.format``).
+One served app per collection, shared by the cases of this module.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+from urllib.parse import quote
+
+import pytest
+from browser.conftest import open_dashboard, serving, wait_for_view
+
+from app.state import TABS
+from app.views.results import Results
+from evaluation.catalog import Collection
+
+from .hostile import ATTRIBUTE_IMG, FOLDER_BRACES, FOLDER_IMG, FORMULA, MANIFEST_SCRIPT, MANIFEST_SVG, layout_collection, manifest_collection
+
+pytestmark = pytest.mark.browser
+
+DRAWN = {tab: "canvas" for tab in TABS} | {"scores": ".tabulator-row"}
+
+
+@pytest.fixture(scope="module")
+def layout_app(tmp_path_factory):
+    results = Results(Collection.from_path(layout_collection(tmp_path_factory.mktemp("layout"))))
+    with serving(results) as url:
+        yield url
+    results.close()
+
+
+@pytest.fixture(scope="module")
+def manifest_app(tmp_path_factory):
+    results = Results(Collection.from_path(manifest_collection(tmp_path_factory.mktemp("manifest"))))
+    with serving(results) as url:
+        yield url
+    results.close()
+
+
+def _watch(session) -> list[str]:
+    dialogs: list[str] = []
+
+    def on_dialog(dialog) -> None:
+        dialogs.append(dialog.message)
+        dialog.dismiss()
+
+    session.page.on("dialog", on_dialog)
+    return dialogs
+
+
+def _nothing_ran(page, dialogs: list[str]) -> None:
+    assert dialogs == [], f"a name ran as script: {dialogs}"
+    assert page.evaluate("() => window.__xss === undefined")
+    # Playwright's CSS engine looks inside the shadow roots Panel renders into
+    for selector in ("img[src='x']", "img[src='y']", "svg[onload]", "script:text('alert(78)')"):
+        assert page.locator(selector).count() == 0, selector
+
+
+def _every_tab(page, dialogs: list[str]) -> None:
+    tabs = [t for t in TABS if page.locator(".gs-tabs").get_by_text(TABS[t], exact=True).count()]
+    assert {"maps", "scores", "series", "taylor"} <= set(tabs)
+    for tab in tabs:
+        page.locator(".gs-tabs").get_by_text(TABS[tab], exact=True).first.click()
+        wait_for_view(page, tab, what=DRAWN[tab])
+        _nothing_ran(page, dialogs)
+        assert page.locator(f".gs-view-{tab} .gs-error").count() == 0, page.locator(f".gs-view-{tab} .gs-error").all_text_contents()
+
+
+def test_folder_names_are_text_on_every_tab(browser, layout_app) -> None:
+    session = open_dashboard(browser, layout_app + "/")
+    dialogs = _watch(session)
+    page = session.page
+    wait_for_view(page, "maps")
+    _nothing_ran(page, dialogs)
+    # the NetCDF download buttons carry the names in label and tooltip: hover them all
+    buttons = page.locator(".gs-download-nc")
+    assert buttons.count() == 2
+    for i in range(buttons.count()):
+        buttons.nth(i).hover()
+        page.wait_for_timeout(200)
+        _nothing_ran(page, dialogs)
+    # the names are on the page as written (run list and download labels)
+    assert page.get_by_text(FOLDER_IMG, exact=False).count() >= 1
+    assert page.get_by_text(FOLDER_BRACES, exact=False).count() >= 1
+    _every_tab(page, dialogs)
+    assert session.errors() == []
+    session.close()
+
+
+def test_manifest_names_and_attributes_are_text_on_every_tab(browser, manifest_app) -> None:
+    session = open_dashboard(browser, manifest_app + "/?field=model_mean")
+    dialogs = _watch(session)
+    page = session.page
+    wait_for_view(page, "maps")
+    _nothing_ran(page, dialogs)
+    for i in range(page.locator(".gs-download-nc").count()):
+        page.locator(".gs-download-nc").nth(i).hover()
+        page.wait_for_timeout(150)
+    _nothing_ran(page, dialogs)
+    for name in (MANIFEST_SCRIPT, MANIFEST_SVG, FORMULA, "-1+1 {z}"):
+        assert page.get_by_text(name, exact=False).count() >= 1, name
+    assert page.get_by_text(ATTRIBUTE_IMG, exact=False).count() >= 1  # a source description
+    _every_tab(page, dialogs)
+    assert session.errors() == []
+    session.close()
+
+
+def test_hostile_link_values_are_text(browser, manifest_app) -> None:
+    hostile = "<img src=x onerror=alert(80)>"
+    query = "&".join(f"{name}={quote(hostile)}" for name in ("variable", "reference", "models", "region", "season", "period", "tab"))
+    session = open_dashboard(browser, f"{manifest_app}/?{query}&{quote(hostile)}=1")
+    dialogs = _watch(session)
+    page = session.page
+    wait_for_view(page, "maps")
+    _nothing_ran(page, dialogs)
+    # the notices repeat the link's values literally
+    assert page.locator(".gs-notice").get_by_text(hostile, exact=False).count() >= 1
+    assert session.errors() == []
+    session.close()
