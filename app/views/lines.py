@@ -14,7 +14,7 @@ import numpy as np
 __all__ = ["BAND_COLOUR", "curve", "line_figure", "reference_band"]
 
 #: Fill of the references' spread (a grey that a thick black reference line stays visible on).
-BAND_COLOUR = "#9ca3af"
+BAND_COLOUR = "#8b8f98"
 
 _MPL_DASH = {"solid": "-", "dashed": "--", "dotted": ":"}
 
@@ -64,7 +64,7 @@ def reference_band(curves: dict, dim: str, *, xdim: hv.Dimension, ydim: hv.Dimen
     label = f"reference spread ({', '.join(curves)})"
     x = np.asarray(frame.index, dtype="float64")
     band = hv.Area((x, low.to_numpy(dtype="float64"), high.to_numpy(dtype="float64")), kdims=[xdim], vdims=[ydim, f"{ydim.name}_high"], label=label)
-    return band.opts(color=BAND_COLOUR, alpha=0.35, line_alpha=0.0, backend="bokeh").opts(color=BAND_COLOUR, alpha=0.35, backend="matplotlib")
+    return band.opts(color=BAND_COLOUR, alpha=0.5, line_alpha=0.0, backend="bokeh").opts(color=BAND_COLOUR, alpha=0.5, backend="matplotlib")
 
 
 def line_figure(curves: list[hv.Element], *, title: str, xticks: list | None = None, xlim: tuple | None = None) -> hv.Overlay:
