@@ -1,32 +1,91 @@
 """A persistent on-disk cache of reduced products (yearly season means, monthly climatologies).
 
-Entries are small NetCDF files named by a hash of what produced them: the identity of
-every input file (path, size, modification time) and the parameters of the reduction.
-A changed input therefore never meets an old entry.  The folder has a size bound; when
-it is exceeded the least recently used entries go first (a hit refreshes an entry's
-modification time).
+Entries are small NetCDF (or JSON) files named by a hash of what produced them: the
+identity of every input file (see :func:`evaluation.io.file_identity`) and the parameters
+of the reduction, so a changed input never meets an old entry.  The folder has a size
+bound; when it is exceeded the least recently used entries go first (a hit refreshes an
+entry's modification time).
 
-Folder: ``$GRIDSCORE_CACHE`` if set, else the user's cache directory
-(``~/.cache/gridscore`` on Linux).  ``GRIDSCORE_CACHE=off`` disables the cache.
-Bound: ``$GRIDSCORE_CACHE_LIMIT_MB`` (default 2000 MB).
+The cache owns only what it made.  Its folder carries a ``CACHEDIR.TAG`` marker (the Cache
+Directory Tagging Specification, so that backup tools skip it) and an index
+(``gridscore-index.json``) listing every entry with the SHA-256 of its content.  Eviction
+and ``clear`` remove only listed entries (and unfinished temporary files of the cache); a
+folder that holds anything else -- a data folder, a home directory -- is refused with an
+:class:`~evaluation.errors.InputError` before anything is read or removed.  An entry whose
+content no longer matches its recorded hash (edited by hand, damaged) is removed and
+recomputed, never served.
+
+Folder: ``$GRIDSCORE_CACHE`` if set, else ``reductions`` in the user's cache directory
+(``~/.cache/gridscore/reductions`` on Linux).  ``GRIDSCORE_CACHE=off`` disables the cache.
+Bound: ``$GRIDSCORE_CACHE_LIMIT_MB`` (default 2000 MB; a value that is not a positive
+number is refused).
 """
 
 from __future__ import annotations
 
+import contextlib
+import fcntl
 import hashlib
 import json
+import math
 import os
+import re
 import tempfile
 import threading
+from collections.abc import Iterator
 from pathlib import Path
 from typing import Any
 
 import xarray as xr
 
-__all__ = ["Cache", "default_cache"]
+from .errors import InputError
+
+__all__ = ["Cache", "cache_limit_bytes", "default_cache"]
 
 _DEFAULT_LIMIT_MB = 2000.0
 _SUFFIX = ".nc"
+#: The Cache Directory Tagging Specification (Bryan Ford, 2004): the first line is fixed.
+MARKER = "CACHEDIR.TAG"
+_MARKER_TEXT = (
+    "Signature: 8a477f597d28d172789f06886806bc55\n"
+    "# This file marks a gridscore cache folder; gridscore deletes only the entries its index lists.\n"
+)
+INDEX = "gridscore-index.json"
+_LOCK = ".gridscore-cache.lock"
+_ENTRY = re.compile(r"^gs-[0-9A-Za-z_-]{1,64}\.(nc|json)$")
+_TEMPORARY = re.compile(r"^\.gs-tmp-[^/]*$")
+_OWN_FILES = frozenset({MARKER, INDEX, _LOCK})
+
+
+def cache_limit_bytes() -> float:
+    """The size bound from ``$GRIDSCORE_CACHE_LIMIT_MB`` (megabytes), in bytes.
+
+    Raises
+    ------
+    InputError
+        The variable is set to something that is not a positive finite number.
+    """
+    text = os.environ.get("GRIDSCORE_CACHE_LIMIT_MB", "").strip()
+    if not text:
+        return _DEFAULT_LIMIT_MB * 1e6
+    try:
+        value = float(text)
+    except ValueError:
+        value = math.nan
+    if not math.isfinite(value) or value <= 0:
+        raise InputError(
+            f"GRIDSCORE_CACHE_LIMIT_MB is {text[:40]!r}, not a positive number of megabytes",
+            remedy="set it to a number such as 2000, or unset it",
+        )
+    return value * 1e6
+
+
+def _digest(path: Path) -> str:
+    sha = hashlib.sha256()
+    with open(path, "rb") as fh:
+        for block in iter(lambda: fh.read(1 << 20), b""):
+            sha.update(block)
+    return sha.hexdigest()
 
 
 class Cache:
@@ -38,110 +97,226 @@ class Cache:
         Folder of the cache; default ``$GRIDSCORE_CACHE`` or the user cache directory.
     limit_bytes
         Size bound; default ``$GRIDSCORE_CACHE_LIMIT_MB`` megabytes (2000).
+
+    Raises
+    ------
+    InputError
+        The folder exists and holds files the cache did not make (see the module notes),
+        or the size bound from the environment is not a positive number.
     """
 
     def __init__(self, path: str | os.PathLike[str] | None = None, *, limit_bytes: float | None = None) -> None:
         if path is None:
             path = os.environ.get("GRIDSCORE_CACHE") or _user_cache_dir()
         self.path = Path(path).expanduser()
-        if limit_bytes is None:
-            limit_bytes = float(os.environ.get("GRIDSCORE_CACHE_LIMIT_MB", _DEFAULT_LIMIT_MB)) * 1e6
-        self.limit = float(limit_bytes)
+        self.limit = float(cache_limit_bytes() if limit_bytes is None else limit_bytes)
         self._lock = threading.Lock()
+        self._check_owned()
 
+    # ------------------------------------------------------------------ ownership
+    def foreign(self) -> list[str]:
+        """Names in the folder that the cache did not make (empty for a missing folder)."""
+        if not self.path.exists():
+            return []
+        if not self.path.is_dir():
+            return [self.path.name]
+        names = sorted(p.name for p in self.path.iterdir())
+        if names and MARKER not in names:
+            return names  # an unmarked folder with content is somebody else's
+        return [n for n in names if n not in _OWN_FILES and not _ENTRY.match(n) and not _TEMPORARY.match(n)
+                or (_ENTRY.match(n) and not (self.path / n).is_file())]
+
+    def _check_owned(self) -> None:
+        others = self.foreign()
+        if others:
+            shown = ", ".join(repr(n) for n in others[:3]) + (f" and {len(others) - 3} more" if len(others) > 3 else "")
+            raise InputError(
+                f"the cache folder holds files gridscore did not make ({shown}); it would not delete them, "
+                "and will not mix its entries with them",
+                file=str(self.path),
+                remedy="set GRIDSCORE_CACHE (or --cache-dir) to an empty or new folder, or GRIDSCORE_CACHE=off",
+            )
+
+    def _claim(self) -> bool:
+        """Create the folder and its marker; False when the folder cannot be written."""
+        try:
+            self.path.mkdir(parents=True, exist_ok=True)
+            marker = self.path / MARKER
+            if not marker.exists():
+                self._check_owned()  # somebody may have put files there since
+                marker.write_text(_MARKER_TEXT)
+        except OSError:
+            return False
+        return True
+
+    @contextlib.contextmanager
+    def _locked(self) -> Iterator[None]:
+        """This thread's lock and an exclusive lock on the folder (other processes)."""
+        with self._lock:
+            with open(self.path / _LOCK, "a") as fh:
+                fcntl.flock(fh, fcntl.LOCK_EX)
+                try:
+                    yield
+                finally:
+                    fcntl.flock(fh, fcntl.LOCK_UN)
+
+    # ------------------------------------------------------------------ the index
+    def _read_index(self) -> dict[str, dict[str, Any]]:
+        try:
+            index = json.loads((self.path / INDEX).read_text())
+        except (OSError, ValueError):
+            return {}
+        if not isinstance(index, dict):
+            return {}
+        return {k: v for k, v in index.items() if _ENTRY.match(str(k)) and isinstance(v, dict) and isinstance(v.get("sha256"), str)}
+
+    def _write_index(self, index: dict[str, dict[str, Any]]) -> None:
+        fd, tmp = tempfile.mkstemp(dir=self.path, prefix=".gs-tmp-", suffix=".json")
+        with os.fdopen(fd, "w") as fh:
+            json.dump(index, fh, sort_keys=True)
+        os.replace(tmp, self.path / INDEX)
+
+    def _verified(self, name: str) -> Path | None:
+        """The entry's file when the index lists it and its content matches the recorded hash."""
+        record = self._read_index().get(name)
+        f = self.path / name
+        if record is None or not f.is_file():
+            return None
+        try:
+            good = _digest(f) == record["sha256"]
+        except OSError:
+            return None
+        if not good:  # edited by hand or damaged: never served, recomputed by the caller
+            self._drop(name)
+            return None
+        try:
+            os.utime(f)  # mark as recently used
+        except OSError:
+            pass
+        return f
+
+    def _drop(self, name: str) -> None:
+        try:
+            with self._locked():
+                index = self._read_index()
+                if index.pop(name, None) is not None:
+                    (self.path / name).unlink(missing_ok=True)
+                    self._write_index(index)
+        except OSError:
+            pass
+
+    def _store(self, name: str, write: Any) -> None:
+        """Write an entry through a temporary file, record its hash, then evict."""
+        if not self._claim():
+            return  # an unwritable cache folder only costs speed
+        try:
+            fd, tmp = tempfile.mkstemp(dir=self.path, prefix=".gs-tmp-", suffix=Path(name).suffix)
+            os.close(fd)
+        except OSError:
+            return
+        try:
+            write(tmp)
+            record = {"sha256": _digest(Path(tmp)), "size": os.path.getsize(tmp)}
+            with self._locked():
+                os.replace(tmp, self.path / name)
+                index = self._read_index()
+                index[name] = record
+                self._write_index(index)
+        except Exception:
+            Path(tmp).unlink(missing_ok=True)
+            return
+        self.evict()
+
+    # ------------------------------------------------------------------ entries
     @staticmethod
     def key(**parts: Any) -> str:
         """A stable hash of JSON-serialisable parts (file identities, parameters)."""
         text = json.dumps(parts, sort_keys=True, default=str)
         return hashlib.sha256(text.encode()).hexdigest()[:32]
 
-    def _file(self, key: str) -> Path:
-        return self.path / f"{key}{_SUFFIX}"
+    @staticmethod
+    def _name(key: str, suffix: str) -> str:
+        if not re.fullmatch(r"[0-9A-Za-z_-]{1,64}", key):
+            raise ValueError(f"not a cache key: {key!r}")
+        return f"gs-{key}{suffix}"
 
     def get(self, key: str) -> xr.DataArray | None:
-        """The stored array, loaded into memory, or ``None``."""
-        f = self._file(key)
-        if not f.exists():
+        """The stored array, loaded into memory, or ``None`` (also for a damaged entry)."""
+        f = self._verified(self._name(key, _SUFFIX))
+        if f is None:
             return None
         try:
-            da = xr.load_dataarray(f)
-        except Exception:  # a damaged entry is a miss, and goes
-            f.unlink(missing_ok=True)
+            return xr.load_dataarray(f)
+        except Exception:  # unreadable despite a matching hash: a miss, and it goes
+            self._drop(f.name)
             return None
-        try:
-            os.utime(f)  # mark as recently used
-        except OSError:
-            pass
-        return da
 
     def put(self, key: str, da: xr.DataArray) -> None:
         """Store an array (atomically: a temporary file renamed into place), then evict."""
-        try:
-            self.path.mkdir(parents=True, exist_ok=True)
-            fd, tmp = tempfile.mkstemp(dir=self.path, suffix=".tmp")
-            os.close(fd)
-        except OSError:
-            return  # an unwritable cache folder only costs speed
-        try:
+
+        def write(tmp: str) -> None:
             keep = da.drop_vars([c for c in da.coords if c not in da.dims])
             keep.attrs = {k: v for k, v in da.attrs.items() if isinstance(v, (str, int, float))}
             keep.name = keep.name or "value"
             keep.to_netcdf(tmp)
-            os.replace(tmp, self._file(key))
-        except Exception:
-            Path(tmp).unlink(missing_ok=True)
-            return
-        self.evict()
+
+        self._store(self._name(key, _SUFFIX), write)
 
     def get_json(self, key: str) -> Any | None:
         """A stored JSON document (e.g. a whole score table), or ``None``."""
-        f = self.path / f"{key}.json"
-        try:
-            value = json.loads(f.read_text())
-        except (OSError, ValueError):
+        f = self._verified(self._name(key, ".json"))
+        if f is None:
             return None
         try:
-            os.utime(f)
-        except OSError:
-            pass
-        return value
+            return json.loads(f.read_text())
+        except (OSError, ValueError):
+            self._drop(f.name)
+            return None
 
     def put_json(self, key: str, value: Any) -> None:
         """Store a JSON document atomically, then evict."""
-        try:
-            self.path.mkdir(parents=True, exist_ok=True)
-            fd, tmp = tempfile.mkstemp(dir=self.path, suffix=".tmp")
-            with os.fdopen(fd, "w") as fh:
+
+        def write(tmp: str) -> None:
+            with open(tmp, "w") as fh:
                 json.dump(value, fh, default=str)
-            os.replace(tmp, self.path / f"{key}.json")
-        except (OSError, TypeError, ValueError):
-            return
-        self.evict()
+
+        self._store(self._name(key, ".json"), write)
 
     def entries(self) -> list[Path]:
+        """The entry files the index lists (and that exist)."""
         if not self.path.is_dir():
             return []
-        return [p for p in self.path.iterdir() if p.suffix in (_SUFFIX, ".json") and p.is_file()]
+        return [self.path / n for n in self._read_index() if (self.path / n).is_file()]
 
     def evict(self) -> int:
-        """Remove least recently used entries until the folder fits the bound."""
-        with self._lock:
+        """Remove least recently used entries until the listed entries fit the bound.
+
+        Only entries of the index are counted and removed; nothing else in the folder is
+        touched (there is nothing else: :class:`Cache` refuses such a folder).
+        """
+        if not self.path.is_dir():
+            return 0
+        with self._locked():
+            index = self._read_index()
             files = []
-            for p in self.entries():
+            for name in list(index):
                 try:
-                    st = p.stat()
+                    st = (self.path / name).stat()
                 except OSError:
+                    index.pop(name)
                     continue
-                files.append((st.st_mtime, st.st_size, p))
+                files.append((st.st_mtime, st.st_size, name))
             files.sort()
             total = sum(size for _, size, _ in files)
             removed = 0
-            for _, size, p in files:
+            for _, size, name in files:
                 if total <= self.limit:
                     break
-                p.unlink(missing_ok=True)
+                (self.path / name).unlink(missing_ok=True)
+                index.pop(name, None)
                 total -= size
                 removed += 1
+            self._write_index(index)
             return removed
 
     def info(self) -> dict[str, Any]:
@@ -149,20 +324,37 @@ class Cache:
         return {"path": str(self.path), "entries": len(files), "size": sum(p.stat().st_size for p in files), "limit": self.limit}
 
     def clear(self) -> int:
-        files = self.entries()
-        for p in files:
-            p.unlink(missing_ok=True)
-        return len(files)
+        """Remove every entry of the cache (and its unfinished temporary files); nothing else."""
+        self._check_owned()
+        if not self.path.is_dir():
+            return 0
+        with self._locked():
+            index = self._read_index()
+            names = set(index) | {p.name for p in self.path.iterdir() if _ENTRY.match(p.name) and p.is_file()}
+            for name in names:
+                (self.path / name).unlink(missing_ok=True)
+            for p in self.path.iterdir():
+                if _TEMPORARY.match(p.name) and p.is_file():
+                    p.unlink(missing_ok=True)
+            self._write_index({})
+        return len(names)
 
 
 def _user_cache_dir() -> str:
     from platformdirs import user_cache_dir
 
-    return user_cache_dir("gridscore", appauthor=False)
+    # A folder of its own: the user cache directory of gridscore also holds the demo.
+    return os.path.join(user_cache_dir("gridscore", appauthor=False), "reductions")
 
 
 def default_cache() -> Cache | None:
-    """The cache named by the environment, or ``None`` when ``GRIDSCORE_CACHE=off``."""
+    """The cache named by the environment, or ``None`` when ``GRIDSCORE_CACHE=off``.
+
+    Raises
+    ------
+    InputError
+        The folder holds files the cache did not make, or the size bound is not a number.
+    """
     if os.environ.get("GRIDSCORE_CACHE", "").strip().lower() in ("off", "0", "none", "false"):
         return None
     return Cache()

@@ -99,13 +99,13 @@ def test_least_recently_used_entry_goes_first(tmp_path):
         cache.put(k, da)
     now = time.time()
     for i, k in enumerate(("a", "b", "c")):
-        os.utime(cache.path / f"{k}.nc", (now - 100 + i, now - 100 + i))
+        os.utime(cache.path / f"gs-{k}.nc", (now - 100 + i, now - 100 + i))
     assert cache.get("a") is not None  # "a" becomes the most recently used
-    size = (cache.path / "a.nc").stat().st_size
+    size = (cache.path / "gs-a.nc").stat().st_size
     cache.limit = 2 * size
     cache.evict()
     left = sorted(p.stem for p in cache.entries())
-    assert left == ["a", "c"]
+    assert left == ["gs-a", "gs-c"]
 
 
 def test_clear_empties_the_folder(sources, tmp_path):
