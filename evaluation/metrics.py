@@ -81,14 +81,16 @@ METRICS: dict[str, Metric] = {
 }
 
 
-def weighted_mean(da: xr.DataArray, weights: xr.DataArray, *, dims: tuple[str, ...] = ("lat", "lon")) -> xr.DataArray:
-    """Weighted mean over ``dims``; NaN data get zero weight.
+def weighted_mean(da: xr.DataArray, weights: xr.DataArray, *, dims: tuple[str, ...] | None = None) -> xr.DataArray:
+    """Weighted mean over ``dims`` (default: the dimensions of ``weights``, e.g. ``lat, lon``,
+    ``y, x`` or ``cell`` for cell areas); NaN data get zero weight.
 
     Notes
     -----
     Returns NaN where no valid data carry weight (never divides by zero silently into a
     finite number).
     """
+    dims = tuple(str(d) for d in weights.dims) if dims is None else dims
     w = weights.fillna(0.0)
     valid = da.notnull()
     num = (da.fillna(0.0) * w).sum(dims)

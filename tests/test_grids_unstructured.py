@@ -121,3 +121,25 @@ def test_bilinear_from_a_mesh_is_refused_with_the_methods_it_has(mesh):
     ds, _, _ = mesh
     with pytest.raises(InputError, match="not available from unstructured grids.*conservative or nearest"):
         grids.regrid(ds["tas"].isel(time=0), regular_grid(5.0, 5.0), method="bilinear", source_grid=grids.grid_of(ds))
+
+
+def test_energy_budget_of_a_run_on_a_mesh(tmp_path):
+    from evaluation.budget import budget_table
+    from evaluation.scoring import Source
+
+    lon, lat = fibonacci_sphere(3000)
+    fields = {
+        "rsdt": ("toa_incoming_shortwave_flux", "W m-2", 340.0),
+        "rsut": ("toa_outgoing_shortwave_flux", "W m-2", 100.0),
+        "rlut": ("toa_outgoing_longwave_flux", "W m-2", 239.0),
+        "tas": ("air_temperature", "K", 288.0),
+    }
+    paths = [
+        str(write_mesh(tmp_path / f"{v}.nc", lat=lat, lon=lon, field=lambda la, lo, y, m, c=c: c + 0 * la + 0 * y, variable=v, standard_name=sn, units=u, years=3))
+        for v, (sn, u, c) in fields.items()
+    ]
+    table = budget_table([Source(name="m", role="model", paths=paths)], period=None).set_index("metric")["value"]
+    # global means of uniform fields on any grid are the fields themselves: net = 340 - 100 - 239,
+    # albedo = 100 / 340 (definitions, textbook)
+    assert table["toa_net"] == pytest.approx(1.0, abs=1e-9)
+    assert table["albedo"] == pytest.approx(100.0 / 340.0, rel=1e-12)
