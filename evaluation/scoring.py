@@ -225,8 +225,9 @@ class Comparison:
         self._require_runs(failures)
         self.period = self._choose_period(period, failures)
         self._require_runs(failures)
-        spans = [p.span for p in self._prepared.values() if p.kind != "climatology"]
-        self.span = self._overlap(spans)  # the years every source covers
+        alternative = {a.name for a in self.alternatives}
+        spans = [p.span for n, p in self._prepared.items() if p.kind != "climatology" and n not in alternative]
+        self.span = self._overlap(spans)  # the years the primary reference and every run cover
         self._note_time_kinds()
         self._target_grid, self.target_grid_text = self._choose_target()
 
@@ -334,9 +335,13 @@ class Comparison:
                 del dated[name]
         if not self.models:
             return Period(0, 0)
+        alternative = {a.name for a in self.alternatives}
         if period is None:
-            return default_period([p.span for p in dated.values()], names=list(dated))
-        chosen = parse_period(period)
+            # the primary and the runs decide; an alternative reference that does not cover it is left out
+            core = {n: p for n, p in dated.items() if n not in alternative}
+            chosen = default_period([p.span for p in core.values()], names=list(core))
+        else:
+            chosen = parse_period(period)
         for name, prep in dated.items():
             if not prep.span.covers(chosen):  # type: ignore[union-attr]
                 err = InputError(

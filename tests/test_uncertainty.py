@@ -165,6 +165,17 @@ def test_an_unreadable_alternative_is_left_out(files) -> None:
     assert cmp.provenance()["references"] == ["obs-p"]
 
 
+def test_a_shorter_alternative_does_not_shorten_the_default_period(files, tmp_path) -> None:
+    short = write_cf(tmp_path / "short.nc", field=field(0.3), dlat=10.0, start_year=1998, years=4, dtype="float64")
+    cmp = Comparison(reference=ref(files, "obs-p"), alternatives=[Source(name="short", role="reference", paths=[str(short)])],
+                     models=[run(files, "run-a")], variable="tas", cache=False)
+    # the primary and the run cover 1995-2004 (no WMO normal): that overlap is the period, and the
+    # alternative covering 1998-2001 only is left out with the reason
+    assert str(cmp.period) == "1995-2004" and str(cmp.span) == "1995-2004"
+    assert cmp.alternatives == [] and [(o["source"], o["season"]) for o in cmp.omissions] == [("short", "all")]
+    assert "does not cover the period 1995-2004" in cmp.omissions[0]["reason"]
+
+
 # ---------------------------------------------------------------- the rule, by hand
 @pytest.mark.parametrize(
     ("a", "b", "metric", "expected"),
