@@ -160,7 +160,9 @@ class ScoresView(ResultView):
     explanation = (
         "Area-weighted statistics of each run against the reference for the selected region, "
         "season and period. The best value of each column is highlighted (bias: nearest zero; "
-        "ratios: nearest one). Click a header to sort; hover a header for the definition."
+        "ratios: nearest one). With several references, values within observational uncertainty of "
+        "the best are underlined and named in the last column (the rule is stated below the table's "
+        "context line). Click a header to sort; hover a header for the definition."
     )
 
     def key(self, request: Request) -> Any:
