@@ -16,7 +16,7 @@ import panel as pn
 import xarray as xr
 
 from ..state import Request
-from .base import ResultView, text_html
+from .base import ResultView, plot_title, text_html
 from .look import DIVERGING, SEQUENTIAL
 from .maps import colour_range
 
@@ -87,7 +87,8 @@ def section_element(field: xr.DataArray, *, title: str, quantity: str, clim: tup
     # uneven (e.g. Gaussian) latitudes would be misplaced by hv.Image (holoviz/holoviews#1869)
     mesh = (hv.Image if even else hv.QuadMesh)((lat, rows, data), kdims=[xdim, ydim], vdims=[vdim])
     palette = DIVERGING if signed else SEQUENTIAL
-    common = dict(cmap=palette, clim=clim, colorbar=True, title=title, yticks=ticks, xticks=[-90, -60, -30, 0, 30, 60, 90])
+    # run names come from the manifest: braces kept literal in HoloViews titles
+    common = dict(cmap=palette, clim=clim, colorbar=True, title=plot_title(title), yticks=ticks, xticks=[-90, -60, -30, 0, 30, 60, 90])
     return mesh.opts(
         **common, tools=["hover"], responsive=True, height=320, clipping_colors={"NaN": "transparent"},
         colorbar_opts={"title": units}, backend="bokeh",
