@@ -1,0 +1,195 @@
+"""Whether a difference of climatologies stands out from interannual variability, cell by cell.
+
+A bias map compares two climatologies, each the mean of a few decades of yearly season
+means.  :func:`difference_test` tests the difference at every cell with a two-sample
+t-test whose sample sizes are reduced for lag-1 autocorrelation as Santer et al. (2000,
+J. Geophys. Res. 105, 7337-7356) do for trends.  Testing thousands of cells at once finds
+"significant" cells by chance; :func:`fdr_significant` controls the false discovery rate
+(Benjamini and Hochberg 1995, J. R. Stat. Soc. B 57, 289-300), as Wilks (2016, Bull. Amer.
+Meteor. Soc. 97, 2263-2273) recommends for fields; :func:`significant_area_fraction`
+summarises the result as one number.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import xarray as xr
+from scipy import stats
+
+__all__ = [
+    "FDR_LEVEL",
+    "bh_adjusted",
+    "difference_test",
+    "effective_sizes",
+    "fdr_significant",
+    "significant_area_fraction",
+]
+
+#: The false-discovery level: Wilks (2016) shows that alpha_FDR = 2 alpha_global keeps a
+#: global test level alpha_global = 0.05 for the strongly correlated fields of climate data.
+FDR_LEVEL = 0.10
+
+
+def effective_sizes(x: np.ndarray, *, axis: int = 0) -> np.ndarray:
+    """Effective sample size ``n (1 - r1) / (1 + r1)`` along ``axis`` (Santer et al. 2000, eq. 6).
+
+    ``r1`` is the sample lag-1 autocorrelation of the anomalies about the mean,
+    ``sum(d_t d_t+1) / sum(d_t^2)`` (the estimator of :func:`evaluation.trends.ols_trend`).
+
+    Notes
+    -----
+    ``n`` itself where ``r1 <= 0`` or where the series has no variance (common practice:
+    negative autocorrelation is not allowed to inflate the sample).  NaN anywhere along
+    ``axis`` gives NaN.
+    """
+    x = np.moveaxis(np.asarray(x, dtype="float64"), axis, 0)
+    n = x.shape[0]
+    d = x - x.mean(axis=0)
+    denom = (d * d).sum(axis=0)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        r1 = (d[:-1] * d[1:]).sum(axis=0) / denom
+    size = np.where(np.isfinite(r1) & (r1 > 0), n * (1.0 - r1) / (1.0 + r1), float(n))
+    return np.where(np.isfinite(x).all(axis=0), size, np.nan)
+
+
+def difference_test(a: xr.DataArray, b: xr.DataArray, *, dim: str = "year", adjust: bool = True) -> xr.Dataset:
+    """Two-sample t-test of ``mean(a) - mean(b)`` along ``dim`` at every other index (cell).
+
+    Parameters
+    ----------
+    a, b
+        Yearly season means ``(dim, ...)`` of a run and of a reference on one grid; the
+        years need not be the same nor as many.
+    dim
+        The dimension of the samples.
+    adjust
+        Reduce each sample size to its effective size (:func:`effective_sizes`).
+        ``False`` gives the ordinary pooled-variance test (``scipy.stats.ttest_ind``).
+
+    Returns
+    -------
+    Dataset
+        ``difference`` (mean of a minus mean of b), ``t``, ``dof``, ``pvalue``
+        (two-sided), ``n_eff_a`` and ``n_eff_b``, on the other dimensions.
+
+    Notes
+    -----
+    The pooled variance ``s² = ((n_a-1) s_a² + (n_b-1) s_b²) / (n_a + n_b - 2)`` uses the
+    sample variances over all years; only the standard error ``s sqrt(1/n'_a + 1/n'_b)``
+    and the degrees of freedom ``n'_a + n'_b - 2`` use the effective sizes ``n'``, as
+    Santer et al. (2000) treat the residual variance and ``n_e`` of a trend.  scipy's
+    ``ttest_ind`` has no effective sample size, so the statistic is written out here.
+    A cell with NaN in any year of either sample, fewer than two years in a sample,
+    non-positive degrees of freedom or zero variance in both samples gets NaN t and
+    p-value (a constant difference has no interannual variability to test against).
+    """
+    a = a.transpose(dim, ...)
+    b = b.transpose(dim, ...)
+    av, bv = np.asarray(a.values, dtype="float64"), np.asarray(b.values, dtype="float64")
+    na, nb = av.shape[0], bv.shape[0]
+    if adjust:
+        ea, eb = effective_sizes(av), effective_sizes(bv)
+    else:
+        ea = np.where(np.isfinite(av).all(axis=0), float(na), np.nan)
+        eb = np.where(np.isfinite(bv).all(axis=0), float(nb), np.nan)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        diff = av.mean(axis=0) - bv.mean(axis=0)
+        pooled = ((na - 1) * av.var(axis=0, ddof=1) + (nb - 1) * bv.var(axis=0, ddof=1)) / (na + nb - 2) if na + nb > 2 else np.full(diff.shape, np.nan)
+        dof = ea + eb - 2.0
+        stderr = np.sqrt(pooled * (1.0 / ea + 1.0 / eb))
+        t = np.where((dof > 0) & (stderr > 0) & (na > 1) & (nb > 1), diff / stderr, np.nan)
+        pvalue = np.where(np.isfinite(t), 2.0 * stats.t.sf(np.abs(t), np.where(dof > 0, dof, 1.0)), np.nan)
+    other = [d for d in a.dims if d != dim]
+    coords = {k: v for k, v in a.coords.items() if dim not in v.dims}
+    out = xr.Dataset(
+        {
+            "difference": (other, diff),
+            "t": (other, t),
+            "dof": (other, dof),
+            "pvalue": (other, pvalue),
+            "n_eff_a": (other, ea),
+            "n_eff_b": (other, eb),
+        },
+        coords=coords,
+    )
+    out.attrs = {"test": "two-sample t-test, pooled variance" + (", Santer et al. (2000) effective sample sizes" if adjust else "")}
+    return out
+
+
+def bh_adjusted(pvalues: np.ndarray | xr.DataArray) -> np.ndarray | xr.DataArray:
+    """Benjamini–Hochberg adjusted p-values (``scipy.stats.false_discovery_control``, ``bh``).
+
+    Notes
+    -----
+    NaN p-values (cells not tested: missing data, no variance) are left out of the count
+    of tests and stay NaN.  An input with no finite value is returned as all NaN.
+    """
+    values = np.asarray(pvalues, dtype="float64")
+    out = np.full(values.shape, np.nan)
+    finite = np.isfinite(values)
+    if finite.any():
+        out[finite] = stats.false_discovery_control(values[finite], method="bh")
+    if isinstance(pvalues, xr.DataArray):
+        return pvalues.copy(data=out)
+    return out
+
+
+def fdr_significant(pvalues: np.ndarray | xr.DataArray, *, level: float = FDR_LEVEL) -> tuple[np.ndarray | xr.DataArray, float]:
+    """Which tests are significant under false-discovery-rate control, and the p-value threshold.
+
+    Parameters
+    ----------
+    pvalues
+        One p-value per cell (any shape).
+    level
+        The false-discovery level ``alpha_FDR`` (default :data:`FDR_LEVEL`).
+
+    Returns
+    -------
+    (mask, threshold)
+        ``mask`` True where significant (same type and shape as ``pvalues``);
+        ``threshold`` the largest p-value ``p_(k)`` with ``p_(k) <= (k / m) alpha_FDR``
+        (Wilks 2016, eq. 3), 0 when no p-value passes.
+
+    Notes
+    -----
+    ``m`` counts the finite p-values only; NaN cells are never significant.
+    """
+    if not 0.0 < level < 1.0:
+        raise ValueError("the false-discovery level must lie between 0 and 1")
+    values = np.asarray(pvalues, dtype="float64")
+    finite = np.sort(values[np.isfinite(values)])
+    m = finite.size
+    passing = finite[finite <= level * np.arange(1, m + 1) / max(m, 1)]
+    threshold = float(passing.max()) if passing.size else 0.0
+    with np.errstate(invalid="ignore"):
+        mask = np.isfinite(values) & (values <= threshold) if passing.size else np.zeros(values.shape, dtype=bool)
+    if isinstance(pvalues, xr.DataArray):
+        return pvalues.copy(data=mask), threshold
+    return mask, threshold
+
+
+def significant_area_fraction(significant: xr.DataArray, weights: xr.DataArray, *, tested: xr.DataArray | None = None) -> float:
+    """The area-weighted fraction of the tested cells that are significant.
+
+    Parameters
+    ----------
+    significant
+        Boolean mask of significant cells.
+    weights
+        Cell areas (times a region's fraction); NaN counts as 0.
+    tested
+        Cells that were tested (default: every cell of non-zero weight).
+
+    Notes
+    -----
+    NaN when no weight is tested.  Wilks (2016) warns that the fraction of locally
+    significant area is not itself a test of the field; read it with the FDR mask.
+    """
+    w = weights.fillna(0.0)
+    if tested is not None:
+        w = w.where(tested, 0.0)
+    total = float(w.sum())
+    if total <= 0.0:
+        return float("nan")
+    return float((w * significant.astype("float64")).sum() / total)
