@@ -92,8 +92,38 @@ def test_a_regional_mesh_needs_its_cell_areas(tmp_path):
     np.testing.assert_array_equal(ds["cell_area"].values, area)
 
 
-def test_binned_remap_keeps_a_constant_and_nearly_the_global_mean(mesh):
-    ds, _, _ = mesh
+def test_conservative_from_a_global_mesh_overlaps_its_voronoi_cells(mesh):
+    import shapely
+
+    from evaluation.grids import remap_polygons
+    from evaluation.grids.unstructured import voronoi_edges
+
+    ds, lon, lat = mesh
+    target = regular_grid(5.0, 5.0)
+    field = ds["tas"].isel(time=0).astype("float64").load()
+    out = grids.regrid(field, target, method="conservative", source_grid=grids.grid_of(ds))
+    assert not np.isnan(out.values).any()
+    a, b, cell = voronoi_edges(lon, lat)
+    sampled = shapely.area(remap_polygons.edge_polygons(a, b, cell, lon.size, kind="unstructured", min_points=2)) * EARTH_RADIUS_M**2 * np.deg2rad(1.0)
+    assert sampled.sum() == pytest.approx(SPHERE, rel=1e-11)  # the sampled Voronoi cells tile the sphere
+    # sampled edges vs scipy's exact Voronoi areas: measured median 3e-6, at most 4e-5
+    np.testing.assert_allclose(sampled, ds["cell_area"].values, rtol=1e-4)
+    # conservation (Jones 1999) with the areas the weights use, to rounding
+    mean_src = np.sum(field.values * sampled) / sampled.sum()
+    mean_tgt = float((out * target["cell_area"]).sum() / target["cell_area"].sum())
+    assert mean_tgt == pytest.approx(mean_src, rel=1e-10)
+
+
+@pytest.fixture(scope="module")
+def mesh_with_areas(tmp_path_factory):
+    lon, lat = fibonacci_sphere(6000)
+    area = voronoi_areas(lon, lat)  # given by the file: the map bins by centres
+    path = write_mesh(tmp_path_factory.mktemp("mesh") / "a.nc", lat=lat, lon=lon, years=1, area=area)
+    return io.open_source(str(path)), lon, lat
+
+
+def test_binned_remap_keeps_a_constant_and_nearly_the_global_mean(mesh_with_areas):
+    ds, _, _ = mesh_with_areas
     target = regular_grid(5.0, 5.0)
     field = ds["tas"].isel(time=0).astype("float64").load()
     out = grids.regrid(field, target, method="conservative", source_grid=grids.grid_of(ds))
@@ -106,15 +136,14 @@ def test_binned_remap_keeps_a_constant_and_nearly_the_global_mean(mesh):
     assert mean_tgt == pytest.approx(mean_src, rel=1e-4)
 
 
-def test_a_target_finer_than_the_mesh_takes_the_nearest_cell(mesh):
-    ds, lon, lat = mesh
+def test_a_target_finer_than_the_mesh_takes_the_nearest_cell(mesh_with_areas):
+    ds, lon, _ = mesh_with_areas
     target = regular_grid(0.5, 0.5, south=-10, north=10, west=-10, east=10)
     field = xr.DataArray(np.arange(lon.size, dtype="float64"), dims="cell")
     out = grids.regrid(field, target, method="conservative", source_grid=grids.grid_of(ds))
     assert not np.isnan(out.values).any()
-    # every value is some cell's own (no averaging across cells where a target cell holds no centre)
-    empty_cells = np.isin(out.values, field.values)
-    assert empty_cells.mean() > 0.9
+    # most target cells hold no centre: they take one cell's own value, not an average
+    assert np.isin(out.values, field.values).mean() > 0.9
 
 
 def test_bilinear_from_a_mesh_is_refused_with_the_methods_it_has(mesh):

@@ -12,11 +12,12 @@ regular            exact overlaps (xarray-      linear in lat/lon      nearest c
 rotated            exact overlaps of the        bilinear in rotated    nearest centre
                    sampled cells (shapely)      coordinates (scipy)
 curvilinear        as rotated                   pyresample bilinear    nearest centre
-unstructured       area-weighted mean of the    —                      nearest centre
-                   cells centred in each
-                   target cell; nearest where
-                   none (not exactly
-                   conservative)
+unstructured       exact overlaps of the        —                      nearest centre
+                   Voronoi cells (global
+                   meshes); else area-weighted
+                   mean of the cells centred
+                   in each target cell
+                   (approximately conservative)
 =================  ===========================  =====================  ==============
 """
 
@@ -68,8 +69,10 @@ REMAPPERS: dict[tuple[str, str], Remapper] = {
     ("curvilinear", "bilinear"): Remapper(remap_points.bilinear, "bilinear between the four nearest centres (pyresample)"),
     ("curvilinear", "nearest"): Remapper(remap_points.nearest, _NEAREST),
     ("unstructured", "conservative"): Remapper(
-        remap_points.binned,
-        "area-weighted mean of the mesh cells whose centres lie in each target cell, nearest cell where none (approximately conservative)",
+        remap_polygons.mesh_conservative,
+        "first-order conservative, exact overlaps of the spherical Voronoi cells of the mesh centres (global meshes); "
+        "where the file gives the cell areas (regional meshes): area-weighted mean of the cells whose centres lie in each "
+        "target cell, nearest cell where none (approximately conservative)",
     ),
     ("unstructured", "nearest"): Remapper(remap_points.nearest, _NEAREST),
 }

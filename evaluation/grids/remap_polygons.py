@@ -33,7 +33,7 @@ import xarray as xr
 from .remap_sparse import apply_matrix, cached
 from .spherical import EARTH_RADIUS, great_circle_points, to_lonlat, to_xyz, wrap_lon
 
-__all__ = ["EDGE_POINTS", "MAX_STEP", "cell_polygons", "overlap_matrix", "conservative"]
+__all__ = ["EDGE_POINTS", "MAX_STEP", "cell_polygons", "edge_polygons", "overlap_matrix", "conservative", "mesh_conservative"]
 
 #: Sample points per cell edge, at least; more where an edge spans many degrees of longitude.
 EDGE_POINTS = 16
@@ -81,12 +81,18 @@ def cell_polygons(grid: xr.Dataset, kind: str) -> np.ndarray:
     mapping = tuple(grid["crs"].attrs.items()) if "crs" in grid.coords else ()
     a = corners.reshape(ncell * 4, -1)
     b = np.roll(corners, -1, axis=1).reshape(ncell * 4, -1)
-    lon, lat = _sample(a, b, kind, mapping, EDGE_POINTS)
+    return edge_polygons(a, b, np.repeat(np.arange(ncell), 4), ncell, kind=kind, mapping=mapping)
+
+
+def edge_polygons(a: np.ndarray, b: np.ndarray, cell: np.ndarray, ncell: int, *, kind: str, mapping: tuple = (), min_points: int = EDGE_POINTS) -> np.ndarray:
+    """Polygons of cells given as their edges in order: edge ``k`` of cell ``cell[k]`` runs
+    from corner ``a[k]`` to ``b[k]`` (rotated lon/lat for ``rotated``, unit vectors otherwise)."""
+    lon, lat = _sample(a, b, kind, mapping, min_points)
     end, end_lat = _sample(b, b, kind, mapping, 1)
     lon, lat = np.concatenate([lon, end], axis=1), np.concatenate([lat, end_lat], axis=1)
     lon = _pole_longitudes(lon.ravel(), lat.ravel(), np.repeat(np.arange(lon.shape[0]), lon.shape[1])).reshape(lon.shape)
     span = np.abs(wrap_lon(np.diff(lon, axis=1))).sum(axis=1)
-    count = EDGE_POINTS * 2 ** np.ceil(np.log2(np.maximum(span / MAX_STEP / EDGE_POINTS, 1.0))).astype(int)
+    count = min_points * 2 ** np.ceil(np.log2(np.maximum(span / MAX_STEP / min_points, 1.0))).astype(int)
     offset = np.concatenate([[0], np.cumsum(count)])
     flat_lon, flat_lat = np.empty(offset[-1]), np.empty(offset[-1])
     for n in np.unique(count):
@@ -94,10 +100,10 @@ def cell_polygons(grid: xr.Dataset, kind: str) -> np.ndarray:
         e_lon, e_lat = _sample(a[edges], b[edges], kind, mapping, int(n))
         where = offset[edges][:, None] + np.arange(n)[None, :]
         flat_lon[where], flat_lat[where] = e_lon, e_lat
-    ring = np.repeat(np.arange(ncell), count.reshape(ncell, 4).sum(axis=1))
+    ring = np.repeat(cell, count)
     # a point on a pole is doubled: the ring arrives at the pole's line at one longitude and leaves at another
     on_pole = np.flatnonzero(np.abs(flat_lat) > 90.0 - 1e-9)
-    flat_lon, flat_lat, ring = (np.insert(a, on_pole + 1, a[on_pole]) for a in (flat_lon, flat_lat, ring))
+    flat_lon, flat_lat, ring = (np.insert(x, on_pole + 1, x[on_pole]) for x in (flat_lon, flat_lat, ring))
     return _planar(flat_lon, flat_lat, ring, ncell)
 
 
@@ -258,3 +264,25 @@ def conservative(da: xr.DataArray, source_grid: xr.Dataset, target: xr.Dataset, 
 
     weights = cached((kind, source_grid["lat_bnds"].values, source_grid["lon_bnds"].values, tgt_lat_b, tgt_lon_b), build)
     return apply_matrix(da, weights, ("y", "x"), target)
+
+
+def mesh_conservative(da: xr.DataArray, source_grid: xr.Dataset, target: xr.Dataset) -> xr.DataArray:
+    """Conservative map from a mesh: exact overlaps of its Voronoi cells when its areas are
+    those cells' (global meshes), else the area-weighted mean of the cells centred in each
+    target cell (:func:`evaluation.grids.remap_points.binned`)."""
+    from .remap_points import binned
+    from .unstructured import VORONOI, voronoi_edges
+
+    if VORONOI not in str(source_grid["cell_area"].attrs.get("comment", "")):
+        return binned(da, source_grid, target)
+    tgt_lat_b, tgt_lon_b = target["lat_bnds"].values, target["lon_bnds"].values
+    lon, lat = source_grid["lon"].values, source_grid["lat"].values
+
+    def build() -> sp.csr_matrix:
+        a, b, cell = voronoi_edges(lon, lat)
+        # mesh edges are short: two points each suffice away from the poles (MAX_STEP adds more there)
+        polys = edge_polygons(a, b, cell, lon.size, kind="unstructured", min_points=2)
+        return overlap_matrix(polys, tgt_lat_b, tgt_lon_b)
+
+    weights = cached(("voronoi", lon, lat, tgt_lat_b, tgt_lon_b), build)
+    return apply_matrix(da, weights, ("cell",), target)

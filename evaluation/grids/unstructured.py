@@ -26,7 +26,7 @@ from .description import GridDescription, attr
 from .regular import LAT_UNITS, LON_UNITS, unit_key
 from .spherical import EARTH_RADIUS, to_xyz, wrap_lon
 
-__all__ = ["KNOWN_NAMES", "find", "canonical", "voronoi_areas"]
+__all__ = ["KNOWN_NAMES", "VORONOI", "find", "canonical", "voronoi_areas", "voronoi_edges"]
 
 #: (latitude name, longitude name) -> the angle units these models document for them.
 KNOWN_NAMES: dict[tuple[str, str], str] = {
@@ -38,6 +38,8 @@ KNOWN_NAMES: dict[tuple[str, str], str] = {
 _RADIANS = {"radian", "radians", "rad"}
 # A Voronoi cell larger than this many times the median means the points do not cover the sphere.
 _REGIONAL_FACTOR = 50.0
+#: How cell areas were found when they are those of the Voronoi cells (the cell_area comment).
+VORONOI = "spherical Voronoi cells of the centres"
 
 
 def _angle_units(var: xr.Variable, axis: str) -> str | None:
@@ -122,6 +124,25 @@ def voronoi_areas(lon: np.ndarray, lat: np.ndarray, *, radius: float = EARTH_RAD
     return sv.calculate_areas() * radius**2
 
 
+def voronoi_edges(lon: np.ndarray, lat: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """The edges of the spherical Voronoi cells of points (degrees), in order round each cell.
+
+    Returns unit vectors ``a``, ``b`` ``(edges, 3)`` (each edge runs from a to b) and the
+    cell of each edge; cells are counter-clockwise (scipy's ``sort_vertices_of_regions``).
+    """
+    from scipy.spatial import SphericalVoronoi
+
+    sv = SphericalVoronoi(to_xyz(lon, lat), radius=1.0)
+    sv.sort_vertices_of_regions()
+    sizes = np.array([len(r) for r in sv.regions])
+    first = np.concatenate([[0], np.cumsum(sizes)[:-1]])
+    start = np.concatenate([np.asarray(r) for r in sv.regions])
+    nxt = np.concatenate([np.roll(np.asarray(r), -1) for r in sv.regions])
+    cell = np.repeat(np.arange(sizes.size), sizes)
+    assert start.size == first[-1] + sizes[-1]
+    return sv.vertices[start], sv.vertices[nxt], cell
+
+
 def canonical(out: xr.Dataset, raw: xr.Dataset, desc: GridDescription) -> xr.Dataset:
     """Centres in degrees and cell areas for ``out`` (already on dim ``cell``)."""
     lat = np.asarray(raw[desc.lat].values, dtype="float64")
@@ -144,7 +165,7 @@ def canonical(out: xr.Dataset, raw: xr.Dataset, desc: GridDescription) -> xr.Dat
                 file=where,
                 remedy="give the cell areas in the file (a variable named by cell_measures = 'area: NAME', in m2)",
             )
-        how = "spherical Voronoi cells of the centres"
+        how = VORONOI
     return out.assign_coords(
         lat=("cell", lat, {"standard_name": "latitude", "units": "degrees_north"}),
         lon=("cell", lon, {"standard_name": "longitude", "units": "degrees_east"}),
