@@ -153,6 +153,7 @@ def build_session(results: Results) -> pn.template.BaseTemplate:
 
     gate_page()
     _serve_own_stylesheets()
+    results.revalidate()  # a new session or a reload never sees results older than the files
     selection = Selection(results, tabs=available_tabs(results))
     location = pn.state.location
     if location is not None and location.search:

@@ -244,6 +244,7 @@ class ResultView(Viewer):
         request = self.selection.request
         if request is None:
             return
+        self.results.revalidate()  # a stat per input file: never draw from files that changed
         self._generation += 1
         generation = self._generation
         on_document(self._doc, lambda: setattr(self._body, "loading", True))

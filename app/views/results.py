@@ -17,6 +17,7 @@ from __future__ import annotations
 import asyncio
 import re
 import threading
+import time
 from collections import OrderedDict
 from collections.abc import Callable, Hashable, Sequence
 from concurrent.futures import Future, ThreadPoolExecutor
@@ -43,6 +44,9 @@ T = TypeVar("T")
 _HEX = re.compile(r"^#(?:[0-9a-f]{3}|[0-9a-f]{6})$")
 _NAMED = frozenset(named.__all__)
 _MISSING = object()
+#: Seconds after which a failure (an unreadable file, a run left out) is tried again even
+#: though no input file changed (a network file system that was briefly away).
+RETRY_SECONDS = 30.0
 
 
 class BoundedCache:
@@ -161,15 +165,30 @@ class Results:
         self._comparisons = BoundedCache(max_items=max_comparisons)
         self._lock = threading.RLock()
         self._worker = ThreadPoolExecutor(max_workers=1, thread_name_prefix="gridscore-core")
+        #: sources whose files cannot be read: name -> problem (left out, and said so)
+        self._unreadable: dict[str, str] = {}
+        self._listing_lock = threading.Lock()
         self._variables = self._list_variables()
+        # Freshness: products are kept per generation of the input files; a change of any
+        # file (its identity: size, times, inode, content sample) starts a new generation.
+        self._generation = 0
+        self._stamp = self._inputs_stamp()
+        self._checked = time.monotonic()
+        self._failed = bool(self._unreadable)
 
     # ------------------------------------------------------------------ the collection
     def _list_variables(self) -> dict[str, dict[str, VariableInfo]]:
         """variable -> source name -> how that source describes it (files read once)."""
         found: dict[str, dict[str, VariableInfo]] = {}
-        with self._lock:
+        self._unreadable = {}
+        # not the core lock: a listing (headers only) must not wait behind a computation
+        with self._listing_lock:
             for src in (*self.collection.references, *self.collection.models):
-                listing = io.variables_in(io.expand_paths(src.paths, source=src.name))
+                try:
+                    listing = io.variables_in(io.expand_paths(src.paths, source=src.name))
+                except InputError as error:  # left out and said so; retried when files change
+                    self._unreadable[src.name] = error.problem
+                    continue
                 for name, meta in listing.items():
                     if meta.get("has_time") == "False":
                         continue  # fixed fields (cell area, land fraction) are not compared
@@ -190,8 +209,8 @@ class Results:
 
     def variables(self) -> list[str]:
         """Variables that at least one run and one reference hold, in the collection's order."""
-        offered = list(self.collection.variables())
-        return [v for v in offered if self.references(v) and self.models(v)]
+        # from the listing made here (not the collection's), which leaves unreadable sources out
+        return [v for v in sorted(self._variables) if self.references(v) and self.models(v)]
 
     def variable_info(self, variable: str) -> VariableInfo:
         """Name, long name and units as the first reference holding it describes them."""
@@ -250,8 +269,40 @@ class Results:
         with self._lock:
             return function(*args)
 
+    # ------------------------------------------------------------------ freshness
+    def _inputs_stamp(self) -> tuple:
+        """The identity of every input file (one stat each; see ``io.file_identity``)."""
+        stamp = []
+        for src in self.collection.sources:
+            try:
+                stamp.append((src.name, tuple(io.file_identity(io.expand_paths(src.paths, source=src.name)))))
+            except (InputError, OSError) as error:
+                stamp.append((src.name, str(error)))
+        return tuple(stamp)
+
+    def revalidate(self) -> bool:
+        """Forget what was computed from files that changed; retry failures after a while.
+
+        Called before each request of a view (cheap: a stat per file).  Returns whether a
+        new generation started.  Products of the old generation are never served again; a
+        computation still running for them stores its result under the old generation.
+        """
+        now = time.monotonic()
+        stamp = self._inputs_stamp()
+        retry = self._failed and now - self._checked > RETRY_SECONDS
+        if stamp == self._stamp and not retry:
+            return False
+        self._stamp, self._checked, self._failed = stamp, now, False
+        self._generation += 1
+        self.products.clear()
+        self._comparisons.clear()
+        self._variables = self._list_variables()
+        self._failed = bool(self._unreadable)
+        return True
+
     async def fetch(self, key: tuple, function: Callable[..., T], *args: Any) -> T:
         """A cached product: answered at once when present, else computed off the loop."""
+        key = (self._generation, *key)
         value = self.products.get(key)
         if value is not _MISSING:
             return value
@@ -260,7 +311,7 @@ class Results:
     def product(self, key: tuple, function: Callable[..., T], *args: Any) -> T:
         """The same as :meth:`fetch`, on the calling thread (for tests and exports)."""
         with self._lock:
-            return self._product(key, function, args)
+            return self._product((self._generation, *key), function, args)
 
     def _product(self, key: tuple, function: Callable[..., T], args: Sequence[Any]) -> T:
         value = self.products.get(key)
@@ -312,9 +363,11 @@ class Results:
             return self._entry(reference, variable, period, level, target_grid)[0]
 
     def left_out(self, reference: str, variable: str, period: str | None = None, level: str = "", target_grid: str = "") -> tuple[str, ...]:
-        """The runs that comparison could not use, each as ``"name: reason"``."""
+        """The runs that comparison could not use, each as ``"name: reason"``, and the
+        sources whose files cannot be read at all."""
         with self._lock:
-            return self._entry(reference, variable, period, level, target_grid)[1]
+            left = self._entry(reference, variable, period, level, target_grid)[1]
+            return (*left, *(f"{name}: {problem}" for name, problem in self._unreadable.items() if name != reference))
 
     def _entry(self, reference: str, variable: str, period: str | None, level: str = "", target_grid: str = "") -> tuple[Comparison, tuple[str, ...]]:
         level = self._level(variable, level) or ""
@@ -348,6 +401,7 @@ class Results:
         # runs the comparison itself left out whole (unreadable files, no common years)
         left += [f"{o['source']}: {o['reason']}" for o in cmp.omissions if o["season"] == "all"]
         entry = (cmp, tuple(left))
+        self._failed = self._failed or bool(left)
         self._comparisons.put(key, entry)
         return entry
 
