@@ -596,6 +596,48 @@ class Comparison:
         out.name = f"{self.variable}_trend_difference"
         return out
 
+    def difference_significance(self, name: str, season: str, *, region: str = "global", adjust: bool = True,
+                                level: float | None = None) -> xr.Dataset:
+        """Where the bias map stands out from interannual variability (:mod:`evaluation.significance`).
+
+        Returns
+        -------
+        Dataset
+            ``difference``, ``t``, ``dof``, ``pvalue``, ``n_eff_a`` (run), ``n_eff_b``
+            (reference) on the target grid and ``significant`` (Benjamini–Hochberg at
+            ``level``, default :data:`evaluation.significance.FDR_LEVEL`); attributes
+            ``fdr_level``, ``p_threshold`` and ``significant_area`` (area fraction of the
+            tested cells of ``region``).
+
+        Notes
+        -----
+        The yearly season means of the label years both have, on the common mask.  The
+        false discovery rate is controlled over the cells of ``region``; cells outside it,
+        masked or untestable (NaN p-value) are never significant.
+        """
+        from .significance import FDR_LEVEL, difference_test, fdr_significant, significant_area_fraction
+
+        if self._prepared[self.reference.name].kind == "climatology":
+            raise InputError(
+                f"the reference '{self.reference.name}' is a climatology: it has no years to test a difference against",
+                remedy="choose a reference with years",
+            )
+        level = FDR_LEVEL if level is None else level
+        run_series, ref_series = self._aligned(name, season)
+        mask = self._pair(name, season)[2]
+        weights = self._weights(region, mask)
+        out = difference_test(run_series, ref_series, dim="year", adjust=adjust).where(weights > 0)
+        significant, threshold = fdr_significant(out["pvalue"], level=level)
+        out["significant"] = significant
+        out.attrs.update(
+            fdr_level=level,
+            p_threshold=threshold,
+            significant_area=significant_area_fraction(significant, weights, tested=out["pvalue"].notnull()),
+            region=parse_region(region).id,
+            **self._attrs(f"{name} minus {self.reference.name}: significance", season),
+        )
+        return out
+
     def zonal_mean(self, name: str, season: str) -> xr.DataArray:
         """Zonal mean ``(lat)`` of the climatology (run masked with the reference)."""
         out = zonal_mean(self.climatology(name, season))
