@@ -4,7 +4,8 @@
   sphere (scipy's cKDTree on unit vectors: chord order equals great-circle order).
   Target centres farther than two source spacings from every source centre are outside
   the source's domain and stay missing.
-* ``binned`` (the conservative choice for a mesh): each target cell is the area-weighted
+* ``binned`` (the conservative choice for a mesh whose file gives the areas, i.e. a
+  regional one; global meshes use their Voronoi cells): each target cell is the area-weighted
   mean of the mesh cells whose centres fall inside it; a target cell holding no centre
   (a target finer than the mesh) takes the nearest cell as above.  This is not exactly
   conservative: a mesh cell counts wholly for the target cell holding its centre.

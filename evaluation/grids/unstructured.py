@@ -136,10 +136,12 @@ def voronoi_edges(lon: np.ndarray, lat: np.ndarray) -> tuple[np.ndarray, np.ndar
     sv.sort_vertices_of_regions()
     sizes = np.array([len(r) for r in sv.regions])
     first = np.concatenate([[0], np.cumsum(sizes)[:-1]])
-    start = np.concatenate([np.asarray(r) for r in sv.regions])
-    nxt = np.concatenate([np.roll(np.asarray(r), -1) for r in sv.regions])
+    start = np.fromiter((v for r in sv.regions for v in r), dtype=np.intp, count=int(sizes.sum()))
+    last = first + sizes - 1
+    nxt = np.empty_like(start)
+    nxt[:-1] = start[1:]
+    nxt[last] = start[first]  # each cell's last edge closes it
     cell = np.repeat(np.arange(sizes.size), sizes)
-    assert start.size == first[-1] + sizes[-1]
     return sv.vertices[start], sv.vertices[nxt], cell
 
 
