@@ -119,7 +119,9 @@ class SectionView(ResultView):
 
     async def load(self, request: Request) -> dict[str, Any]:
         results = self.results
-        sections = {}
+        sections: dict[str, Any] = {}
+        if not request.level:
+            return sections  # a variable without levels: nothing to draw (see draw)
         for name in (request.reference, *request.models):
             if name != request.reference and name not in results.models(request.variable):
                 continue
@@ -149,6 +151,10 @@ class SectionView(ResultView):
         return hv.Layout(panels).cols(3 if runs else 1).opts(shared_axes=False, backend="bokeh").opts(sublabel_format="", backend="matplotlib")
 
     def draw(self, data: dict[str, xr.Dataset], request: Request) -> pn.viewable.Viewable:
+        if not request.level:
+            levelled = [v for v in self.results.variables() if self.results.levels(v)]
+            text = f"{request.variable} has no vertical levels. Choose a variable on levels ({', '.join(levelled)}) to see its section."
+            return pn.pane.HTML(f'<div class="gs-empty">{text_html(text)}</div>')
         figure = self.figure(data, request)
         if figure is None:
             return pn.pane.HTML('<div class="gs-empty">No valid values in this section for the selected period and season.</div>')
