@@ -172,3 +172,19 @@ def test_energy_budget_of_a_run_on_a_mesh(tmp_path):
     # albedo = 100 / 340 (definitions, textbook)
     assert table["toa_net"] == pytest.approx(1.0, abs=1e-9)
     assert table["albedo"] == pytest.approx(100.0 / 340.0, rel=1e-12)
+
+
+def test_a_ugrid_mesh_is_found_through_its_face_coordinates(tmp_path):
+    lon, lat = fibonacci_sphere(800)
+    path = write_mesh(tmp_path / "u.nc", lat=lat, lon=lon, years=1, angle_units="degrees", names=("mesh_face_y", "mesh_face_x"))
+    with xr.open_dataset(path) as ds:
+        ds = ds.load()
+    # UGRID 1.0: a mesh topology variable names the face (cell) centre coordinates
+    ds["mesh"] = ((), np.int32(0), {"cf_role": "mesh_topology", "topology_dimension": 2, "face_coordinates": "mesh_face_x mesh_face_y"})
+    ds["mesh_face_x"].attrs["standard_name"] = "longitude"
+    ds["mesh_face_y"].attrs["standard_name"] = "latitude"
+    ds.to_netcdf(tmp_path / "ugrid.nc")
+    desc = grids.describe(xr.open_dataset(tmp_path / "ugrid.nc"))
+    assert desc.kind == "unstructured" and "UGRID mesh 'mesh'" in desc.how
+    opened = io.open_source(str(tmp_path / "ugrid.nc"))
+    np.testing.assert_allclose(opened["lat"].values, lat, atol=1e-9)
