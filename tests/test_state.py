@@ -321,7 +321,7 @@ def test_revisited_selection_is_served_from_the_cache(results: Results) -> None:
     selection.region = "global"
     again = load(ScoresView, selection, results)
     assert again["tidy"].equals(first["tidy"])
-    key = ("scores", selection.reference, selection.variable, selection.period, "global", selection.season, selection.level)
+    key = ("scores", selection.reference, selection.variable, selection.period, "global", selection.season, selection.level, selection.target_grid)
     assert key in results.products
 
 
