@@ -393,6 +393,11 @@ class Results:
                                  level=level or None, target_grid=target_grid, alternatives=alternatives)
                 break
             except InputError as error:
+                other = next((a for a in alternatives if _blames(error, a)), None)
+                if other is not None:  # an alternative reference is left out; the runs are still scored
+                    left.append(f"{other.name}: {error.problem}")
+                    alternatives = [a for a in alternatives if a is not other]
+                    continue
                 culprit = next((r.name for r in runs if _blames(error, r)), None)
                 if culprit is None or len(runs) == 1:
                     raise
