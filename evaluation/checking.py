@@ -31,7 +31,6 @@ __all__ = ["FileReport", "check_file", "check_paths", "to_json", "plain"]
 
 # Fixed fields that sit beside a source's time series and are read from there; a file
 # holding only these is usable although it has no time axis.
-_FIXED_STANDARD_NAMES = {"land_area_fraction", "cell_area", "sea_area_fraction", "surface_altitude"}
 _CONTROL = re.compile(r"[\x00-\x1f\x7f-\x9f\u2028\u2029]")
 
 
@@ -262,19 +261,21 @@ def _check_variables(report: FileReport, refused: set[str]) -> None:
             report.notes.append(f"{where} has no standard_name: it is found by its name only")
         if v["levels"]:
             report.notes.append(f"{where} has the levels {v['levels']}: choose one with --level")
+    # what `score` refuses in Comparison._open: fixed fields (even with a time step) and untimed variables
+    scoreable = [v for v in timed if v["standard_name"] not in io.FIXED_FIELDS]
+    names = ", ".join(v["name"] for v in report.variables)
     if not report.variables:
         report.problems.append("no gridded variable — nothing to score")
-    elif not timed:
-        fixed = all(v["standard_name"] in _FIXED_STANDARD_NAMES for v in report.variables)
-        names = ", ".join(v["name"] for v in report.variables)
-        if fixed:
-            report.notes.append(
-                f"fixed fields only ({names}): read beside the time series of the same source, not scored on their own"
-            )
-        else:
-            report.problems.append(
-                f"no variable with a time axis ({names}) — give monthly, annual or climatological time series"
-            )
+    elif not scoreable and all(v["standard_name"] in io.FIXED_FIELDS for v in report.variables):
+        kinds = ", ".join(sorted({io.FIXED_FIELDS[v["standard_name"]] for v in report.variables}))
+        report.problems.append(
+            f"only fixed fields ({names}: {kinds}), which are not scored on their own — put this file beside a "
+            "source's time series (its land fraction is then used for the land and ocean regions)"
+        )
+    elif not scoreable:
+        report.problems.append(
+            f"no variable with a time axis ({names}) — give monthly, annual or climatological time series"
+        )
 
 
 def _attribute_notes(raw: xr.Dataset) -> list[str]:

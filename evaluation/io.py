@@ -41,9 +41,20 @@ __all__ = [
     "open_source",
     "normalise",
     "get_variable",
+    "FIXED_FIELDS",
 ]
 
 CF_CALENDARS = timecoding.CF_CALENDARS
+
+# CF standard names of fields that describe the grid or the surface, not the climate: they are
+# read beside a source's time series (land and ocean regions), never scored on their own.
+FIXED_FIELDS = {
+    "land_area_fraction": "a land fraction",
+    "cell_area": "cell areas",
+    "surface_altitude": "surface altitude",
+    "sea_area_fraction": "a sea fraction",
+    "sea_floor_depth_below_geoid": "ocean depth",
+}
 
 # CF criteria as plain tables (cf-conventions 1.10, sections 4.1-4.4).
 _LAT_UNITS = {"degrees_north", "degree_north", "degree_n", "degrees_n", "degreen", "degreesn"}

@@ -114,7 +114,8 @@ def taylor_skill(corr: float, std_ratio: float, *, r0: float = 1.0) -> float:
     """
     if not np.isfinite(std_ratio) or std_ratio <= 0 or not np.isfinite(corr):
         return float("nan")
-    return float(4.0 * (1.0 + corr) / ((std_ratio + 1.0 / std_ratio) ** 2 * (1.0 + r0)))
+    # 1 + R is never negative; rounding can put a correlation of -1 a hair below it
+    return float(4.0 * max(1.0 + corr, 0.0) / ((std_ratio + 1.0 / std_ratio) ** 2 * (1.0 + r0)))
 
 
 def pattern_stats(

@@ -241,7 +241,7 @@ class Comparison:
         da = io.get_variable(ds, stored_as, source=src.name)
         if stored_as != self.variable:
             da = da.rename(self.variable)
-        fixed = _FIXED_FIELDS.get(str(da.attrs.get("standard_name", "")))
+        fixed = io.FIXED_FIELDS.get(str(da.attrs.get("standard_name", "")))
         if fixed is not None:
             # a land fraction or cell area written with a time step is still not a time series
             files = io.expand_paths(src.paths, source=src.name)
@@ -918,16 +918,6 @@ class _Expanded:
     name: str
     role: str
     paths: tuple[str, ...]
-
-
-# CF standard names of fields that describe the grid or the surface, not the climate
-_FIXED_FIELDS = {
-    "land_area_fraction": "a land fraction",
-    "cell_area": "cell areas",
-    "surface_altitude": "surface altitude",
-    "sea_area_fraction": "a sea fraction",
-    "sea_floor_depth_below_geoid": "ocean depth",
-}
 
 
 def _land_from(ds: xr.Dataset) -> xr.DataArray:

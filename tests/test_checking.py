@@ -37,6 +37,8 @@ def files(tmp_path_factory) -> dict[str, Path]:
         "notime": write_cf(tmp / "notime.nc", with_time=False, **COMMON),
         "nolat": write_cf(tmp / "nolat.nc", identify_by="none", **COMMON),
         "lunar": write_cf(tmp / "lunar.nc", calendar="lunar", **COMMON),
+        # a land fraction written with time steps (as regional models do) is still not a time series
+        "landfrac": write_cf(tmp / "landfrac.nc", variable="sftlf", standard_name="land_area_fraction", units="1", **COMMON),
     }
     p["noise"] = tmp / "noise.nc"
     p["noise"].write_bytes(np.random.default_rng(7).bytes(4096))
@@ -58,7 +60,7 @@ def files(tmp_path_factory) -> dict[str, Path]:
 
 
 CAN = ("ok", "degdotc", "poor")
-CANNOT = ("angle", "coulomb", "nounits", "notime", "nolat", "lunar", "noise", "half", "half3")
+CANNOT = ("angle", "coulomb", "nounits", "notime", "nolat", "lunar", "noise", "half", "half3", "landfrac")
 
 
 @pytest.mark.parametrize("case", CAN)
@@ -100,7 +102,7 @@ def test_check_agrees_with_score(files, case, tmp_path):
 
 @pytest.mark.parametrize(("case", "needle"), [
     ("angle", "an angle"), ("coulomb", "coulomb"), ("nounits", "no units"), ("notime", "time axis"), ("nolat", "latitude"),
-    ("lunar", "calendar"), ("noise", "cannot read"), ("half3", "truncated"),
+    ("lunar", "calendar"), ("noise", "cannot read"), ("half3", "truncated"), ("landfrac", "only fixed fields"),
 ])  # fmt: skip
 def test_problems_name_the_true_reason(files, case, needle):
     assert any(needle in p for p in check_file(str(files[case])).problems), check_file(
