@@ -29,7 +29,7 @@ from ..state import Request, Selection
 from .results import Results
 
 __all__ = [
-    "PageGate", "ResultView", "caption", "error_box", "gate_page", "on_document", "plot_title", "safe_filename", "text_html",
+    "PageGate", "ResultView", "caption", "error_box", "figure_pane", "gate_page", "on_document", "plot_title", "safe_filename", "text_html",
     "text_tooltip",
 ]
 
@@ -62,6 +62,19 @@ def text_tooltip(text: Any) -> str:
     which turns the whole text into plain text (no HTML, links or emphasis).
     """
     return _MARKDOWN_PUNCTUATION.sub(r"\\\1", " ".join(str(text).split()))
+
+
+def figure_pane(figure: Any, **options: Any) -> pn.pane.HoloViews:
+    """A HoloViews figure as a pane whose axes belong to this figure alone.
+
+    Panel links the axes of every HoloViews pane of a page whose dimensions look alike
+    (``linked_axes``, on by default): the zonal mean's range of values would become the
+    time series' and the seasonal cycle's, squashing their lines into a thin band.  Plots
+    inside one figure (the maps of a layout) still share their axes through HoloViews'
+    own ``shared_axes``.
+    """
+    options.setdefault("sizing_mode", "stretch_width")
+    return pn.pane.HoloViews(figure, linked_axes=False, **options)
 
 
 def caption(text: str) -> pn.pane.HTML:

@@ -22,7 +22,7 @@ from evaluation.errors import InputError
 from evaluation.trends import ols_trend
 
 from ..state import Request
-from .base import ResultView, safe_filename, text_html, text_tooltip
+from .base import ResultView, figure_pane, safe_filename, text_html, text_tooltip
 from .lines import curve, line_figure
 from .results import Results
 from .scores import TABLE_CSS
@@ -149,6 +149,6 @@ class BudgetView(ResultView):
             pn.Row(pn.pane.HTML('<span class="gs-hint">Download the table:</span>', margin=(12, 4, 0, 10)), download),
             pn.pane.HTML('<div class="gs-hint">Published global annual means (W m-2, values from memory, rounded):</div>', margin=(8, 10, 0, 10)),
             estimates,
-            pn.pane.HoloViews(self.figure(data, request), sizing_mode="stretch_width"),
+            figure_pane(self.figure(data, request)),
         ]
         return pn.Column(*parts, sizing_mode="stretch_width")

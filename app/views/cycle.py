@@ -10,7 +10,7 @@ import panel as pn
 from evaluation.regions import parse_region
 
 from ..state import Request
-from .base import ResultView
+from .base import ResultView, figure_pane
 from .lines import curve, line_figure, reference_band
 
 __all__ = ["CycleView"]
@@ -64,4 +64,4 @@ class CycleView(ResultView):
         return super().figure_name(request).replace(f"_{request.season}_", "_")
 
     def draw(self, data: dict[str, Any], request: Request) -> pn.viewable.Viewable:
-        return pn.pane.HoloViews(self.figure(data, request), sizing_mode="stretch_width")
+        return figure_pane(self.figure(data, request))

@@ -21,7 +21,7 @@ from evaluation.export import field_bytes
 from evaluation.regions import parse_region
 
 from ..state import Request
-from .base import ResultView, plot_title, safe_filename, text_tooltip
+from .base import ResultView, figure_pane, plot_title, safe_filename, text_tooltip
 from .coastlines import coastline_path
 from .look import DIVERGING, SEQUENTIAL
 from .results import MapField
@@ -225,7 +225,7 @@ class MapsView(ResultView):
         figure = self.figure(data, request)
         if figure is None:
             return pn.pane.HTML('<div class="gs-empty">No valid values in this field for the selected period and season.</div>')
-        plot = pn.pane.HoloViews(figure, sizing_mode="stretch_width", linked_axes=True)
+        plot = figure_pane(figure)  # the maps share their axes inside the layout
         self._watch_box(plot)
         downloads = [self._field_download(item, request) for item in data["items"]]
         return pn.Column(

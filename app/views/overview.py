@@ -20,7 +20,7 @@ import param
 from evaluation.regions import REGIONS, parse_region
 
 from ..state import Request
-from .base import ResultView, plot_title
+from .base import ResultView, figure_pane, plot_title
 from .look import DIVERGING
 
 __all__ = ["OverviewView", "SPLITS", "error_matrix"]
@@ -148,4 +148,4 @@ class OverviewView(ResultView):
         figure = self.figure(data, request)
         if figure is None:
             return pn.pane.HTML('<div class="gs-empty">No relative errors for this selection.</div>')
-        return pn.pane.HoloViews(figure, sizing_mode="stretch_width")
+        return figure_pane(figure)

@@ -8,7 +8,7 @@ import holoviews as hv
 import panel as pn
 
 from ..state import Request
-from .base import ResultView
+from .base import ResultView, figure_pane
 from .lines import curve, line_figure, reference_band
 
 __all__ = ["ZonalMeanView"]
@@ -56,4 +56,4 @@ class ZonalMeanView(ResultView):
         return line_figure(curves, title=title, xticks=[-90, -60, -30, 0, 30, 60, 90], xlim=(-90, 90))
 
     def draw(self, data: dict[str, Any], request: Request) -> pn.viewable.Viewable:
-        return pn.pane.HoloViews(self.figure(data, request), sizing_mode="stretch_width")
+        return figure_pane(self.figure(data, request))

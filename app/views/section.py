@@ -16,7 +16,7 @@ import panel as pn
 import xarray as xr
 
 from ..state import Request
-from .base import ResultView, plot_title, text_html
+from .base import ResultView, figure_pane, plot_title, text_html
 from .look import DIVERGING, SEQUENTIAL
 from .maps import colour_range
 
@@ -170,4 +170,4 @@ class SectionView(ResultView):
             f"<th{_CELL}>Section bias ({text_html(units)})</th><th{_CELL}>Section RMSE ({text_html(units)})</th></tr>{rows}</table>"
             if runs else '<div class="gs-hint">No selected run holds this variable on levels.</div>'
         )
-        return pn.Column(pn.pane.HoloViews(figure, sizing_mode="stretch_width"), pn.pane.HTML(table, margin=(4, 10)), sizing_mode="stretch_width")
+        return pn.Column(figure_pane(figure), pn.pane.HTML(table, margin=(4, 10)), sizing_mode="stretch_width")

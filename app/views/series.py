@@ -13,7 +13,7 @@ from evaluation.trends import ols_trend
 from evaluation.units import trend_units
 
 from ..state import Request
-from .base import ResultView
+from .base import ResultView, figure_pane
 from .lines import curve, line_figure, reference_band
 
 __all__ = ["SeriesView"]
@@ -71,4 +71,4 @@ class SeriesView(ResultView):
         return line_figure(curves, title=title)
 
     def draw(self, data: dict[str, Any], request: Request) -> pn.viewable.Viewable:
-        return pn.pane.HoloViews(self.figure(data, request), sizing_mode="stretch_width")
+        return figure_pane(self.figure(data, request))

@@ -19,7 +19,7 @@ import panel as pn
 import param
 
 from ..state import Request
-from .base import ResultView, plot_title
+from .base import ResultView, figure_pane, plot_title
 from .look import REFERENCE_COLOUR
 
 __all__ = ["TaylorView", "taylor_points"]
@@ -197,7 +197,7 @@ class TaylorView(ResultView):
         if figure is None:
             return pn.pane.HTML('<div class="gs-empty">No correlation or standard deviation to place: the fields may be constant.</div>')
         # Fixed size: stretching the width would break the equal scales of the two axes.
-        return pn.pane.HoloViews(figure, sizing_mode="fixed")
+        return figure_pane(figure, sizing_mode="fixed")
 
 
 _MPL_DASH = {"solid": "-", "dashed": "--", "dotted": ":"}

@@ -1,0 +1,109 @@
+"""Each view keeps its own axes, and the period control always shows the period used.
+
+Run in headless Chromium on the sample collection.  The plotted ranges are read from the
+page's Bokeh document (every plot model with its title and its x/y ranges), so the test
+sees what the person sees.
+"""
+
+from __future__ import annotations
+
+import time
+from pathlib import Path
+from urllib.parse import parse_qs, urlparse
+
+import pytest
+
+from app.state import TABS
+from app.views.results import Results
+from evaluation.catalog import Collection
+
+from .conftest import open_dashboard, serving, wait_for_view
+
+pytestmark = pytest.mark.browser
+
+#: Every Bokeh plot of the page: its title and the ranges it draws.
+_RANGES_JS = """
+() => {
+  const out = [];
+  for (const doc of Bokeh.documents) {
+    for (const m of doc.all_models) {
+      if (m.x_range === undefined || m.y_range === undefined || m.title == null) continue;
+      const title = typeof m.title === "string" ? m.title : (m.title.text || "");
+      out.push({title, x: [m.x_range.start, m.x_range.end], y: [m.y_range.start, m.y_range.end]});
+    }
+  }
+  return out;
+}
+"""
+
+
+@pytest.fixture(scope="module")
+def served(sample_manifest: Path):
+    results = Results(Collection.from_path(sample_manifest))
+    with serving(results) as url:
+        yield url
+    results.close()
+
+
+def query(page) -> dict[str, str]:
+    return {k: v[0] for k, v in parse_qs(urlparse(page.url).query, keep_blank_values=True).items()}
+
+
+def wait_for_query(page, **expected: str) -> None:
+    deadline = time.monotonic() + 60
+    while any(query(page).get(k) != v for k, v in expected.items()):
+        if time.monotonic() > deadline:
+            raise AssertionError(f"URL {page.url} does not hold {expected}")
+        page.wait_for_timeout(20)
+
+
+def y_range(page, title_start: str) -> tuple[float, float]:
+    """The y-range of the plot whose title starts with ``title_start`` (once it is settled)."""
+    deadline = time.monotonic() + 30
+    while True:
+        found = [p for p in page.evaluate(_RANGES_JS) if p["title"].startswith(title_start)]
+        if found and all(isinstance(v, (int, float)) for v in found[0]["y"]):
+            page.wait_for_timeout(300)  # ranges linked after the first render would arrive now
+            found = [p for p in page.evaluate(_RANGES_JS) if p["title"].startswith(title_start)]
+            return tuple(sorted(found[0]["y"]))
+        if time.monotonic() > deadline:
+            titles = [p["title"] for p in page.evaluate(_RANGES_JS)]
+            raise AssertionError(f"no plot titled {title_start!r} on the page (plots: {titles})")
+        page.wait_for_timeout(50)
+
+
+def click_tab(page, tab: str) -> None:
+    page.locator(".gs-tabs").get_by_text(TABS[tab], exact=True).first.click()
+    wait_for_view(page, tab)
+
+
+# ---------------------------------------------------------------------------- axes
+@pytest.mark.parametrize("later", ["series", "cycle"])
+def test_a_view_keeps_its_own_axes_after_the_zonal_mean(browser, served, later: str) -> None:
+    """A line plot's y-range is the same whether or not the zonal mean was drawn first.
+
+    The zonal mean of air temperature spans the globe (about 220-305 K); the Arctic series
+    and cycle span far less.  Linked, they would take the zonal mean's range.
+    """
+    title = {"series": "Arctic", "cycle": "Arctic"}[later]
+    link = f"/?variable=tas&region=arctic&season=ANN&tab={later}"
+    alone = open_dashboard(browser, served + link)
+    wait_for_view(alone.page, later)
+    own = y_range(alone.page, title)
+    alone.close()
+
+    session = open_dashboard(browser, served + link.replace(f"tab={later}", "tab=zonal"))
+    page = session.page
+    wait_for_view(page, "zonal")
+    zonal = y_range(page, "Zonal mean")
+    click_tab(page, later)
+    wait_for_query(page, tab=later)
+    after = y_range(page, title)
+    # the zonal mean's range is wider than the Arctic one (else the check proves nothing)
+    assert zonal[1] - zonal[0] > 2 * (own[1] - own[0]), (zonal, own)
+    assert after == pytest.approx(own, rel=1e-9), f"{later} drawn after the zonal mean: y {after}, alone {own}"
+    # and the zonal mean keeps its own range when it is drawn again after the other view
+    click_tab(page, "zonal")
+    assert y_range(page, "Zonal mean") == pytest.approx(zonal, rel=1e-9)
+    assert session.errors() == []
+    session.close()
