@@ -126,6 +126,9 @@ def score_widget(shown: pd.DataFrame, units: dict[str, str], within: dict[str, l
         titles[m] = text_html(label) + (f"<br><small>{text_html(unit)}</small>" if unit and unit != "1" else "")
         formatters[m] = NumberFormatter(format=number_format(shown[m], m), nan_format="–", text_align="right")
     tooltips = {m: METRICS[m].description for m in metrics if m in METRICS}
+    if within:
+        formatters[WITHIN_COLUMN] = {"type": "textarea"}  # wraps the list of metric names
+        tooltips[WITHIN_COLUMN] = "Metrics in which this run is within observational uncertainty of the best run"
     marks = {m: best_rows(shown[m], m) for m in metrics}
 
     def highlight(column: pd.Series) -> list[str]:
@@ -145,7 +148,7 @@ def score_widget(shown: pd.DataFrame, units: dict[str, str], within: dict[str, l
         layout="fit_columns",
         sizing_mode="stretch_width",
         theme="simple",
-        widths={"Run": 140},
+        widths={"Run": 140, **({WITHIN_COLUMN: 190} if within else {})},
         stylesheets=[TABLE_CSS],
     )
     widget.style.apply(highlight, axis=0, subset=metrics)

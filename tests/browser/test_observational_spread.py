@@ -97,5 +97,9 @@ def test_band_and_second_reference_point(browser, served, screenshots: Path) -> 
     rule = page.locator(".gs-obs-rule")
     rule.first.wait_for()
     assert "within observational uncertainty" in rule.first.text_content()
+    # the text column naming the tied metrics (a marker that is not colour alone)
+    assert page.get_by_text("≈ best (obs. uncertainty)").count() >= 1
+    page.wait_for_timeout(300)
+    page.screenshot(path=str(screenshots / "obs-spread-scores.png"), full_page=True)
     assert session.errors() == []
     session.close()
