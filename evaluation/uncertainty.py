@@ -19,7 +19,7 @@ import pandas as pd
 
 from .metrics import METRICS
 
-__all__ = ["RULE", "IDEAL_DISTANCE", "distance_from_ideal", "within_observational_uncertainty", "reference_range", "run_pairs"]
+__all__ = ["RULE", "IDEAL_DISTANCE", "distance_from_ideal", "within_observational_uncertainty", "reference_range", "run_pairs", "tied_with"]
 
 #: The rule in one paragraph, as the page, the provenance and the README state it.
 RULE = (
@@ -165,3 +165,15 @@ def run_pairs(table: pd.DataFrame, *, primary: str) -> pd.DataFrame:
             diff = ga - gb
             rows.append((a, b, *keys, float(va[0] - vb[0]), spread, bool((diff > 0).all() or (diff < 0).all()), verdict))
     return pd.DataFrame(rows, columns=["model_a", "model_b", *_KEYS, "difference", "spread", "order_kept", "within"])
+
+
+def tied_with(pairs: pd.DataFrame, best: set[str] | frozenset[str]) -> set[str]:
+    """The runs within observational uncertainty of any run in ``best`` (themselves excluded).
+
+    ``pairs`` are rows of :func:`run_pairs` for one metric and one case (variable, level,
+    region, season, period); undecided pairs tie nothing.
+    """
+    tied = pairs[pairs["within"].map(lambda v: v is True)]
+    close = {b for a, b in zip(tied["model_a"], tied["model_b"], strict=True) if a in best}
+    close |= {a for a, b in zip(tied["model_a"], tied["model_b"], strict=True) if b in best}
+    return close - set(best)

@@ -49,6 +49,13 @@ def error_matrix(tidy: pd.DataFrame, *, split: str) -> pd.DataFrame:
     return rel[["model", "column", "variable", "region", "season", "reference", "value"]].reset_index(drop=True)
 
 
+def _tied_cells(ties: pd.DataFrame | None, split: str) -> set[tuple[str, str]]:
+    """(run, column) of the cells within observational uncertainty of their column's best."""
+    if ties is None or ties.empty:
+        return set()
+    return set(zip(ties["model"], error_matrix(ties.assign(metric="rel_error", reference="", value=0.0), split=split)["column"], strict=True))
+
+
 def _cell_text(value: float) -> str:
     if not np.isfinite(value):
         return ""
@@ -66,7 +73,8 @@ class OverviewView(ResultView):
         "(Gleckler et al. 2008): −0.2 means 20 % smaller error than the typical run (blue, "
         "better), +0.2 means 20 % larger (red, worse). Computed for every run and variable of "
         "the collection, for the selected region, season and period; grey: the run does not "
-        "provide the variable."
+        "provide the variable. ≈ marks a run within observational uncertainty of the best run of "
+        "its column (for variables with several references; the rule is on the Scores page)."
     )
 
     split = param.Selector(default="none", objects=list(SPLITS))
@@ -88,7 +96,8 @@ class OverviewView(ResultView):
         args = (request.reference, request.period, regions, seasons, request.target_grid)
         results = self.results
         tidy = await results.fetch(("overview",) + args, results.overview, *args)
-        return {"tidy": tidy, "split": self.split}
+        ties = await results.fetch(("overview_ties",) + args, results.overview_ties, *args)
+        return {"tidy": tidy, "split": self.split, "ties": ties}
 
     def figure(self, data: dict[str, Any], request: Request) -> hv.Overlay | None:
         matrix = error_matrix(data["tidy"], split=data["split"])
@@ -100,7 +109,10 @@ class OverviewView(ResultView):
         finite = finite[np.isfinite(finite)]
         top = float(np.abs(finite).max()) if finite.size else 1.0
         top = top if top > 0 else 1.0  # all runs equal: a zero range breaks the colour bar
-        frame = matrix.assign(text=[_cell_text(v) for v in matrix["value"]])
+        # "≈": within observational uncertainty of the best run of the column (several references)
+        tied = _tied_cells(data.get("ties"), data["split"])
+        marks = ["≈" if (m, c) in tied else "" for m, c in zip(matrix["model"], matrix["column"], strict=True)]
+        frame = matrix.assign(text=[mark + _cell_text(v) for mark, v in zip(marks, matrix["value"], strict=True)])
         # HoloViews reshapes the hover columns into the grid; pyarrow-backed strings
         # (pandas' default string type) cannot be reshaped, plain objects can.
         frame = frame.astype({c: object for c in frame.columns if c != "value"})

@@ -464,7 +464,16 @@ class Results:
         reference that does; the selected period where every source covers it, else the
         default period of that variable.  Variables the core cannot score are skipped.
         """
-        tables = []
+        tables = [
+            table[(table["reference"] == ref) & table["model"].isin(runs)]
+            for ref, runs, table in self._overview_tables(reference, period, regions, seasons, target_grid)
+        ]
+        if not tables:
+            return pd.DataFrame(columns=list(TIDY_COLUMNS))
+        return pd.concat(tables, ignore_index=True)
+
+    def _overview_tables(self, reference: str, period: str, regions: tuple[str, ...], seasons: tuple[str, ...], target_grid: str = ""):
+        """Per variable: the reference used, the runs, and the whole table (every reference)."""
         for variable in self.variables():
             refs = self.references(variable)
             ref = reference if reference in refs else refs[0]
@@ -474,10 +483,29 @@ class Results:
                 except InputError:
                     cmp = self.comparison(ref, variable, None, target_grid=target_grid)
                 table = cmp.scores(regions=list(regions), seasons=list(seasons))
-                runs = {m.name for m in cmp.models}
-                tables.append(table[(table["reference"] == ref) & table["model"].isin(runs)])
             except InputError:
                 continue
-        if not tables:
-            return pd.DataFrame(columns=list(TIDY_COLUMNS))
-        return pd.concat(tables, ignore_index=True)
+            yield ref, {m.name for m in cmp.models}, table
+
+    def overview_ties(self, reference: str, period: str, regions: tuple[str, ...], seasons: tuple[str, ...], target_grid: str = "") -> pd.DataFrame:
+        """The overview's cells within observational uncertainty of the best run of their column.
+
+        Columns ``model variable level region season``: runs whose relative error is not the
+        lowest but within observational uncertainty of a run with the lowest
+        (:func:`evaluation.uncertainty.run_pairs`); empty where a variable has one reference.
+        """
+        from evaluation.uncertainty import run_pairs, tied_with
+
+        found = []
+        keys = ["variable", "level", "region", "season"]
+        for ref, runs, table in self._overview_tables(reference, period, regions, seasons, target_grid):
+            if table["reference"].nunique() < 2:
+                continue
+            rel = table[(table["metric"] == "rel_error") & table["model"].isin(runs)]
+            pairs = run_pairs(rel, primary=ref)
+            primary = rel[rel["reference"] == ref]
+            for key, block in primary.groupby(keys, sort=False, dropna=False):
+                best = set(block.loc[block["value"] == block["value"].min(), "model"])
+                here = pairs[(pairs[keys] == pd.Series(key, index=keys)).all(axis=1)]
+                found += [(m, *key) for m in sorted(tied_with(here, best))]
+        return pd.DataFrame(found, columns=["model", *keys])

@@ -19,7 +19,7 @@ from bokeh.models.widgets.tables import NumberFormatter
 from evaluation.export import METRIC_ORDER, table_bytes, wide_table
 from evaluation.metrics import METRICS
 from evaluation.regions import parse_region
-from evaluation.uncertainty import RULE, run_pairs
+from evaluation.uncertainty import RULE, run_pairs, tied_with
 
 from ..state import Request
 from .base import ResultView, safe_filename, text_html, text_tooltip
@@ -98,11 +98,8 @@ def within_best(shown: pd.DataFrame, pairs: pd.DataFrame, metrics: list[str]) ->
     marks: dict[str, list[bool]] = {}
     for m in metrics:
         best = best_rows(shown[m], m)
-        best_runs = set(shown.loc[best, "Run"]) if any(best) else set()
-        tied = pairs[(pairs["metric"] == m) & (pairs["within"] == True)]  # noqa: E712 (None is undecided)
-        close = {b for a, b in zip(tied["model_a"], tied["model_b"], strict=True) if a in best_runs}
-        close |= {a for a, b in zip(tied["model_a"], tied["model_b"], strict=True) if b in best_runs}
-        marks[m] = [(not f) and run in close for run, f in zip(shown["Run"], best, strict=True)]
+        close = tied_with(pairs[pairs["metric"] == m], set(shown.loc[best, "Run"]) if any(best) else set())
+        marks[m] = [run in close for run in shown["Run"]]
     return marks
 
 
