@@ -173,7 +173,7 @@ def tied_with(pairs: pd.DataFrame, best: set[str] | frozenset[str]) -> set[str]:
     ``pairs`` are rows of :func:`run_pairs` for one metric and one case (variable, level,
     region, season, period); undecided pairs tie nothing.
     """
-    tied = pairs[pairs["within"].map(lambda v: v is True)]
+    tied = pairs.loc[pairs["within"].map(lambda v: v is True).astype(bool)]
     close = {b for a, b in zip(tied["model_a"], tied["model_b"], strict=True) if a in best}
     close |= {a for a, b in zip(tied["model_a"], tied["model_b"], strict=True) if b in best}
     return close - set(best)

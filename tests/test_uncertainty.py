@@ -16,7 +16,13 @@ from cfdata import write_cf
 
 from evaluation.metrics import METRICS
 from evaluation.scoring import Comparison, Source
-from evaluation.uncertainty import RULE, reference_range, run_pairs, within_observational_uncertainty
+from evaluation.uncertainty import (
+    RULE,
+    reference_range,
+    run_pairs,
+    tied_with,
+    within_observational_uncertainty,
+)
 
 PERIOD = "1996-2003"
 REGIONS = ["global", "tropics"]
@@ -227,3 +233,14 @@ def test_run_pairs_match_the_rule_worked_by_hand(both) -> None:
         assert p.difference == pytest.approx(a[0] - b[0], abs=1e-12)
     ranges = reference_range(table[table.model.isin(RUNS)])
     assert (ranges["references"] == 2).all()
+
+
+def test_tied_with_the_best_by_hand() -> None:
+    # pairs of one metric: a~b within, a~c not, b~d within, c~d undecided
+    pairs = pd.DataFrame(
+        {"model_a": ["a", "a", "b", "c"], "model_b": ["b", "c", "d", "d"], "within": [True, False, True, None]}
+    )
+    assert tied_with(pairs, {"a"}) == {"b"}
+    assert tied_with(pairs, {"d"}) == {"b"}  # the undecided pair ties nothing
+    assert tied_with(pairs, {"a", "b"}) == {"d"}  # best runs themselves are not listed
+    assert tied_with(pairs.iloc[0:0], {"a"}) == set()
