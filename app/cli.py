@@ -237,6 +237,7 @@ def _cmd_serve(args) -> int:
         show=args.show,
         scheduler=args.scheduler,
         password=args.password,
+        password_file=args.password_file,
     )
     return EXIT_OK
 
@@ -311,7 +312,10 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--allow-websocket-origin", action="append", metavar="HOST", help="host[:port] allowed to connect (repeatable)")
     p.add_argument("--show", action="store_true", help="open the dashboard in a browser")
     p.add_argument("--scheduler", metavar="ADDRESS", help="address of a running dask.distributed scheduler")
-    p.add_argument("--password", metavar="PASSWORD", help="require this password (basic authentication) — for sharing inside a group")
+    p.add_argument("--password-file", metavar="FILE",
+                   help="require the password on this file's first line (or a JSON object of users); "
+                        "or set GRIDSCORE_PASSWORD — for sharing inside a group")
+    p.add_argument("--password", metavar="PASSWORD", help="deprecated: visible to every user in ps; use --password-file or GRIDSCORE_PASSWORD")
     p.set_defaults(func=_cmd_serve)
 
     p = sub.add_parser("cache", help="inspect or clear the on-disk cache")

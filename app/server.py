@@ -12,6 +12,7 @@ import json
 import logging
 import os
 import secrets
+import socket
 import sys
 from collections.abc import Sequence
 from pathlib import Path
@@ -21,6 +22,7 @@ import panel as pn
 
 from evaluation.errors import InputError
 
+from .access import PASSWORD_ENV, SlowLoginProvider, check_origins, component_route, password_from
 from .state import Selection, parse_query, query_string
 from .views.base import gate_page, on_document
 from .views.coastlines import coastline_segments
@@ -68,14 +70,16 @@ def load_results(path: str | os.PathLike[str] | None = None) -> Results:
 
 
 # ---------------------------------------------------------------------- access control
-def check_password(password: str | None) -> str | dict[str, str] | None:
+def check_password(password: str | dict[str, str] | None, *, plain: bool = False) -> str | dict[str, str] | None:
     """Validate the ``--password`` option before Panel's basic authentication gets it.
 
     Parameters
     ----------
     password
-        A password (at least 8 characters; any user name is then accepted), or the path
-        of a JSON file mapping user names to passwords.
+        A password (at least 8 characters; any user name is then accepted), the path
+        of a JSON file mapping user names to passwords, or such a mapping.
+    plain
+        The text is a password read from a file or the environment: never a path.
 
     Returns
     -------
@@ -93,7 +97,18 @@ def check_password(password: str | None) -> str | dict[str, str] | None:
     """
     if password is None:
         return None
+    if isinstance(password, dict):
+        if not password or not all(
+            isinstance(k, str) and k.strip() and isinstance(v, str) and len(v) >= MIN_PASSWORD_LENGTH for k, v in password.items()
+        ):
+            raise InputError(f"the credentials must map user names to passwords of at least {MIN_PASSWORD_LENGTH} characters",
+                             remedy='write a JSON object such as {"ana": "a long secret"}')
+        return dict(password)
     text = str(password)
+    if plain:
+        if not text.strip() or len(text) < MIN_PASSWORD_LENGTH:
+            raise InputError(f"the password must have at least {MIN_PASSWORD_LENGTH} characters", remedy="choose a longer password")
+        return text
     candidate = Path(text).expanduser()
     looks_like_path = os.sep in text or "/" in text or text.lower().endswith(".json")
     if candidate.is_file():
@@ -116,6 +131,42 @@ def check_password(password: str | None) -> str | dict[str, str] | None:
         raise InputError(f"the password must have at least {MIN_PASSWORD_LENGTH} characters",
                          remedy="choose a longer password")
     return text
+
+
+def _everywhere(address: str) -> bool:
+    return address.strip() in ("", "0.0.0.0", "::", "[::]")
+
+
+def _url_host(address: str) -> str:
+    """``address`` as the host part of a URL (IPv6 literals in brackets)."""
+    text = address.strip().strip("[]")
+    try:
+        return f"[{text}]" if ipaddress.ip_address(text).version == 6 else text
+    except ValueError:
+        return text
+
+
+def open_urls(address: str, port: int) -> list[str]:
+    """Where the dashboard can be opened: this machine first, then other machines.
+
+    ``localhost`` for 127.0.0.1 and for a server on every interface (``''``, ``0.0.0.0``,
+    ``::``), which other machines reach by this machine's name; any other address as
+    written (``127.0.0.2`` is loopback but not what ``localhost`` resolves to).
+    """
+    text = address.strip()
+    if text.lower() in _LOOPBACK_NAMES or text == "127.0.0.1":
+        return [f"http://localhost:{port}/"]
+    if _everywhere(text):
+        return [f"http://localhost:{port}/", f"http://{socket.getfqdn() or socket.gethostname()}:{port}/"]
+    return [f"http://{_url_host(text)}:{port}/"]
+
+
+def _own_origins(address: str, port: int) -> list[str]:
+    """The host:port names of the printed URLs: the websocket must accept them."""
+    hosts = {"localhost", "127.0.0.1"}
+    for url in open_urls(address, port):
+        hosts.add(url.split("//", 1)[1].rsplit(":", 1)[0])
+    return sorted(f"{h}:{port}" for h in hosts)
 
 
 def is_loopback(address: str) -> bool:
@@ -147,6 +198,16 @@ def _serve_own_stylesheets() -> None:
     doc.template_variables.setdefault("dist_url", local)
 
 
+def _notice_page(text: str) -> pn.template.BaseTemplate:
+    """A page that only says why there is nothing to show (plain text)."""
+    from .views.base import error_box
+    from .views.look import INK
+
+    template = pn.template.BootstrapTemplate(title="gridscore", header_background=INK, header_color="#f8fafc")
+    template.main.append(error_box(f"Nothing to show: {text}"))
+    return template
+
+
 def build_session(results: Results) -> pn.template.BaseTemplate:
     """The page of one browser session, with the URL query applied before any computation."""
     from .dashboard import available_tabs, build
@@ -154,7 +215,10 @@ def build_session(results: Results) -> pn.template.BaseTemplate:
     gate_page()
     _serve_own_stylesheets()
     results.revalidate()  # a new session or a reload never sees results older than the files
-    selection = Selection(results, tabs=available_tabs(results))
+    try:
+        selection = Selection(results, tabs=available_tabs(results))
+    except InputError as error:  # nothing to compare: say so on the page, not only in the log
+        return _notice_page(error.message)
     location = pn.state.location
     if location is not None and location.search:
         selection.apply_query(parse_query(location.search))
@@ -221,13 +285,15 @@ def make_server(
     which tests shorten).
     """
     _prepare(results)
-    origins = list(allow_websocket_origin) or None
-    if origins is not None:
-        # The address the person opens must be allowed too, or the page loads without data.
-        origins += [f"{address}:{port}", f"localhost:{port}"] if port else []
-    options: dict[str, Any] = {}
+    origins = check_origins(allow_websocket_origin) or None
+    if port:
+        # The addresses the person is told to open must be allowed too, or the page loads without data.
+        origins = [*(origins or []), *_own_origins(address, port)]
+    # Panel's component route imports any module named in the URL and skips the login:
+    # this one, listed first, takes its place.
+    options: dict[str, Any] = {"extra_patterns": [component_route()]}
     if password is not None:
-        options.update(basic_auth=password, cookie_secret=secrets.token_urlsafe(32))
+        options.update(auth_provider=SlowLoginProvider(password), cookie_secret=secrets.token_urlsafe(32))
     if server_id is not None:
         options.update(server_id=server_id)
     options.update(server_options)
@@ -254,6 +320,7 @@ def serve(
     show: bool = False,
     scheduler: str | None = None,
     password: str | None = None,
+    password_file: str | os.PathLike[str] | None = None,
 ) -> None:
     """Serve the dashboard of the collection at ``path`` until interrupted.
 
@@ -271,7 +338,11 @@ def serve(
     scheduler
         Address of a running dask.distributed scheduler for the computations.
     password
-        A shared password or a JSON file of user -> password (see :func:`check_password`).
+        A shared password or a JSON file of user -> password (see :func:`check_password`);
+        deprecated: a command line is visible to every user of the machine.
+    password_file
+        A file holding the password on its first line (or a JSON object of users);
+        ``$GRIDSCORE_PASSWORD`` is read when neither is given.
 
     Raises
     ------
@@ -280,10 +351,12 @@ def serve(
     """
     from evaluation import engine
 
-    auth = check_password(password)
-    if any(o.strip() == "*" for o in allow_websocket_origin):
-        raise InputError("--allow-websocket-origin '*' would let any web page drive this server",
-                         remedy="list the host names (and ports) people use, e.g. --allow-websocket-origin host:5006")
+    secret, plain = password_from(password=password, password_file=password_file)
+    if password is not None and not plain:
+        print(f"gridscore: note: --password is visible to every user of this machine (ps); "
+              f"use --password-file or ${PASSWORD_ENV} instead", file=sys.stderr)
+    auth = check_password(secret, plain=plain)
+    check_origins(allow_websocket_origin)
     if not is_loopback(address) and auth is None:
         print(
             f"gridscore: WARNING: serving on {address}, reachable from other machines, without access control. "
@@ -291,9 +364,12 @@ def serve(
             file=sys.stderr,
         )
     results = load_results(path)
-    host = "localhost" if is_loopback(address) else address
+    if not results.variables():
+        print("gridscore: WARNING: no variable is held by both a model run and a reference; "
+              "the page will only say so", file=sys.stderr)
+    urls = open_urls(address, port)
     print(f"gridscore: serving {getattr(results.collection, 'title', '') or 'the collection'}", file=sys.stderr)
-    print(f"gridscore: open http://{host}:{port}/", flush=True)
+    print(f"gridscore: open {urls[0]}" + (f" (from other machines: {urls[1]})" if len(urls) > 1 else ""), flush=True)
     if auth is not None:
         print("gridscore: the dashboard asks for the password (any user name is accepted with a single password)", file=sys.stderr)
     if scheduler:

@@ -284,8 +284,8 @@ class Results:
         """Forget what was computed from files that changed; retry failures after a while.
 
         Called before each request of a view (cheap: a stat per file).  Returns whether a
-        new generation started.  Products of the old generation are never served again; a
-        computation still running for them stores its result under the old generation.
+        new generation started.  Products and comparisons of the old generation are never
+        served again.
         """
         now = time.monotonic()
         stamp = self._inputs_stamp()
@@ -294,30 +294,33 @@ class Results:
             return False
         self._stamp, self._checked, self._failed = stamp, now, False
         self._generation += 1
-        self.products.clear()
-        self._comparisons.clear()
+        # a fresh product cache: a computation still running for the old files stores its
+        # result in the old one, which nobody asks any more
+        self.products = BoundedCache(max_items=self.products.max_items)
+        self._comparisons = BoundedCache(max_items=self._comparisons.max_items)
         self._variables = self._list_variables()
         self._failed = bool(self._unreadable)
         return True
 
     async def fetch(self, key: tuple, function: Callable[..., T], *args: Any) -> T:
         """A cached product: answered at once when present, else computed off the loop."""
-        key = (self._generation, *key)
-        value = self.products.get(key)
+        products = self.products
+        value = products.get(key)
         if value is not _MISSING:
             return value
-        return await self.run(self._product, key, function, args)
+        return await self.run(self._product, key, function, args, products)
 
     def product(self, key: tuple, function: Callable[..., T], *args: Any) -> T:
         """The same as :meth:`fetch`, on the calling thread (for tests and exports)."""
         with self._lock:
-            return self._product((self._generation, *key), function, args)
+            return self._product(key, function, args)
 
-    def _product(self, key: tuple, function: Callable[..., T], args: Sequence[Any]) -> T:
-        value = self.products.get(key)
+    def _product(self, key: tuple, function: Callable[..., T], args: Sequence[Any], products: BoundedCache | None = None) -> T:
+        products = self.products if products is None else products
+        value = products.get(key)
         if value is _MISSING:  # another session may have made it while this one queued
             value = function(*args)
-            self.products.put(key, value)
+            products.put(key, value)
         return value
 
     def warm(self) -> Future:
@@ -378,7 +381,8 @@ class Results:
             if str(default[0].period) == period:
                 return default
         key = (reference, variable, period, level, target_grid)
-        entry = self._comparisons.get(key)
+        comparisons = self._comparisons  # of this generation, even if files change meanwhile
+        entry = comparisons.get(key)
         if entry is not _MISSING:
             return entry
         runs = [self.source(n) for n in self.models(variable)]
@@ -407,7 +411,7 @@ class Results:
         left += [f"{o['source']}: {o['reason']}" for o in cmp.omissions if o["season"] == "all"]
         entry = (cmp, tuple(left))
         self._failed = self._failed or bool(left)
-        self._comparisons.put(key, entry)
+        comparisons.put(key, entry)
         return entry
 
     def period_info(self, reference: str, variable: str) -> tuple[Period, Period]:
