@@ -13,6 +13,7 @@ JSON) or at 16 significant digits (XLSX, the most openpyxl writes).
 from __future__ import annotations
 
 import glob
+import html
 import importlib.metadata
 import io
 import json
@@ -36,6 +37,8 @@ __all__ = [
     "METRIC_ORDER",
     "TABLE_FORMATS",
     "check_table_path",
+    "csv_bytes",
+    "spreadsheet_text",
     "TIDY_COLUMNS",
     "field_bytes",
     "provenance",
@@ -321,9 +324,47 @@ def _title(record: Mapping[str, Any] | None) -> str:
     return "Scores" + (f": {', '.join(parts)}" if parts else "")
 
 
+#: Characters that make a spreadsheet read a cell as a formula (OWASP, "CSV Injection").
+_FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
+
+
+def spreadsheet_text(value: Any) -> Any:
+    """A text cell that a spreadsheet shows as text: a leading ``'`` before a formula sign.
+
+    Notes
+    -----
+    Follows the OWASP guidance on CSV injection: text beginning with ``=``, ``+``, ``-``,
+    ``@``, a tab or a carriage return gets a single quote in front (a run named
+    ``=HYPERLINK(...)`` stays a name); a carriage return becomes a line feed.  Only text
+    is changed: numbers (``-1.5`` in the value column), NaN and ``None`` are returned as
+    they are.
+    """
+    if not isinstance(value, str):
+        return value
+    # A carriage return is written as a line feed, which the CSV writer quotes; a lone CR
+    # left unquoted would end the row for readers that take it as a line end (pandas).
+    value = value.replace("\r\n", "\n").replace("\r", "\n")
+    return "'" + value if value.startswith(_FORMULA_START) else value
+
+
+def csv_bytes(table: pd.DataFrame) -> bytes:
+    """A table as CSV with its text cells safe for spreadsheets (:func:`spreadsheet_text`).
+
+    Notes
+    -----
+    Numeric columns are written as they are, at full precision (pandas writes floats
+    with ``repr()``, which reads back to the identical double); NaN is an empty cell.
+    """
+    safe = table.copy()
+    for column in safe.columns:
+        if not pd.api.types.is_numeric_dtype(safe[column]):
+            safe[column] = safe[column].map(spreadsheet_text)
+    safe.columns = [spreadsheet_text(str(c)) for c in safe.columns]
+    return safe.to_csv(index=False, lineterminator="\n").encode("utf-8")
+
+
 def _csv_bytes(table: pd.DataFrame) -> bytes:
-    # pandas writes floats with repr(), which reads back to the identical double.
-    return table.to_csv(index=False, lineterminator="\n").encode("utf-8")
+    return csv_bytes(table)
 
 
 def _json_bytes(table: pd.DataFrame, record: Mapping[str, Any] | None) -> bytes:
@@ -357,7 +398,8 @@ def _markdown_bytes(table: pd.DataFrame, record: Mapping[str, Any] | None) -> by
     def markdown(frame: pd.DataFrame, align: Sequence[str]) -> str:
         # tabulate writes cell text as is: a "|" inside a name would end the cell early
         # and a line break would end the table.
-        text = frame.astype(object).map(lambda v: " ".join(str(v).split("\n")).replace("|", "\\|"))
+        # Markdown passes HTML through to the page that shows it: names are escaped.
+        text = frame.astype(object).map(lambda v: html.escape(" ".join(str(v).split("\n")), quote=False).replace("|", "\\|"))
         return text.to_markdown(index=False, disable_numparse=True, colalign=tuple(align))
 
     shown = _display_frame(table, missing="–")
@@ -365,7 +407,7 @@ def _markdown_bytes(table: pd.DataFrame, record: Mapping[str, Any] | None) -> by
     units = _units_table(table)
     prov = _provenance_frame(record)
     parts = [
-        f"# {_title(record)}",
+        f"# {html.escape(' '.join(_title(record).split()), quote=False)}",
         markdown(shown, ["left"] * n_keys + ["right"] * (shown.shape[1] - n_keys)),
         "## Units",
         markdown(units, ["left"] * units.shape[1]),
@@ -383,11 +425,12 @@ def _latex_bytes(table: pd.DataFrame, record: Mapping[str, Any] | None) -> bytes
         shown.style.hide(axis="index").format(escape="latex").format_index(escape="latex", axis="columns")
     )
     tabular = styler.to_latex(hrules=True, column_format="l" * n_keys + "r" * (shown.shape[1] - n_keys))
-    comment = [f"% {_title(record)}", "% needs \\usepackage{booktabs}"]
+    comment = [f"% {' '.join(_title(record).split())}", "% needs \\usepackage{booktabs}"]
     units = _units_table(table)
     for _, row in units.iterrows():
         pairs = ", ".join(f"{m} {u}" for m, u in row.iloc[1:].items() if u)
-        comment.append(f"% units of {row['variable']}: {pairs}")
+        # a line break in a name would end the comment and turn the rest into LaTeX
+        comment.append(" ".join(f"% units of {row['variable']}: {pairs}".split()))
     comment.append("% provenance:")
     for key, value in _flat_items(record or {}):
         # A line break in a value would end the comment and turn the rest into LaTeX.

@@ -19,6 +19,7 @@ from bokeh.models.widgets.tables import NumberFormatter
 
 from evaluation import budget
 from evaluation.errors import InputError
+from evaluation.export import csv_bytes
 from evaluation.trends import ols_trend
 
 from ..state import Request
@@ -139,7 +140,7 @@ class BudgetView(ResultView):
         if data["note"]:
             parts.append(pn.pane.HTML(f'<div class="gs-notice">{text_html(data["note"])}</div>', margin=(0, 10, 6, 10)))
         download = pn.widgets.FileDownload(
-            callback=lambda: io.BytesIO(table.to_csv(index=False).encode("utf-8")),
+            callback=lambda: io.BytesIO(csv_bytes(table)),  # run names as spreadsheet text
             filename=safe_filename("budget", data["period"]) + ".csv",
             label="CSV", color="light", width=100, height=34,
             description=text_tooltip("Download the budget table (tidy: model, period, metric, value, units)"),
