@@ -101,7 +101,7 @@ def _scheduler(args) -> contextlib.AbstractContextManager:
     """Connect to a dask.distributed scheduler, start a local cluster, or use threads."""
     address = getattr(args, "scheduler", None)
     workers = getattr(args, "workers", None)
-    if not address and not workers:
+    if not address and workers is None:  # --workers 0 is refused by connect, not ignored
         return contextlib.nullcontext()
     from evaluation.engine import connect
 
@@ -333,6 +333,9 @@ def main(argv: Sequence[str] | None = None) -> int:
     args = parser.parse_args(argv)
     debug = bool(os.environ.get("GRIDSCORE_DEBUG"))
     try:
+        from evaluation.io import chunk_megabytes
+
+        chunk_megabytes()  # a bad GRIDSCORE_CHUNK_MB is refused even when results come from the cache
         with warnings.catch_warnings():
             if not debug:
                 warnings.simplefilter("ignore")

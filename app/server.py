@@ -352,10 +352,10 @@ def serve(
     from evaluation import engine
 
     secret, plain = password_from(password=password, password_file=password_file)
+    auth = check_password(secret, plain=plain)
     if password is not None and not plain:
         print(f"gridscore: note: --password is visible to every user of this machine (ps); "
               f"use --password-file or ${PASSWORD_ENV} instead", file=sys.stderr)
-    auth = check_password(secret, plain=plain)
     check_origins(allow_websocket_origin)
     if not is_loopback(address) and auth is None:
         print(

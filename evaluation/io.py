@@ -35,6 +35,7 @@ __all__ = [
     "CF_CALENDARS",
     "FileIdentity",
     "expand_paths",
+    "chunk_megabytes",
     "file_identity",
     "find_axis",
     "variables_in",
@@ -107,6 +108,10 @@ def expand_paths(paths: str | os.PathLike[str] | Iterable[str | os.PathLike[str]
             matches = sorted(glob.glob(text))
             if not matches:
                 raise InputError("the pattern matches no file", file=text, remedy="check the folder and the quoting of the glob")
+            folders = [m for m in matches if os.path.isdir(m)]
+            if folders:  # a folder is not a data file; reading it would fail with a misleading reason
+                raise InputError(f"the pattern matches a folder, not a file ({folders[0]})", file=text,
+                                 remedy=f"make the glob match files only, e.g. '{os.path.join(folders[0], '*.nc')}'")
             found.extend(matches)
         elif os.path.isfile(text):
             found.append(text)
@@ -269,7 +274,13 @@ def _check_complete(path: str) -> None:
     read), so it serves as the completeness check.  HDF5-based files fail on open.
     """
     try:
-        with open(path, "rb") as fh:
+        fh = open(path, "rb")  # noqa: SIM115 (closed below)
+    except OSError as error:  # permission denied is not a truncated file
+        reason = error.strerror or type(error).__name__
+        raise InputError(f"cannot open the file ({reason.lower()})", file=path,
+                         remedy="check that the file is readable by this user (ls -l; chmod u+r)") from None
+    try:
+        with fh:
             if fh.read(4) not in (b"CDF\x01", b"CDF\x02"):
                 return
             from scipy.io import netcdf_file
@@ -429,7 +440,7 @@ def _time_chunk(cells: int, steps_per_month: float = 1.0) -> int:
     A chunk boundary inside a month (months of unequal length) costs nothing but
     a second read: the monthly means are group sums across chunks.
     """
-    budget = _chunk_megabytes() * 2**20
+    budget = chunk_megabytes() * 2**20
     per_month = max(1, int(round(steps_per_month)))
     months = int(budget // (per_month * max(cells, 1) * 8))
     if months >= 12:
@@ -437,7 +448,7 @@ def _time_chunk(cells: int, steps_per_month: float = 1.0) -> int:
     return per_month * max(1, months)
 
 
-def _chunk_megabytes() -> float:
+def chunk_megabytes() -> float:
     """``$GRIDSCORE_CHUNK_MB`` (default 64), refused unless a positive finite number."""
     text = os.environ.get("GRIDSCORE_CHUNK_MB", "").strip()
     if not text:
