@@ -64,6 +64,10 @@ def _nothing_ran(page, dialogs: list[str]) -> None:
 def _every_tab(page, dialogs: list[str]) -> None:
     tabs = [t for t in TABS if page.locator(".gs-tabs").get_by_text(TABS[t], exact=True).count()]
     assert {"maps", "scores", "series", "taylor"} <= set(tabs)
+    _tabs(page, dialogs, tabs)
+
+
+def _tabs(page, dialogs: list[str], tabs: list[str]) -> None:
     for tab in tabs:
         page.locator(".gs-tabs").get_by_text(TABS[tab], exact=True).first.click()
         wait_for_view(page, tab, what=DRAWN[tab])
@@ -87,7 +91,9 @@ def test_folder_names_are_text_on_every_tab(browser, layout_app) -> None:
     # the names are on the page as written (run list and download labels)
     assert page.get_by_text(FOLDER_IMG, exact=False).count() >= 1
     assert page.get_by_text(FOLDER_BRACES, exact=False).count() >= 1
-    _every_tab(page, dialogs)
+    # the manifest case opens every tab; here the tabs that draw names in plot titles,
+    # legends and table cells (kept short: the whole folder should run in about a minute)
+    _tabs(page, dialogs, ["series", "scores", "taylor"])
     assert session.errors() == []
     session.close()
 
