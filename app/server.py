@@ -353,6 +353,9 @@ def serve(
 
     secret, plain = password_from(password=password, password_file=password_file)
     auth = check_password(secret, plain=plain)
+    from evaluation.cache import default_cache
+
+    default_cache()  # a cache folder holding other files, or a bad size bound: refused before serving
     if password is not None and not plain:
         print(f"gridscore: note: --password is visible to every user of this machine (ps); "
               f"use --password-file or ${PASSWORD_ENV} instead", file=sys.stderr)

@@ -115,6 +115,8 @@ CASES: list[tuple[str, object, dict[str, str]]] = [
     ("serve-port-words", lambda d: ["serve", "--port", "http"], {}),
     ("serve-port-too-large", lambda d: ["serve", str(d / "folder"), "--port", "70000"], {}),
     ("serve-port-negative", lambda d: ["serve", str(d / "folder"), "--port", "-1"], {}),
+    ("serve-cache-in-data-folder", lambda d: ["serve", str(d / "folder"), "--port", "0"], {"GRIDSCORE_CACHE": "{data}"}),
+    ("serve-cache-limit-words", lambda d: ["serve", str(d / "folder"), "--port", "0"], {"GRIDSCORE_CACHE_LIMIT_MB": "lots"}),
 ]
 
 
@@ -157,3 +159,10 @@ def test_a_deprecated_password_option_still_works_with_a_note(capsys, files: Pat
     # refused later for the empty collection: the note comes only once the password is accepted
     outcome = run(capsys, "serve", str(files / "folder"), "--port", "0", "--password", "a long enough secret")
     assert outcome.code == 2 and "visible to every user" in outcome.err
+
+
+def test_serve_refuses_a_foreign_cache_folder_before_serving(capsys, files: Path, monkeypatch) -> None:
+    monkeypatch.setenv("GRIDSCORE_CACHE", str(files / "data"))
+    outcome = run(capsys, "serve", str(files / "folder"), "--port", "0")
+    assert outcome.one_line_refusal() and "did not make" in outcome.err
+    assert (files / "data" / "mine.nc").is_file()
