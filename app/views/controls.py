@@ -230,7 +230,17 @@ class Controls(Viewer):
             self.period_note.object = '<span class="gs-hint">checking the years…</span>'
             return
         start, end = (int(y) for y in sel.period.split("-"))
-        self.period.param.update(start=span.start, end=max(span.end, span.start + 1), value=(start, end), disabled=span.start == span.end)
+        bounds = dict(start=span.start, end=max(span.end, span.start + 1), disabled=span.start == span.end)
+        if (start, end) != tuple(self.period.value_throttled or ()):
+            # The period came from elsewhere (a link, the reset button, a refused value):
+            # show it.  A period the slider itself gave is not written back: by the time
+            # it arrived the person may have moved the handle on, and writing the older
+            # value back would leave the slider showing a period that is not used.
+            # The throttled value follows, so that moving the handle back to the period
+            # it last gave is still a change.
+            bounds["value"] = bounds["value_throttled"] = (start, end)
+        with param.edit_constant(self.period):
+            self.period.param.update(**bounds)
         self.reset_period.disabled = sel.period == str(sel.default_period)
         years = end - start + 1
         self.period_note.object = f'<span class="gs-hint">{start}–{end}, {years} year{"s" if years != 1 else ""}</span>'

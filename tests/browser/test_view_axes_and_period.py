@@ -107,3 +107,101 @@ def test_a_view_keeps_its_own_axes_after_the_zonal_mean(browser, served, later: 
     assert y_range(page, "Zonal mean") == pytest.approx(zonal, rel=1e-9)
     assert session.errors() == []
     session.close()
+
+
+# ---------------------------------------------------------------------------- period
+def slider_years(page) -> tuple[int, int]:
+    """The years the period slider shows (its handles' values, as the person reads them)."""
+    handles = page.locator(".gs-period .noUi-handle")
+    return tuple(int(float(handles.nth(i).get_attribute("aria-valuenow"))) for i in (0, 1))
+
+
+def settled_query(page, *, quiet_ms: int = 1500, timeout_s: float = 60) -> dict[str, str]:
+    """The URL's values once they have not changed for ``quiet_ms``."""
+    deadline = time.monotonic() + timeout_s
+    last, since = page.url, time.monotonic()
+    while time.monotonic() - since < quiet_ms / 1000:
+        assert time.monotonic() < deadline, "the URL kept changing"
+        page.wait_for_timeout(50)
+        if page.url != last:
+            last, since = page.url, time.monotonic()
+    return query(page)
+
+
+def assert_one_period(page) -> None:
+    """Slider, the note under it, the view's context line and the URL name one period."""
+    used = settled_query(page)["period"]
+    start, end = (int(y) for y in used.split("-"))
+    wait_for_view(page, "scores", what=".tabulator-row")
+    deadline = time.monotonic() + 20
+    while slider_years(page) != (start, end):
+        assert time.monotonic() < deadline, f"the slider shows {slider_years(page)} while the URL uses {used}"
+        page.wait_for_timeout(50)
+    page.wait_for_timeout(500)
+    assert slider_years(page) == (start, end), f"the slider moved to {slider_years(page)} after settling on {used}"
+    assert page.get_by_text(f"{start}–{end}, {end - start + 1} years").count() == 1
+    context = page.locator("div.gs-hint", has_text="Showing:").first.text_content()
+    assert context.endswith(used), context
+
+
+@pytest.mark.parametrize("gap_ms", [0, 100])
+def test_the_period_slider_shows_the_period_used_after_keys(browser, served, gap_ms: int) -> None:
+    """Keys pressed faster than the server answers, and at about its pace (both left the
+    slider on an older year while the URL and the views used a later one)."""
+    session = open_dashboard(browser, served + "/?variable=tas&tab=scores")
+    page = session.page
+    wait_for_view(page, "scores", what=".tabulator-row")
+    start, end = (int(y) for y in settled_query(page)["period"].split("-"))
+    handle = page.locator(".gs-period .noUi-handle-lower")
+    handle.focus()
+    for _ in range(20):
+        page.keyboard.press("ArrowRight")
+        page.wait_for_timeout(gap_ms)
+    assert_one_period(page)
+    # the upper handle, a few presses back and forth
+    upper = page.locator(".gs-period .noUi-handle-upper")
+    upper.focus()
+    for key in ["ArrowLeft"] * 6 + ["ArrowRight"] * 2:
+        page.keyboard.press(key)
+        page.wait_for_timeout(gap_ms)
+    assert_one_period(page)
+    moved = settled_query(page)["period"]
+    assert moved != f"{start}-{end}"
+    # back to the default with the button, then the same keys again: the same period as before
+    page.get_by_role("button", name="Default period").click()
+    wait_for_query(page, period=f"{start}-{end}")
+    assert_one_period(page)
+    handle.focus()
+    for _ in range(20):
+        page.keyboard.press("ArrowRight")
+        page.wait_for_timeout(gap_ms)
+    upper.focus()
+    for key in ["ArrowLeft"] * 6 + ["ArrowRight"] * 2:
+        page.keyboard.press(key)
+        page.wait_for_timeout(gap_ms)
+    assert_one_period(page)
+    assert settled_query(page)["period"] == moved
+    assert session.errors() == []
+    session.close()
+
+
+def test_the_period_slider_shows_the_period_used_after_a_drag(browser, served) -> None:
+    session = open_dashboard(browser, served + "/?variable=tas&tab=scores")
+    page = session.page
+    wait_for_view(page, "scores", what=".tabulator-row")
+    before = settled_query(page)["period"]
+    handle = page.locator(".gs-period .noUi-handle-lower").bounding_box()
+    track = page.locator(".gs-period .noUi-base").bounding_box()
+    x, y = handle["x"] + handle["width"] / 2, handle["y"] + handle["height"] / 2
+    page.mouse.move(x, y)
+    page.mouse.down()
+    # to about two thirds of the track in small steps, pausing as a hand does
+    target = track["x"] + 0.66 * track["width"]
+    for step in range(1, 13):
+        page.mouse.move(x + (target - x) * step / 12, y)
+        page.wait_for_timeout(25)
+    page.mouse.up()
+    assert_one_period(page)
+    assert settled_query(page)["period"] != before
+    assert session.errors() == []
+    session.close()
