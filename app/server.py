@@ -359,6 +359,9 @@ def serve(
     if password is not None and not plain:
         print(f"gridscore: note: --password is visible to every user of this machine (ps); "
               f"use --password-file or ${PASSWORD_ENV} instead", file=sys.stderr)
+    elif password is not None:
+        print(f"gridscore: note: --password is ignored; the password comes from "
+              f"{'--password-file' if password_file is not None else '$' + PASSWORD_ENV}", file=sys.stderr)
     check_origins(allow_websocket_origin)
     if not is_loopback(address) and auth is None:
         print(

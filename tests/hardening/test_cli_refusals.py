@@ -166,3 +166,9 @@ def test_serve_refuses_a_foreign_cache_folder_before_serving(capsys, files: Path
     outcome = run(capsys, "serve", str(files / "folder"), "--port", "0")
     assert outcome.one_line_refusal() and "did not make" in outcome.err
     assert (files / "data" / "mine.nc").is_file()
+
+
+def test_a_password_option_beside_the_environment_is_said_to_be_ignored(capsys, files: Path, monkeypatch) -> None:
+    monkeypatch.setenv("GRIDSCORE_PASSWORD", "the one from the environment")
+    outcome = run(capsys, "serve", str(files / "folder"), "--port", "0", "--password", "another long secret")
+    assert outcome.code == 2 and "--password is ignored" in outcome.err
