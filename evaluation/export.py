@@ -617,7 +617,7 @@ def _cf_dataset(field: xr.DataArray | xr.Dataset, record: Mapping[str, Any] | No
     # Encodings inherited from the files read (chunk sizes, packing, source path) may not
     # fit the derived field; let xarray choose afresh, which also encodes cftime times with
     # their own calendar.
-    ds = ds.drop_encoding().copy(deep=False)
+    ds = _udunits_trend(_climatology_time(_cf_coordinates(ds.drop_encoding().copy(deep=False)), record))
     for name, variable in ds.variables.items():
         variable.attrs = _netcdf_attrs(variable.attrs)
         if name in ds.coords and variable.dtype.kind == "f":
@@ -636,6 +636,103 @@ def _cf_dataset(field: xr.DataArray | xr.Dataset, record: Mapping[str, Any] | No
         provenance=_json_text(record),
     )
     ds.attrs = attrs
+    return ds
+
+
+#: CF attributes of the coordinates of a regular grid (CF-1.10 sections 4.1, 4.2 and 7.1).
+_AXES: dict[str, dict[str, str]] = {
+    "lat": {"standard_name": "latitude", "long_name": "latitude", "units": "degrees_north", "axis": "Y"},
+    "lon": {"standard_name": "longitude", "long_name": "longitude", "units": "degrees_east", "axis": "X"},
+}
+
+
+def _cf_coordinates(ds: xr.Dataset) -> xr.Dataset:
+    """1-D ``lat``/``lon`` with their CF attributes and bounds; ``cell_area`` as the cell measure.
+
+    Notes
+    -----
+    Fields cut from a comparison lose the ``lat_bnds``/``lon_bnds`` of their grid (they
+    have another dimension); they are inferred half-way between the centres, which is exact
+    for the regular target grids of a comparison.  Other coordinates are left as they are.
+    """
+    from .grids import infer_bounds
+
+    for name, attrs in _AXES.items():
+        if name not in ds.dims or name not in ds.coords or ds[name].ndim != 1:
+            continue
+        bounds = str(ds[name].attrs.get("bounds") or f"{name}_bnds")
+        if bounds not in ds.variables:
+            ds = ds.assign_coords({bounds: ((name, "nv"), infer_bounds(ds[name].values, kind=name))})
+        ds = ds.assign_coords({name: (name, ds[name].values, {**ds[name].attrs, **attrs, "bounds": bounds})})
+    if "cell_area" in ds.coords:
+        ds["cell_area"].attrs = {"standard_name": "cell_area", "units": "m2", **ds["cell_area"].attrs}
+        for variable in ds.data_vars.values():
+            if set(ds["cell_area"].dims) <= set(variable.dims):
+                variable.attrs.setdefault("cell_measures", "area: cell_area")
+    return ds
+
+
+def _climatology_time(ds: xr.Dataset, record: Mapping[str, Any] | None) -> xr.Dataset:
+    """A climatological time axis (CF-1.10 section 7.4) for a field reduced over a period.
+
+    A map of a comparison holds the mean (or trend) of one season over the years of a
+    period and has no time axis left; CF describes such a field with a time axis of one
+    step whose ``climatology`` bounds run from the start of the first season to the end of
+    the last one (DJF starts in the December before the first label year).
+
+    Notes
+    -----
+    Fields that keep a time axis, or whose ``period``/``season`` attributes (else the
+    provenance's ``period`` and single season) are missing or unreadable, are returned
+    unchanged.  Trend fields (units per decade) get no ``cell_methods``: CF names no
+    method for a trend over years.
+    """
+    import cftime
+
+    from .timeaxis import SEASONS, parse_period, parse_season
+
+    if "time" in ds.dims or "time" in ds.variables or not ds.data_vars:
+        return ds
+    attrs = next(iter(ds.data_vars.values())).attrs
+    seasons = list((record or {}).get("seasons") or [])
+    try:
+        period = parse_period(str(attrs.get("period") or (record or {}).get("period") or ""))
+        season = parse_season(str(attrs.get("season") or (seasons[0] if len(seasons) == 1 else "")))
+    except InputError:
+        return ds
+    months = SEASONS[season]
+    first_year = period.start - 1 if months[0] > months[-1] else period.start  # DJF: the December before
+
+    def month_start(year: int, month: int) -> Any:  # month may run past 12
+        return cftime.datetime(year + (month - 1) // 12, (month - 1) % 12 + 1, 1, calendar="standard")
+
+    start = month_start(first_year, months[0])
+    first_end = month_start(first_year, months[0] + len(months))
+    end = month_start(period.end - (1 if months[0] > months[-1] else 0), months[0] + len(months))
+    units = f"days since {start.year:04d}-{start.month:02d}-01 00:00:00"
+    middle = start + (first_end - start) / 2
+    time = cftime.date2num([middle], units, calendar="standard")
+    climatology = cftime.date2num([[start, end]], units, calendar="standard")
+    out = ds.expand_dims(time=1).assign_coords(
+        time=("time", time, {"standard_name": "time", "long_name": "time", "axis": "T", "units": units,
+                             "calendar": "standard", "climatology": "climatology_bounds"}),
+        climatology_bounds=(("time", "nv"), climatology),
+    )
+    for variable in out.data_vars.values():
+        if "time" in variable.dims and "decade" not in str(variable.attrs.get("units", "")):
+            variable.attrs.setdefault("cell_methods", "time: mean within years time: mean over years")
+    return out
+
+
+def _udunits_trend(ds: xr.Dataset) -> xr.Dataset:
+    """Trend units per decade (``K/decade``) written as UDUNITS reads them (``K/(10 year)``).
+
+    UDUNITS has no decade; a number times a unit in parentheses is part of its grammar.
+    """
+    for variable in ds.data_vars.values():
+        units = str(variable.attrs.get("units", ""))
+        if units.endswith("/decade"):
+            variable.attrs["units"] = f"{units[: -len('/decade')]}/(10 year)"
     return ds
 
 

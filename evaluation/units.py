@@ -193,7 +193,11 @@ def parse_scaled(text: str) -> tuple[float, object]:
             scale, unit = float(q.magnitude), q.units
         except Exception:
             raise InputError(f"cannot read the units '{text}'", remedy="use a CF/UDUNITS unit string such as 'K', 'kg m-2 s-1' or 'W m-2'") from None
-    if any(_own_dimensions(unit)) and unit.dimensionality.get("[temperature]", 0):
+    try:
+        own = any(_own_dimensions(unit))
+    except Exception:  # pint builds some units it cannot reduce ("K/decade"): as unreadable
+        raise InputError(f"cannot read the units '{text}'", remedy="use a CF/UDUNITS unit string such as 'K', 'kg m-2 s-1' or 'W m-2'") from None
+    if own and unit.dimensionality.get("[temperature]", 0):
         raise InputError(
             f"the units '{text}' read as an angle times a temperature",
             remedy="write 'degC' for degrees Celsius or 'K' for kelvin",

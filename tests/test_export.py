@@ -10,6 +10,7 @@ import io
 import json
 import os
 import re
+import subprocess
 from dataclasses import dataclass, field
 from datetime import UTC, datetime, timedelta
 from pathlib import Path
@@ -546,3 +547,84 @@ def test_field_bytes_are_a_netcdf4_file(record: dict, tmp_path: Path) -> None:
     with xr.open_dataset(copy, decode_times=xr.coders.CFDatetimeCoder(use_cftime=True)) as ds:
         np.testing.assert_array_equal(ds["tas_difference"].values, field.values)
         assert ds["time"].encoding["calendar"] == "360_day"
+
+
+# -- a map as the dashboard downloads it: CF coordinates and a climatological time axis --
+
+
+def season_map(season: str, *, units: str = "K", name: str = "tas_difference") -> xr.DataArray:
+    """A (lat, lon) field as a comparison gives it: no bounds, no time, season and period in attrs."""
+    lat = np.arange(-87.5, 90.0, 5.0)
+    lon = np.arange(-177.5, 180.0, 5.0)
+    rng = np.random.default_rng(7)
+    area = np.cos(np.deg2rad(lat))[:, None] * np.ones(lon.size)
+    return xr.DataArray(
+        rng.normal(size=(lat.size, lon.size)),
+        dims=("lat", "lon"),
+        coords={"lat": lat, "lon": lon, "cell_area": (("lat", "lon"), area, {"units": "m2", "long_name": "area of grid cell"})},
+        name=name,
+        attrs={"units": units, "long_name": "near-surface air temperature — run_a minus ref_obs", "season": season,
+               "period": "1991-2020", "variable": "tas"},
+    )
+
+
+@pytest.mark.parametrize(
+    ("season", "start", "end"),
+    [
+        # CF-1.10 section 7.4 (example 7.10, climatological seasons): the bounds run from the
+        # start of the first season to the end of the last; DJF starts the December before.
+        ("ANN", (1991, 1, 1), (2021, 1, 1)),
+        ("DJF", (1990, 12, 1), (2020, 3, 1)),
+        ("JJA", (1991, 6, 1), (2020, 9, 1)),
+        ("DEC", (1991, 12, 1), (2021, 1, 1)),
+    ],
+)
+def test_a_map_is_written_as_cf_and_passes_the_check(record: dict, tmp_path: Path, season: str, start: tuple, end: tuple) -> None:
+    target = tmp_path / f"map_{season}.nc"
+    export.write_field(season_map(season), target, provenance=record)
+    with netCDF4.Dataset(target) as nc:
+        # CF-1.10 sections 4.1 and 4.2: latitude/longitude recognised by standard_name, units, axis
+        for name, standard, units, axis in (("lat", "latitude", "degrees_north", "Y"), ("lon", "longitude", "degrees_east", "X")):
+            var = nc.variables[name]
+            assert (var.standard_name, var.units, var.axis) == (standard, units, axis)
+            # CF section 7.1: bounds (n, 2) that enclose each centre and tile the axis
+            bounds = nc.variables[var.bounds][:]
+            centres = var[:]
+            assert bounds.shape == (centres.size, 2)
+            assert np.all(bounds[:, 0] < centres) and np.all(centres < bounds[:, 1])
+            np.testing.assert_array_equal(bounds[1:, 0], bounds[:-1, 1])
+        lat_bounds = nc.variables["lat_bnds"][:]
+        assert (lat_bounds[0, 0], lat_bounds[-1, 1]) == (-90.0, 90.0)
+        data = nc.variables["tas_difference"]
+        assert data.dimensions == ("time", "lat", "lon")
+        assert data.cell_measures == "area: cell_area"  # CF section 7.2
+        assert data.cell_methods == "time: mean within years time: mean over years"  # CF section 7.4
+        time = nc.variables["time"]
+        # the bounds decoded by cftime (outside reference), not by the code under test
+        lo, hi = cftime.num2date(nc.variables[time.climatology][0], time.units, time.calendar)
+        assert (lo.year, lo.month, lo.day) == start and (hi.year, hi.month, hi.day) == end
+        middle = cftime.num2date(time[0], time.units, time.calendar)
+        assert lo < middle < hi
+    checked = subprocess.run([_gridscore(), "check", str(target)], capture_output=True, text=True, timeout=120)
+    assert checked.returncode == 0, checked.stdout + checked.stderr
+
+
+def test_a_trend_map_gets_units_udunits_reads_and_passes_the_check(record: dict, tmp_path: Path) -> None:
+    target = tmp_path / "trend.nc"
+    export.write_field(season_map("ANN", units="K/decade", name="tas_trend"), target, provenance=record)
+    with netCDF4.Dataset(target) as nc:
+        var = nc.variables["tas_trend"]
+        # UDUNITS-2 grammar: a number times a unit in parentheses is a unit ("decade" is not one)
+        assert var.units == "K/(10 year)"
+        assert "cell_methods" not in var.ncattrs()  # CF names no method for a trend over years
+    checked = subprocess.run([_gridscore(), "check", str(target)], capture_output=True, text=True, timeout=120)
+    assert checked.returncode == 0, checked.stdout + checked.stderr
+
+
+def _gridscore() -> str:
+    """The console script of the environment running the tests."""
+    import shutil
+    import sys
+
+    exe = Path(sys.executable).with_name("gridscore")
+    return str(exe) if exe.exists() else (shutil.which("gridscore") or "gridscore")

@@ -168,3 +168,10 @@ def test_convert_refuses_a_temperature_in_an_angle_unit_even_against_itself():
     da.attrs["standard_name"] = "air_temperature"
     with pytest.raises(InputError, match="an angle"):
         convert(da, "degrees", source="run-d")
+
+
+def test_units_that_pint_builds_but_cannot_reduce_are_refused_as_input() -> None:
+    # "decade" is no UDUNITS unit (UDUNITS-2 units database); pint accepts the string
+    # "K/decade" as a Unit and fails only when reducing it, which must not escape as a crash.
+    with pytest.raises(InputError, match="cannot read the units 'K/decade'"):
+        parse_units("K/decade")

@@ -178,3 +178,15 @@ def sample_manifest(tmp_path_factory: pytest.TempPathFactory) -> Path:
     from evaluation.demo import write_demo
 
     return Path(write_demo(tmp_path_factory.mktemp("sample") / "collection", size="tiny"))
+
+
+@pytest.fixture(scope="module")
+def served_sample(sample_manifest: Path) -> Iterator[str]:
+    """The sample collection served for one test module; yields the base URL."""
+    from app.views.results import Results
+    from evaluation.catalog import Collection
+
+    results = Results(Collection.from_path(sample_manifest))
+    with serving(results) as url:
+        yield url
+    results.close()

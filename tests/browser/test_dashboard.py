@@ -279,7 +279,7 @@ def test_figure_and_field_downloads_are_valid_files(browser, served) -> None:
     assert name.endswith(".nc")
     with _open_netcdf(data) as ds:
         field = ds[f"{request['variable']}_difference"]
-        assert field.dims == ("lat", "lon")
+        assert field.dims == ("time", "lat", "lon") and field.sizes["time"] == 1  # a CF climatology of one step
         assert "units" in field.attrs and ds.attrs["Conventions"].startswith("CF-")
         assert json.loads(ds.attrs["provenance"])["period"] == request["period"]
         assert np.isfinite(field.values).any()

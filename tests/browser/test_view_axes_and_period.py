@@ -8,16 +8,13 @@ sees what the person sees.
 from __future__ import annotations
 
 import time
-from pathlib import Path
 from urllib.parse import parse_qs, urlparse
 
 import pytest
 
 from app.state import TABS
-from app.views.results import Results
-from evaluation.catalog import Collection
 
-from .conftest import open_dashboard, serving, wait_for_view
+from .conftest import open_dashboard, wait_for_view
 
 pytestmark = pytest.mark.browser
 
@@ -38,11 +35,8 @@ _RANGES_JS = """
 
 
 @pytest.fixture(scope="module")
-def served(sample_manifest: Path):
-    results = Results(Collection.from_path(sample_manifest))
-    with serving(results) as url:
-        yield url
-    results.close()
+def served(served_sample: str) -> str:
+    return served_sample
 
 
 def query(page) -> dict[str, str]:
