@@ -17,6 +17,7 @@ import html
 import importlib.metadata
 import io
 import json
+import math
 import os
 import shutil
 import tempfile
@@ -26,6 +27,7 @@ from pathlib import Path
 from typing import Any, Protocol
 
 import jinja2
+import numpy as np
 import pandas as pd
 import xarray as xr
 
@@ -41,7 +43,9 @@ __all__ = [
     "spreadsheet_text",
     "TIDY_COLUMNS",
     "field_bytes",
+    "number_style",
     "provenance",
+    "provenance_bytes",
     "sidecar_path",
     "table_bytes",
     "wide_table",
@@ -299,23 +303,78 @@ def _units_table(table: pd.DataFrame) -> pd.DataFrame:
     return joined.fillna("")
 
 
-def _cell_format(metric: str) -> str:
-    # p-values are probabilities read against thresholds such as 0.05: fixed decimals;
-    # everything else spans many magnitudes (W m-2, K, kg m-2 s-1): significant digits.
-    return "{:.3f}" if metric.endswith("pvalue") else "{:.4g}"
+#: Significant digits of the largest value of a column (the others get as many decimals).
+_DIGITS = 4
+#: Below this largest magnitude a column is written in scientific notation.
+_SMALLEST_FIXED = 1e-3
+#: p-values are read against thresholds such as 0.05: three decimals, and below 0.001 only
+#: "< 0.001" (common practice in reporting p-values; a p-value is never exactly zero).
+_P_FLOOR = 0.001
+
+
+def number_style(values: Iterable[float], metric: str) -> tuple[Callable[[float], str], str]:
+    """How one column of numbers is written for reading: ``(text of a value, Excel format)``.
+
+    Every value of a column gets the same number of decimals: four significant digits of
+    the column's largest magnitude (so ``283.1`` and ``284.0``, never ``284`` beside
+    ``283.1``).  Columns whose largest magnitude is below 0.001 (fluxes in kg m-2 s-1) are
+    written in scientific notation with four significant digits; p-values with three
+    decimals and ``< 0.001`` below that.
+
+    Notes
+    -----
+    NaN values are ignored when choosing; a column of only NaN (or zeros) gets three
+    decimals.  Negative zero is written without its sign.
+    """
+    if metric.endswith("pvalue"):
+        def pvalue(v: float) -> str:
+            return f"< {_P_FLOOR:g}" if v < _P_FLOOR else f"{v:.3f}"
+
+        return pvalue, f'[<{_P_FLOOR:g}]"< {_P_FLOOR:g}";0.000'
+    finite = [abs(float(v)) for v in values if pd.notna(v) and np.isfinite(float(v))]
+    top = max(finite, default=0.0)
+    if 0.0 < top < _SMALLEST_FIXED:
+        return (lambda v: f"{v:.{_DIGITS - 1}e}"), "0." + "0" * (_DIGITS - 1) + "E+00"
+    decimals = 3 if top == 0.0 else min(8, max(0, _DIGITS - 1 - math.floor(math.log10(top))))
+
+    def fixed(v: float) -> str:
+        text = f"{v:.{decimals}f}"
+        return text[1:] if text.startswith("-") and float(text) == 0.0 else text
+
+    return fixed, "0" if decimals == 0 else "0." + "0" * decimals
 
 
 def _display_frame(tidy: pd.DataFrame, *, missing: str) -> pd.DataFrame:
-    """The wide table as text rounded for reading, NaN shown as ``missing``."""
+    """The wide table as text rounded for reading, NaN shown as ``missing``.
+
+    Decimals are chosen per metric column and variable (:func:`number_style`), so that a
+    column of one variable reads with one precision.
+    """
     wide = wide_table(tidy)
     shown = wide.astype(object)
     keys = _key_columns(tidy)
+    groups = wide["variable"].map(str) if "variable" in wide.columns else pd.Series("", index=wide.index)
     for column in wide.columns[len(keys) :]:
-        spec = _cell_format(str(column))
-        shown[column] = [missing if pd.isna(v) else spec.format(v) for v in wide[column]]
+        texts = pd.Series(missing, index=wide.index, dtype=object)
+        for _, rows in wide[column].groupby(groups, sort=False):
+            write = number_style(rows.to_numpy(), str(column))[0]
+            texts[rows.index] = [missing if pd.isna(v) else write(float(v)) for v in rows]
+        shown[column] = texts
     for column in keys:
         shown[column] = wide[column].map(str)
     return shown
+
+
+def _compact(shown: pd.DataFrame, keys: Sequence[str]) -> tuple[pd.DataFrame, dict[str, str]]:
+    """The shown table without the key columns that hold one value (the model's excepted),
+    and those values (for a caption); an empty ``level`` is left out altogether."""
+    constant = {k: str(shown[k].iloc[0]) for k in keys if k != "model" and k in shown and len(shown) and shown[k].nunique() == 1}
+    return shown.drop(columns=list(constant)), {k: v for k, v in constant.items() if v}
+
+
+def _caption(constant: Mapping[str, str]) -> str:
+    """``reference ref_obs; variable tas; ...`` for the columns a compact table leaves out."""
+    return "; ".join(f"{k.replace('_', ' ')} {v}" for k, v in constant.items())
 
 
 def _title(record: Mapping[str, Any] | None) -> str:
@@ -378,11 +437,35 @@ def _xlsx_bytes(table: pd.DataFrame, record: Mapping[str, Any] | None) -> bytes:
     buffer = io.BytesIO()
     with pd.ExcelWriter(buffer, engine="openpyxl") as writer:
         table.to_excel(writer, sheet_name="scores", index=False)
-        wide_table(table).to_excel(writer, sheet_name="wide", index=False)
+        wide = wide_table(table)
+        wide.to_excel(writer, sheet_name="wide", index=False)
+        _number_formats(writer.sheets["scores"], writer.sheets["wide"], table, wide)
         _provenance_frame(record).to_excel(writer, sheet_name="provenance", index=False)
         for sheet in writer.sheets.values():
             _defuse_formulas(sheet)
     return buffer.getvalue()
+
+
+def _number_formats(tidy_sheet: Any, wide_sheet: Any, table: pd.DataFrame, wide: pd.DataFrame) -> None:
+    """Excel number formats as the read formats round (:func:`number_style`), per metric
+    and variable; the cells keep every digit of the value."""
+    if table.empty:
+        return
+    variable = table["variable"].map(str) if "variable" in table.columns else pd.Series("", index=table.index)
+    styles = {
+        key: number_style(rows.to_numpy(), key[1])[1]
+        for key, rows in table["value"].groupby([variable, table["metric"].map(str)], sort=False)
+    }
+    value_column = table.columns.get_loc("value") + 1
+    for row, key in enumerate(zip(variable, table["metric"].map(str), strict=True), start=2):
+        tidy_sheet.cell(row=row, column=value_column).number_format = styles[key]
+    wide_variable = wide["variable"].map(str) if "variable" in wide.columns else pd.Series("", index=wide.index)
+    for column in wide.columns[len(_key_columns(table)) :]:
+        index = wide.columns.get_loc(column) + 1
+        for row, name in enumerate(wide_variable, start=2):
+            style = styles.get((name, str(column)))
+            if style:
+                wide_sheet.cell(row=row, column=index).number_format = style
 
 
 def _defuse_formulas(sheet: Any) -> None:
@@ -402,12 +485,14 @@ def _markdown_bytes(table: pd.DataFrame, record: Mapping[str, Any] | None) -> by
         text = frame.astype(object).map(lambda v: html.escape(" ".join(str(v).split("\n")), quote=False).replace("|", "\\|"))
         return text.to_markdown(index=False, disable_numparse=True, colalign=tuple(align))
 
-    shown = _display_frame(table, missing="–")
-    n_keys = len(_key_columns(table))
+    keys = _key_columns(table)
+    shown, constant = _compact(_display_frame(table, missing="–"), keys)
+    n_keys = len([k for k in keys if k in shown.columns])
     units = _units_table(table)
     prov = _provenance_frame(record)
     parts = [
         f"# {html.escape(' '.join(_title(record).split()), quote=False)}",
+        *([html.escape(' '.join(f"For every row: {_caption(constant)}.".split()), quote=False)] if constant else []),
         markdown(shown, ["left"] * n_keys + ["right"] * (shown.shape[1] - n_keys)),
         "## Units",
         markdown(units, ["left"] * units.shape[1]),
@@ -419,12 +504,21 @@ def _markdown_bytes(table: pd.DataFrame, record: Mapping[str, Any] | None) -> by
 
 def _latex_bytes(table: pd.DataFrame, record: Mapping[str, Any] | None) -> bytes:
     # "--" is LaTeX's en dash and stays plain ASCII.
-    shown = _display_frame(table, missing="--")
-    n_keys = len(_key_columns(table))
+    keys = _key_columns(table)
+    shown, constant = _compact(_display_frame(table, missing="--"), keys)
+    n_keys = len([k for k in keys if k in shown.columns])
     styler = (
         shown.style.hide(axis="index").format(escape="latex").format_index(escape="latex", axis="columns")
     )
-    tabular = styler.to_latex(hrules=True, column_format="l" * n_keys + "r" * (shown.shape[1] - n_keys))
+    # a floating table with a caption naming what every row shares (a standard document
+    # with \usepackage{booktabs} compiles it as it is)
+    caption = f"Scores: {_caption(constant)}" if constant else _title(record)
+    tabular = styler.to_latex(
+        hrules=True, column_format="l" * n_keys + "r" * (shown.shape[1] - n_keys),
+        caption=_latex_text(" ".join(caption.split())), position_float="centering",
+    )
+    # "<" and ">" print as other glyphs in LaTeX's default font encoding ("< 0.001")
+    tabular = tabular.replace("<", r"\textless{}").replace(">", r"\textgreater{}")
     comment = [f"% {' '.join(_title(record).split())}", "% needs \\usepackage{booktabs}"]
     units = _units_table(table)
     for _, row in units.iterrows():
@@ -436,6 +530,19 @@ def _latex_bytes(table: pd.DataFrame, record: Mapping[str, Any] | None) -> bytes
         # A line break in a value would end the comment and turn the rest into LaTeX.
         comment.append(f"%   {key}: {' '.join(value.splitlines())}")
     return ("\n".join(comment) + "\n" + tabular).encode("utf-8")
+
+
+#: LaTeX's special characters (Lamport, "LaTeX", 2nd ed., sec. 2.2.1 and C.2) as text.
+_LATEX_SPECIAL = {
+    "\\": r"\textbackslash{}", "&": r"\&", "%": r"\%", "$": r"\$", "#": r"\#", "_": r"\_",
+    "{": r"\{", "}": r"\}", "~": r"\textasciitilde{}", "^": r"\textasciicircum{}",
+}
+
+
+def _latex_text(text: str) -> str:
+    """Text with LaTeX's special characters escaped, for the caption (pandas escapes the
+    cells itself but offers no function for other text)."""
+    return "".join(_LATEX_SPECIAL.get(c, c) for c in text)
 
 
 _HTML = jinja2.Environment(autoescape=True).from_string(
@@ -548,6 +655,11 @@ def table_bytes(tidy: pd.DataFrame, fmt: str, *, provenance: Mapping[str, Any] |
     return _html_bytes(table, provenance)
 
 
+def provenance_bytes(provenance: Mapping[str, Any] | None) -> bytes:
+    """The provenance record as the JSON file written beside a CSV table (UTF-8)."""
+    return (_json_text(dict(provenance or {})) + "\n").encode("utf-8")
+
+
 def sidecar_path(path: str | os.PathLike[str]) -> Path:
     """Where :func:`write_table` puts the provenance of a CSV file: ``<name>.provenance.json``."""
     path = Path(path)
@@ -591,8 +703,7 @@ def write_table(
     data = table_bytes(tidy, key, provenance=provenance)
     writes = [(path, _bytes_writer(data))]
     if key == "csv":
-        sidecar = (_json_text(dict(provenance or {})) + "\n").encode("utf-8")
-        writes.append((sidecar_path(path), _bytes_writer(sidecar)))
+        writes.append((sidecar_path(path), _bytes_writer(provenance_bytes(provenance))))
     _atomic_write(writes)
     return path
 

@@ -115,17 +115,31 @@ def close_to_shown(shown: str, value: float, metric: str) -> bool:
     """Whether ``shown`` is ``value`` rounded for reading (NaN shown as a dash)."""
     if np.isnan(value):
         return shown in {"–", "--"}
-    # 4 significant digits -> relative error at most half a unit in the 4th digit;
-    # 3 decimals -> absolute error at most 5e-4 (common practice for rounding).
+    # p-values: three decimals, "< 0.001" below (common practice in reporting p-values;
+    # "\textless{}" is LaTeX's text "<")
     if metric.endswith("pvalue"):
+        if value < 0.001:
+            return shown.replace("\\textless{}", "<") == "< 0.001"
         return abs(float(shown) - value) <= 5e-4 + 1e-12
-    return abs(float(shown) - value) <= 5e-4 * abs(value) * (1 + 1e-9)
+    # rounding to the shown digits: an error of at most half a unit in the last one
+    # (common practice for rounding)
+    mantissa, _, exponent = shown.partition("e")
+    decimals = len(mantissa.partition(".")[2])
+    unit = 10.0 ** (int(exponent or 0) - decimals)
+    return abs(float(shown) - value) <= 0.5 * unit * (1 + 1e-9) + 1e-300
+
+
+def shown_decimals(cells: list[str]) -> set[tuple[int, bool]]:
+    """(decimals, scientific) of every number in a column (dashes and "< 0.001" left out)."""
+    numbers = [c for c in cells if c not in {"–", "--"} and "0.001" not in c]
+    return {(len(c.partition("e")[0].partition(".")[2]), "e" in c) for c in numbers}
 
 
 def lookup(tidy: pd.DataFrame, row: pd.Series, metric: str) -> float:
     hit = tidy
     for key in KEYS:
-        hit = hit[hit[key] == row[key]]
+        if key in row:  # a compact table leaves out the columns with one value
+            hit = hit[hit[key] == row[key]]
     (value,) = hit.loc[hit["metric"] == metric, "value"]
     return value
 
@@ -260,13 +274,17 @@ def test_markdown_shows_the_wide_table_then_the_provenance(
     table_text, _, after = text.partition("## Units")
     lines = [line for line in table_text.splitlines() if line.startswith("|")]
     header, rule, *body = markdown_rows("\n".join(lines))
-    assert header == KEYS + CONTRACT_METRICS
+    # reference, variable and period hold one value: said once above the table
+    assert header == ["model", "level", "region", "season"] + CONTRACT_METRICS
+    assert "For every row: reference ref_obs; variable tas; period 1991-2020." in table_text
     assert all(set(cell) <= set(":-") for cell in rule)  # GitHub-flavoured pipe-table rule
     assert len(body) == 8
     for cells in body:
-        row = pd.Series(dict(zip(header, cells, strict=True)))
+        row = pd.Series(dict(zip(header, [html.unescape(c) for c in cells], strict=True)))
         for metric in CONTRACT_METRICS:
             assert close_to_shown(row[metric], lookup(tidy, row, metric), metric), (metric, row[metric])
+    for number, metric in enumerate(CONTRACT_METRICS, start=4):
+        assert len(shown_decimals([cells[number] for cells in body])) <= 1, metric  # one precision per column
     provenance_text = after.partition("## Provenance")[2]
     assert record["created"] in provenance_text
     assert record["inputs"][0]["path"] in provenance_text
@@ -281,23 +299,29 @@ def test_latex_is_an_escaped_booktabs_tabular_with_provenance_comments(
     target = tmp_path / "scores.tex"
     export.write_table(tidy, target, provenance=record)
     lines = target.read_text(encoding="utf-8").splitlines()
-    start = lines.index(next(line for line in lines if line.startswith("\\begin{tabular}")))
-    assert all(line.startswith("%") for line in lines[:start])  # provenance only as comments
-    comments = "\n".join(lines[:start])
+    table = lines.index("\\begin{table}")
+    assert all(line.startswith("%") for line in lines[:table])  # provenance only as comments
+    comments = "\n".join(lines[:table])
     assert record["created"] in comments and "line one line two" in comments
-    body = lines[start:]
+    # a float with a caption naming the columns that hold one value (LaTeX's table environment)
+    assert lines[table + 1] == "\\centering"
+    assert lines[table + 2] == "\\caption{Scores: reference ref\\_obs; variable tas; period 1991-2020}"
+    assert lines[-1] == "\\end{table}"
+    start = lines.index(next(line for line in lines if line.startswith("\\begin{tabular}")))
+    body = lines[start:-1]
     assert body[1] == "\\toprule" and body[-2] == "\\bottomrule" and body[-1] == "\\end{tabular}"
     mid = body.index("\\midrule")
     rows = body[mid + 1 : -2]
     assert len(rows) == 8
+    columns = ["model", "level", "region", "season"] + CONTRACT_METRICS
     for line in body[2:mid] + rows:
-        assert line.endswith("\\\\") and line.count("&") == len(KEYS) + len(CONTRACT_METRICS) - 1
+        assert line.endswith("\\\\") and line.count("&") == len(columns) - 1
         # LaTeX special characters (Lamport, "LaTeX", 2nd ed., sec. 2.2.1) only escaped
         assert not re.search(r"(?<!\\)[_%&#$]", line.replace(" & ", " ").removesuffix("\\\\"))
-    assert "run\\_a" in rows[0] and "ref\\_obs" in rows[0] and "std\\_ratio" in body[2]
+    assert "run\\_a" in rows[0] and "std\\_ratio" in body[2]
     for line in rows:
         cells = [c.strip().replace("\\_", "_") for c in line.removesuffix("\\\\").split("&")]
-        row = pd.Series(dict(zip(KEYS + CONTRACT_METRICS, cells, strict=True)))
+        row = pd.Series(dict(zip(columns, cells, strict=True)))
         for metric in CONTRACT_METRICS:
             assert close_to_shown(row[metric], lookup(tidy, row, metric), metric)
 
@@ -628,3 +652,38 @@ def _gridscore() -> str:
 
     exe = Path(sys.executable).with_name("gridscore")
     return str(exe) if exe.exists() else (shutil.which("gridscore") or "gridscore")
+
+
+def test_report_numbers_one_precision_per_column_p_values_floored_excel_formats_full_values(
+    tidy: pd.DataFrame, record: dict, tmp_path: Path
+) -> None:
+    import openpyxl
+
+    table = tidy[tidy["region"] == "global"].copy()
+    table.loc[table["metric"] == "bias", "value"] = [283.14, 284.0, 283.96, 1.5]  # "284" beside "283.1" before
+    table.loc[table["metric"] == "trend_pvalue", "value"] = [2e-7, 0.0004, 0.049, 0.5]
+    export.write_table(table, tmp_path / "scores.md", provenance=record)
+    text = (tmp_path / "scores.md").read_text(encoding="utf-8")
+    lines = [line for line in text.partition("## Units")[0].splitlines() if line.startswith("|")]
+    header, _, *body = markdown_rows("\n".join(lines))
+    bias = [cells[header.index("bias")] for cells in body]
+    pvalues = [html.unescape(cells[header.index("trend_pvalue")]) for cells in body]
+    # four significant digits of the column's largest value, the same decimals for all
+    assert bias == ["283.1", "284.0", "284.0", "1.5"]
+    assert pvalues == ["< 0.001", "< 0.001", "0.049", "0.500"]
+
+    export.write_table(table, tmp_path / "scores.xlsx", provenance=record)
+    book = openpyxl.load_workbook(tmp_path / "scores.xlsx")
+    wide = book["wide"]
+    names = [c.value for c in wide[1]]
+    column = names.index("bias") + 1
+    cells = [wide.cell(row=r, column=column) for r in range(2, 2 + len(body))]
+    assert {c.number_format for c in cells} == {"0.0"}
+    # the cell keeps the value itself (Excel shows it rounded by the format only)
+    assert [c.value for c in cells] == [283.14, 284.0, 283.96, 1.5]
+    p_cells = [wide.cell(row=r, column=names.index("trend_pvalue") + 1) for r in range(2, 2 + len(body))]
+    assert {c.number_format for c in p_cells} == {'[<0.001]"< 0.001";0.000'}  # Excel conditional format section
+    assert p_cells[0].value == 2e-7
+    tidy_sheet = book["scores"]
+    formats = {tidy_sheet.cell(row=r, column=9).number_format for r in range(2, tidy_sheet.max_row + 1)}
+    assert "General" not in formats

@@ -16,7 +16,7 @@ import pandas as pd
 import panel as pn
 from bokeh.models.widgets.tables import NumberFormatter
 
-from evaluation.export import METRIC_ORDER, table_bytes, wide_table
+from evaluation.export import METRIC_ORDER, provenance_bytes, sidecar_path, table_bytes, wide_table
 from evaluation.metrics import METRICS
 from evaluation.regions import parse_region
 from evaluation.uncertainty import RULE, run_pairs, tied_with
@@ -24,7 +24,7 @@ from evaluation.uncertainty import RULE, run_pairs, tied_with
 from ..state import Request
 from .base import ResultView, safe_filename, text_html, text_tooltip
 
-__all__ = ["ScoresView", "best_rows", "number_format", "within_best"]
+__all__ = ["ScoresView", "best_rows", "number_format", "provenance_download", "within_best"]
 
 #: Table downloads offered: exporter format -> button label.
 DOWNLOADS = {"csv": "CSV", "xlsx": "Excel", "md": "Markdown", "tex": "LaTeX"}
@@ -249,5 +249,22 @@ class ScoresView(ResultView):
                     css_classes=[f"gs-download-{fmt}"],
                 )
             )
+        # the CSV's provenance as the command line writes it beside its CSV (same name, same content)
+        buttons.append(provenance_download(record, f"{base}.csv"))
         note = pn.pane.HTML('<span class="gs-hint">Download the table:</span>', margin=(12, 4, 0, 10))
         return pn.Row(note, *buttons)
+
+
+def provenance_download(record: dict, csv_name: str) -> pn.widgets.FileDownload:
+    """The provenance of a CSV download, named and written as ``gridscore score`` writes it
+    beside a CSV file (``<name>.provenance.json``)."""
+    return pn.widgets.FileDownload(
+        callback=lambda: io.BytesIO(provenance_bytes(record)),
+        filename=sidecar_path(csv_name).name,
+        label="Provenance",
+        color="light",
+        width=120,
+        height=34,
+        description=text_tooltip("Download the provenance of the CSV table (JSON: files, software, choices)"),
+        css_classes=["gs-download-provenance"],
+    )

@@ -6,6 +6,7 @@ gridscore's own ``check`` accepts.
 
 from __future__ import annotations
 
+import io
 import subprocess
 import sys
 import tempfile
@@ -70,3 +71,38 @@ def cftime_years(nc, time) -> tuple[int, int]:
 
     lo, hi = cftime.num2date(nc.variables[time.climatology][0], time.units, time.calendar)
     return lo.year, hi.year
+
+
+def test_the_score_csv_comes_with_the_provenance_the_command_line_writes(browser, served, sample_manifest, tmp_path) -> None:
+    import json
+
+    import pandas as pd
+
+    session = open_dashboard(browser, served + "/?variable=tas&tab=scores&region=tropics&season=MAM")
+    page = session.page
+    wait_for_view(page, "scores", what=".tabulator-row")
+    request = {k: v[0] for k, v in parse_qs(urlparse(page.url).query).items()}
+    csv_name, csv = download(page, ".gs-download-csv")
+    name, data = download(page, ".gs-download-provenance")
+    assert name == csv_name.removesuffix(".csv") + ".provenance.json"  # the name `score --output x.csv` gives
+    dashboard = json.loads(data)
+    table = pd.read_csv(io.BytesIO(csv))
+    assert set(table["period"]) == {dashboard["period"]} == {request["period"]}
+
+    # the command line on the same reference, variable, region, season and period
+    sample = sample_manifest.parent
+    runs = request["models"].split(",")
+    args = ["score", "--reference", f"tessera-obs={sample}/references/tessera-obs/*.nc", "--variable", "tas",
+            "--region", "tropics", "--season", "MAM", "--period", request["period"], "--output", str(tmp_path / "s.csv")]
+    for run in runs:
+        args += ["--model", f"{run}={sample}/runs/{run}/*.nc"]
+    exe = Path(sys.executable).with_name("gridscore")
+    done = subprocess.run([str(exe), *args], capture_output=True, text=True, timeout=600)
+    assert done.returncode == 0, done.stderr
+    cli = json.loads((tmp_path / "s.provenance.json").read_text())
+    assert set(dashboard) >= set(cli) - {"notes"}, set(cli) - set(dashboard)
+    for key in ("variable", "period", "seasons", "regions", "regrid", "target_grid"):
+        assert dashboard[key] == cli[key], key
+    assert {i["path"] for i in cli["inputs"]} <= {i["path"] for i in dashboard["inputs"]}
+    assert session.errors() == []
+    session.close()
