@@ -77,6 +77,24 @@ DEFAULT_RUNS = 3
 _ECHO = 40
 
 
+#: What a fresh session shows first when the collection holds it: near-surface air
+#: temperature, by its usual name, else by its CF standard name on a single level.
+PREFERRED_VARIABLE = ("tas", "air_temperature")
+
+
+def first_variable(options: Options, variables: Sequence[str]) -> str:
+    """The variable a fresh session opens on (see :data:`PREFERRED_VARIABLE`), else the first."""
+    name, standard_name = PREFERRED_VARIABLE
+    if name in variables:
+        return name
+    info = getattr(options, "variable_info", None)
+    for variable in variables:
+        held = info(variable) if info is not None else None
+        if held is not None and held.standard_name == standard_name and not options.levels(variable):
+            return variable
+    return variables[0]
+
+
 class Options(Protocol):
     """What the selection needs to know about the collection being served."""
 
@@ -220,13 +238,13 @@ class Selection(param.Parameterized):
         self.param.tab.default = self.param.tab.objects[0]
         self.tab = self.param.tab.default
         self.param.variable.objects = variables
-        self.param.variable.default = variables[0]
+        self.param.variable.default = first_variable(options, variables)
         # the collection's own choice (manifest target_grid) first; test doubles may offer none
         grids = list(dict.fromkeys(getattr(options, "target_grids", lambda: ["reference"])()))
         self.param.target_grid.objects = grids
         self.param.target_grid.default = grids[0]
         self.target_grid = grids[0]
-        self._set_variable(variables[0])
+        self._set_variable(self.param.variable.default)
         self.param.watch(self._variable_changed, ["variable"])
         self.param.watch(self._span_source_changed, ["reference"])
         self.param.watch(self._choice_changed, ["models", "region", "season", "period", "field", "level", "target_grid"])
@@ -244,8 +262,11 @@ class Selection(param.Parameterized):
                 self.reference = references[0]
             self.param.models.objects = models
             self.param.models.default = models[:DEFAULT_RUNS]
+            # the runs ticked before that hold this variable, topped up with its other runs
+            # to the default count (a variable that few runs hold shows all of them)
             kept = [m for m in models if m in (self.models or [])]
-            self.models = kept or models[:DEFAULT_RUNS]
+            extra = [m for m in models if m not in kept][: max(0, DEFAULT_RUNS - len(kept))]
+            self.models = [m for m in models if m in kept or m in extra]
             levels = self._options.levels(variable) or [""]
             self.param.level.objects = levels
             self.param.level.default = default_level(levels)

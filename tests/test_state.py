@@ -396,3 +396,26 @@ def test_common_grid_from_a_link_is_checked_against_the_options(results: Results
     sel.apply_query({"target_grid": "<b>0.7x0.7</b>"})
     assert sel.target_grid == "reference"
     assert sel.notices and "is not offered" in sel.notices[-1]
+
+
+# ---------------------------------------------------------------------------- first choices
+def test_a_fresh_session_opens_on_near_surface_air_temperature(results: Results) -> None:
+    assert "tas" in results.variables()  # the demo holds it (else the check proves nothing)
+    selection = settled(results)
+    assert selection.variable == "tas" and selection.request.variable == "tas"
+    assert selection.defaults()["variable"] == "tas"
+
+
+def test_a_link_to_a_variable_selects_the_runs_that_hold_it(results: Results) -> None:
+    from app.state import DEFAULT_RUNS
+
+    for variable in results.variables():
+        holders = results.models(variable)
+        selection = settled(results, {"variable": variable})
+        # every run that holds the variable, up to the default count, in the collection's order
+        assert list(selection.models) == holders[:DEFAULT_RUNS], variable
+        assert set(selection.models) <= set(holders)
+    few = [v for v in results.variables() if len(results.models(v)) <= DEFAULT_RUNS]
+    assert few  # a variable held by few runs shows all of them
+    for variable in few:
+        assert list(settled(results, {"variable": variable}).models) == results.models(variable)

@@ -333,9 +333,11 @@ class Results:
 
         def job() -> None:
             try:
+                from app.state import first_variable
+
                 variables = self.variables()
                 if variables:
-                    variable = variables[0]
+                    variable = first_variable(self, variables)  # what a fresh session opens on
                     self.comparison(self.references(variable)[0], variable).prepare(["ANN"])
             except InputError:
                 pass

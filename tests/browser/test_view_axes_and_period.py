@@ -1,4 +1,5 @@
-"""Each view keeps its own axes, and the period control always shows the period used.
+"""Each view keeps its own axes, the period control always shows the period used, and the
+runs and variable a session opens on follow the collection.
 
 Run in headless Chromium on the sample collection.  The plotted ranges are read from the
 page's Bokeh document (every plot model with its title and its x/y ranges), so the test
@@ -197,5 +198,22 @@ def test_the_period_slider_shows_the_period_used_after_a_drag(browser, served) -
     page.mouse.up()
     assert_one_period(page)
     assert settled_query(page)["period"] != before
+    assert session.errors() == []
+    session.close()
+
+
+# ---------------------------------------------------------------------------- first choices
+def test_a_fresh_session_opens_on_air_temperature_and_a_variable_link_ticks_its_runs(browser, served) -> None:
+    session = open_dashboard(browser, served + "/")
+    wait_for_view(session.page, "maps")
+    wait_for_query(session.page, variable="tas")
+    session.close()
+    # rlut: larkspur-2, pumice-ctl and cobble-b hold it (cobble-b is the run with the drift)
+    session = open_dashboard(browser, served + "/?variable=rlut&tab=scores")
+    page = session.page
+    wait_for_view(page, "scores", what=".tabulator-row")
+    wait_for_query(page, variable="rlut", models="larkspur-2,pumice-ctl,cobble-b")
+    ticked = page.locator(".gs-models input[type=checkbox]")
+    assert [ticked.nth(i).is_checked() for i in range(ticked.count())] == [True, True, True]
     assert session.errors() == []
     session.close()
