@@ -184,10 +184,12 @@ def test_comparison_on_a_level_interpolates_each_source(pair) -> None:
     assert cmp.provenance()["level"] == "850 hPa"
 
 
-def test_score_table_cache_keeps_levels_apart(pair) -> None:
+def test_score_table_cache_keeps_levels_apart(pair, tmp_path: Path) -> None:
     from evaluation.cache import Cache
 
-    store = Cache(Path(os.environ["GRIDSCORE_CACHE"]) / "levels-cache")
+    # a folder of its own: a cache refuses a folder holding anything it did not make,
+    # such as another cache inside the session's cache folder
+    store = Cache(tmp_path / "levels-cache")
     ref, run = Source("ref", "reference", [str(pair["ref"])]), Source("run", "model", [str(pair["run"])])
     low, _ = score_table(reference=ref, models=[run], variable="ta", level="850hPa", cache=store)
     high, _ = score_table(reference=ref, models=[run], variable="ta", level="500hPa", cache=store)
