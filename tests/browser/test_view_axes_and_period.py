@@ -217,3 +217,40 @@ def test_a_fresh_session_opens_on_air_temperature_and_a_variable_link_ticks_its_
     assert [ticked.nth(i).is_checked() for i in range(ticked.count())] == [True, True, True]
     assert session.errors() == []
     session.close()
+
+
+# ---------------------------------------------------------------------------- energy budget
+def budget_rows(page) -> list[list[str]]:
+    rows = page.locator(".gs-view-budget .gs-budget-table .tabulator-row")
+    cells = ".tabulator-cell:not([tabulator-field='_index'])"  # Panel keeps a hidden index column
+    return [[c.strip() for c in rows.nth(i).locator(cells).all_text_contents()] for i in range(rows.count())]
+
+
+def test_the_energy_budget_lists_every_source_whatever_the_variable(browser, served, screenshots) -> None:
+    tables = []
+    for variable in ("pr", "tas"):
+        session = open_dashboard(browser, served + f"/?variable={variable}&tab=budget")
+        page = session.page
+        wait_for_view(page, "budget", what=".gs-budget-table .tabulator-row")
+        rows = budget_rows(page)
+        tables.append(rows)
+        # the sample: tessera-obs (reference) and four runs hold the four fields; halyard-rean
+        # (a reference) and tidewell-3 lack the radiation fields
+        assert [r[0] for r in rows] == ["tessera-obs", "halyard-rean", "larkspur-2", "pumice-ctl", "tidewell-3", "cobble-b"]
+        by_name = {r[0]: r for r in rows}
+        assert by_name["tessera-obs"][1] == "reference"
+        reasons = page.locator(".gs-budget-reasons").text_content()
+        for name in ("halyard-rean", "tidewell-3"):
+            assert f"{name}: no rsdt, rsut, rlut in its files" in reasons, reasons
+            assert set(by_name[name][2:]) <= {"–", ""}, by_name[name]
+        for name in ("tessera-obs", "larkspur-2", "pumice-ctl", "cobble-b"):
+            assert "–" not in by_name[name] and f"{name}:" not in reasons, by_name[name]
+        # no cell of the table cuts its text
+        cut = page.locator(".gs-view-budget .tabulator-cell").evaluate_all(
+            "cells => cells.filter(c => c.textContent.trim() && c.scrollWidth > c.clientWidth + 1).map(c => c.textContent)"
+        )
+        assert cut == [], cut
+        page.screenshot(path=str(screenshots / f"budget-{variable}.png"), full_page=True)
+        assert session.errors() == []
+        session.close()
+    assert tables[0] == tables[1]
