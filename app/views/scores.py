@@ -14,7 +14,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 import panel as pn
-from bokeh.models.widgets.tables import NumberFormatter
+from bokeh.models.widgets.tables import HTMLTemplateFormatter, NumberFormatter
 
 from evaluation.export import METRIC_ORDER, provenance_bytes, sidecar_path, table_bytes, wide_table
 from evaluation.metrics import METRICS
@@ -82,6 +82,14 @@ def number_format(values: pd.Series, metric: str) -> str:
     return "0,0" if decimals == 0 else "0,0." + "0" * decimals
 
 
+#: p-values as the report tables write them: three decimals, "< 0.001" below (a p-value is
+#: never exactly zero); the cell keeps the number, so sorting stays numeric.
+P_VALUE_FORMAT = HTMLTemplateFormatter(
+    template='<div style="text-align:right"><%= (value == null || isNaN(value)) ? "–" : '
+    '(value < 0.001 ? "&lt; 0.001" : Number(value).toFixed(3)) %></div>'
+)
+
+
 #: The table is shown in two parts so that every column stays readable without scrolling.
 GROUPS: dict[str, tuple[str, ...]] = {
     "Climatology": ("mean", "ref_mean", "bias", "rmse", "crmse", "corr", "std_ratio", "taylor_skill", "rel_error"),
@@ -121,7 +129,8 @@ def score_widget(shown: pd.DataFrame, units: dict[str, str], within: dict[str, l
         unit = units[m]
         # Tabulator writes titles as HTML; units come from files, so escape them.
         titles[m] = text_html(label) + (f"<br><small>{text_html(unit)}</small>" if unit and unit != "1" else "")
-        formatters[m] = NumberFormatter(format=number_format(shown[m], m), nan_format="–", text_align="right")
+        formatters[m] = (P_VALUE_FORMAT if m.endswith("pvalue")
+                         else NumberFormatter(format=number_format(shown[m], m), nan_format="–", text_align="right"))
     tooltips = {m: METRICS[m].description for m in metrics if m in METRICS}
     if within:
         formatters[WITHIN_COLUMN] = {"type": "textarea"}  # wraps the list of metric names

@@ -106,3 +106,15 @@ def test_the_score_csv_comes_with_the_provenance_the_command_line_writes(browser
     assert {i["path"] for i in cli["inputs"]} <= {i["path"] for i in dashboard["inputs"]}
     assert session.errors() == []
     session.close()
+
+
+def test_p_values_below_a_thousandth_read_as_such_in_the_score_table(browser, served) -> None:
+    # the sample's global tas trends are far from zero (0.19 K/decade over 30 years): the
+    # t-test's p-value is far below 0.001 (Santer et al. 2000 with the sample's small noise)
+    session = open_dashboard(browser, served + "/?variable=tas&tab=scores")
+    page = session.page
+    wait_for_view(page, "scores", what=".tabulator-row")
+    text = " ".join(page.locator(".gs-view-scores .tabulator-row").all_text_contents())
+    assert "< 0.001" in text and "0.000" not in text, text
+    assert session.errors() == []
+    session.close()
