@@ -232,7 +232,7 @@ def download(page, css: str, *, nth: int = 0):
 
 
 def test_table_downloads_are_valid_files(browser, served) -> None:
-    url, _ = served
+    url, results = served
     session = open_dashboard(browser, url + "/?tab=scores&region=tropics&season=MAM")
     page = session.page
     wait_for_view(page, "scores", what=".tabulator-row")
@@ -244,7 +244,9 @@ def test_table_downloads_are_valid_files(browser, served) -> None:
     assert name.endswith(".csv")
     table = pd.read_csv(io.BytesIO(data))
     assert list(table.columns) == list(TIDY_COLUMNS)  # the tidy contract (DESIGN.md)
-    assert set(table["model"]) == set(runs)
+    # the selected runs, and the other references scored against the selected one
+    others = set(results.references(request["variable"])) - {request["reference"]}
+    assert set(runs) <= set(table["model"]) <= set(runs) | others
     assert set(table["region"]) == {"tropics"} and set(table["season"]) == {"MAM"}
     assert set(table["period"]) == {request["period"]}
 
@@ -253,7 +255,7 @@ def test_table_downloads_are_valid_files(browser, served) -> None:
     sheets = pd.read_excel(io.BytesIO(data), sheet_name=None)
     assert {"scores", "provenance"} <= set(sheets)
     # the same numbers as the CSV (openpyxl round trip of the same table)
-    merged = sheets["scores"].merge(table, on=["model", "metric"], suffixes=("_x", "_c"))
+    merged = sheets["scores"].merge(table, on=["model", "reference", "metric"], suffixes=("_x", "_c"))
     np.testing.assert_allclose(merged["value_x"], merged["value_c"], rtol=1e-12, equal_nan=True)
 
     name, data = download(page, ".gs-download-md")
