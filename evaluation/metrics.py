@@ -114,8 +114,11 @@ def taylor_skill(corr: float, std_ratio: float, *, r0: float = 1.0) -> float:
     """
     if not np.isfinite(std_ratio) or std_ratio <= 0 or not np.isfinite(corr):
         return float("nan")
-    # 1 + R is never negative; rounding can put a correlation of -1 a hair below it
-    return float(4.0 * max(1.0 + corr, 0.0) / ((std_ratio + 1.0 / std_ratio) ** 2 * (1.0 + r0)))
+    # (σ̂ + 1/σ̂)² = (1 + s²)²/s² with s = min(σ̂, 1/σ̂) (the score is symmetric in σ̂ and 1/σ̂):
+    # s ≤ 1 cannot overflow, and a vanishing s gives the limit 0.  1 + R is never negative;
+    # rounding can put a correlation of -1 a hair below it.
+    s = min(std_ratio, 1.0 / std_ratio)
+    return float(4.0 * max(1.0 + corr, 0.0) * s * s / ((1.0 + s * s) ** 2 * (1.0 + r0)))
 
 
 def pattern_stats(

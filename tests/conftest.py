@@ -77,4 +77,8 @@ def pytest_collection_modifyitems(config, items):
     """Run the browser tests last: Playwright's sync API keeps an asyncio loop running in
     the main thread for the rest of the session, which tests that drive Panel code
     directly (asyncio.run) cannot share."""
-    items.sort(key=lambda item: "browser" in item.nodeid.split("::")[0].split("/"))
+    def drives_a_browser(item) -> bool:
+        # tests/browser/ and any test marked `browser` elsewhere (tests/hardening/ has some)
+        return "browser" in item.nodeid.split("::")[0].split("/") or item.get_closest_marker("browser") is not None
+
+    items.sort(key=drives_a_browser)

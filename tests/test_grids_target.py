@@ -62,6 +62,13 @@ def _broken(tmp_path, change) -> str:
     return str(tmp_path / "bad.nc")
 
 
+def _without_bounds(ds):
+    ds = ds.drop_vars([v for v in ("lat_bnds", "lon_bnds") if v in ds.variables])
+    for name in ("lat", "lon"):
+        ds[name].attrs.pop("bounds", None)
+    return ds
+
+
 def _set_lat(values):
     def change(ds):
         return ds.assign_coords(lat=("lat", values(ds["lat"].values.copy()), ds["lat"].attrs))
@@ -75,12 +82,22 @@ def _set_lat(values):
         (_set_lat(lambda v: v * 2.0), "beyond ±90°"),
         (_set_lat(lambda v: np.where(np.arange(v.size) == 3, np.nan, v)), "missing"),
         (_set_lat(lambda v: np.where(np.arange(v.size) == 3, v[2], v)), "repeats a value"),
-        (lambda ds: ds.isel(lat=[4], lon=[0]), "single cell"),
+        # one cell whose extent the file does not give (no bounds): any inferred extent is a guess
+        (lambda ds: _without_bounds(ds.isel(lat=[4], lon=[0])), "single cell"),
     ],
 )
 def test_grids_that_would_be_scored_wrongly_are_refused(tmp_path, change, message):
     with pytest.raises(InputError, match=message):
         io.open_source(_broken(tmp_path, change))
+
+
+def test_a_single_cell_with_bounds_is_a_box_mean(tmp_path):
+    # a series of box means (an index region) with its extent in CF bounds: the area is known
+    # exactly (R² Δsin φ Δλ, the area of a latitude-longitude box), so it is read, not refused
+    ds = io.open_source(_broken(tmp_path, lambda ds: ds.isel(lat=[4], lon=[0])))
+    lat_b, lon_b = ds["lat_bnds"].values[0], ds["lon_bnds"].values[0]
+    want = 6_371_000.0**2 * (np.sin(np.deg2rad(lat_b[1])) - np.sin(np.deg2rad(lat_b[0]))) * np.deg2rad(lon_b[1] - lon_b[0])
+    assert float(ds["cell_area"].values.ravel()[0]) == pytest.approx(want, rel=1e-12)
 
 
 def test_a_cyclic_longitude_column_is_refused(tmp_path):

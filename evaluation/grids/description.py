@@ -158,13 +158,25 @@ def _nothing_found(ds: xr.Dataset, where) -> InputError:
     )
 
 
+def _has_bounds(ds: xr.Dataset, name: str | None) -> bool:
+    """Whether coordinate ``name`` names a bounds variable of two values per cell that the file holds."""
+    if name is None or name not in ds.variables:
+        return False
+    bounds = ds[name].attrs.get("bounds", ds[name].encoding.get("bounds"))
+    return bounds is not None and str(bounds) in ds.variables and ds[str(bounds)].shape[-1] == 2
+
+
 def _check_values(ds: xr.Dataset, desc: GridDescription, where) -> None:
     """Refuse grids whose coordinates would be scored silently wrong."""
-    if desc.cells < 2:
+    if desc.cells < 2 and not (desc.kind == "regular" and _has_bounds(ds, desc.lat) and _has_bounds(ds, desc.lon)):
+        # one cell without bounds has no known extent: an inferred one would weigh it wrongly
+        # against the reference.  With CF bounds (a box-mean series such as a Nino index)
+        # its area is exact and the means, biases and trends are right; pattern statistics
+        # of one cell are undefined and come out NaN.
         raise InputError(
-            f"the grid has a single cell ({desc.summary()}); area means and patterns need at least two",
+            f"the grid has a single cell ({desc.summary()}) and its extent is not in the file",
             file=where,
-            remedy="give the field on its full grid (a point value or a global mean cannot be scored as a map)",
+            remedy="give the cell's latitude and longitude CF bounds (e.g. lat_bnds, lon_bnds), or the field on its full grid",
         )
     if desc.kind == "rotated":
         return  # true latitudes come from the rotation; rotated.find checks the rotated axes
