@@ -600,7 +600,14 @@ def _check_time(ds: xr.Dataset, where) -> None:
     """Refuse a decoded time axis that is not increasing, or monthly data with two steps in a month."""
     t = ds["time"]
     if t.size and not hasattr(t.values[0], "calendar"):
-        raise InputError("the time axis did not decode to dates", file=where, remedy="give the time variable CF units such as 'days since 1850-01-01'")
+        units = t.attrs.get("units", t.encoding.get("units"))
+        cause = "has no units attribute" if units is None else f"has units '{units}', which are not CF time units"
+        raise InputError(
+            f"the time coordinate {cause}, so its values cannot be placed in time",
+            file=where,
+            remedy="set time:units to 'UNIT since DATE' (e.g. 'days since 1850-01-01') and time:calendar; "
+            "for a climatology also give climatology bounds",
+        )
     if t.size > 1:
         values = t.values
         if any(b <= a for a, b in zip(values[:-1], values[1:], strict=True)):

@@ -218,3 +218,22 @@ def test_a_file_without_a_complete_year_names_the_months_it_has(tmp_path):
     report = check_file(str(path))
     assert report.can_score
     assert any("no complete year" in n and "JAN, FEB" in n for n in report.notes), report.notes
+
+
+def test_a_time_coordinate_without_units_is_named_as_the_cause(tmp_path):
+    # an analysis climatology written with a bare number as its time (no units): the cause is
+    # the missing units attribute, not the calendar (CF conventions 1.10 §4.4: time needs units)
+    import xarray as xr
+
+    ds = xr.Dataset(
+        {"tas": (("time", "lat", "lon"), np.full((1, 6, 12), 280.0), {"units": "K", "standard_name": "air_temperature"})},
+        coords={
+            "time": ("time", [120.0]),
+            "lat": ("lat", np.arange(-75.0, 90.0, 30.0), {"units": "degrees_north"}),
+            "lon": ("lon", np.arange(15.0, 360.0, 30.0), {"units": "degrees_east"}),
+        },
+    )
+    ds.to_netcdf(tmp_path / "bare.nc")
+    report = check_file(str(tmp_path / "bare.nc"))
+    assert not report.can_score
+    assert any("time coordinate has no units attribute" in p for p in report.problems), report.problems
