@@ -183,6 +183,7 @@ def test_printed_urls_can_be_opened(address: str, first: str) -> None:
         assert len(urls) == 2 and "::" not in urls[1] and "0.0.0.0" not in urls[1]
 
 
+@pytest.mark.browser  # Playwright: runs with the browser tests, last
 def test_a_loopback_address_other_than_localhost_is_served(collection: Path, browser) -> None:
     results = Results(Collection.from_path(collection))
     port = free_port()
@@ -201,6 +202,7 @@ def test_a_loopback_address_other_than_localhost_is_served(collection: Path, bro
 
 
 # ---------------------------------------------------------------------- nothing to compare
+@pytest.mark.browser  # Playwright: runs with the browser tests, last
 def test_a_reference_only_collection_shows_a_notice(tmp_path: Path, browser) -> None:
     write_run(tmp_path / "ref", offset=0.0)
     manifest = tmp_path / "manifest.toml"
