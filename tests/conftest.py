@@ -22,6 +22,19 @@ def _private_cache(tmp_path_factory):
         os.environ["GRIDSCORE_CACHE"] = old
 
 
+@pytest.fixture(autouse=True)
+def _quiet_dashboard_workers():
+    """After each test, wait for dashboard workers still reading files (a warm-up started by a
+    served app): netCDF-C/HDF5 is not thread-safe, and the next test's file writes must not
+    overlap those reads (a crash of the whole run was seen)."""
+    yield
+    import sys
+
+    results = sys.modules.get("app.views.results")
+    if results is not None:
+        results.wait_until_idle()
+
+
 @pytest.fixture
 def cf_file(tmp_path: Path) -> Callable[..., Path]:
     """Factory ``cf_file(name, **options)`` writing :func:`cf_dataset` into ``tmp_path``."""

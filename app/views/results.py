@@ -18,6 +18,7 @@ import asyncio
 import re
 import threading
 import time
+import weakref
 from collections import OrderedDict
 from collections.abc import Callable, Hashable, Sequence
 from concurrent.futures import Future, ThreadPoolExecutor
@@ -141,6 +142,25 @@ class MapField:
     quantity: str = "Value"  # what a value of the map is ("Mean", "Difference", "Trend")
 
 
+#: every worker thread pool of this process (see :func:`wait_until_idle`)
+_WORKERS: weakref.WeakSet[ThreadPoolExecutor] = weakref.WeakSet()
+
+
+def wait_until_idle(timeout: float = 120.0) -> None:
+    """Return once every worker has finished what was queued before the call.
+
+    Each worker has one thread and runs its queue in order, so a no-op submitted now
+    completes after everything already queued (a warm-up still reading files, say).
+    Used where the files' readers must be quiet: netCDF-C/HDF5 is not thread-safe
+    (pydata/xarray#4100), so a file written while a worker reads may crash the process.
+    """
+    for worker in list(_WORKERS):
+        try:
+            worker.submit(lambda: None).result(timeout=timeout)
+        except RuntimeError:  # shut down: nothing more runs on it
+            pass
+
+
 class Results:
     """Products of the core for one collection, computed once and kept in bounded caches.
 
@@ -165,6 +185,7 @@ class Results:
         self._comparisons = BoundedCache(max_items=max_comparisons)
         self._lock = threading.RLock()
         self._worker = ThreadPoolExecutor(max_workers=1, thread_name_prefix="gridscore-core")
+        _WORKERS.add(self._worker)
         #: sources whose files cannot be read: name -> problem (left out, and said so)
         self._unreadable: dict[str, str] = {}
         self._listing_lock = threading.Lock()
