@@ -22,6 +22,21 @@ def _private_cache(tmp_path_factory):
         os.environ["GRIDSCORE_CACHE"] = old
 
 
+@pytest.fixture(scope="session")
+def browser():
+    """One headless Chromium for the whole run (tests/browser and tests/hardening share it)."""
+    from browser.conftest import launch_browser
+
+    yield from launch_browser()
+
+
+@pytest.fixture(scope="session")
+def screenshots() -> Path:
+    from browser.conftest import screenshot_folder
+
+    return screenshot_folder()
+
+
 @pytest.fixture(autouse=True)
 def _quiet_dashboard_workers():
     """After each test, wait for dashboard workers still reading files (a warm-up started by a

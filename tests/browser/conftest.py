@@ -49,8 +49,13 @@ def _unavailable(reason: str) -> None:
     pytest.skip(reason)
 
 
-@pytest.fixture(scope="session")
-def browser() -> Iterator[Any]:
+def launch_browser() -> Iterator[Any]:
+    """Headless Debian Chromium through Playwright's sync API.
+
+    The ``browser`` fixture that yields it lives in tests/conftest.py, so that every folder
+    shares one Playwright instance: a second one started while the first is alive finds
+    its event loop running in the main thread and refuses to start.
+    """
     path = shutil.which("chromium")
     if path is None:
         _unavailable("no 'chromium' on the PATH (Debian: apt-get install chromium)")
@@ -64,8 +69,7 @@ def browser() -> Iterator[Any]:
         chromium.close()
 
 
-@pytest.fixture(scope="session")
-def screenshots() -> Path:
+def screenshot_folder() -> Path:
     SCREENSHOTS.mkdir(parents=True, exist_ok=True)
     print(f"\nscreenshots: {SCREENSHOTS}")
     return SCREENSHOTS
