@@ -65,19 +65,16 @@ def test_the_mapped_name_is_read(files):
     assert "variable_names" not in plain.provenance()
 
 
+def _score_args(files) -> list[str]:
+    """`score` of run-a against obs for tas: the command line the CLI tests below share."""
+    return ["score", "--reference", f"obs={files['ref']}", "--model", f"run-a={files['run']}", "--variable", "tas"]
+
+
 def test_cli_variable_in_with_odd_paths_and_the_cache(files, tmp_path):
     # the same files scored twice: once without, once with the mapping; the persistent
     # cache must not hand the first answer to the second request
     out1, out2 = tmp_path / "plain.json", tmp_path / "mapped.json"
-    base = [
-        "score",
-        "--reference",
-        f"obs={files['ref']}",
-        "--model",
-        f"run-a={files['run']}",
-        "--variable",
-        "tas",
-    ]
+    base = _score_args(files)
     assert main([*base, "--output", str(out1)]) == 0
     assert main([*base, "--variable-in", "run-a=TS", "--output", str(out2)]) == 0
 
@@ -98,37 +95,13 @@ def test_cli_variable_in_with_odd_paths_and_the_cache(files, tmp_path):
     [("nobody=TS", "no source 'nobody'"), ("run-a", "NAME=VARIABLE"), ("run-a=", "NAME=VARIABLE")],
 )
 def test_cli_variable_in_mistakes_exit_2(files, capsys, pair, needle):
-    code = main(
-        [
-            "score",
-            "--reference",
-            f"obs={files['ref']}",
-            "--model",
-            f"run-a={files['run']}",
-            "--variable",
-            "tas",
-            "--variable-in",
-            pair,
-        ]
-    )
+    code = main([*_score_args(files), "--variable-in", pair])
     assert code == 2
     assert needle in capsys.readouterr().err
 
 
 def test_cli_variable_in_absent_name_names_the_file(files, capsys):
-    code = main(
-        [
-            "score",
-            "--reference",
-            f"obs={files['ref']}",
-            "--model",
-            f"run-a={files['run']}",
-            "--variable",
-            "tas",
-            "--variable-in",
-            "run-a=TSX",
-        ]
-    )
+    code = main([*_score_args(files), "--variable-in", "run-a=TSX"])
     err = capsys.readouterr().err
     assert code == 2 and "TSX" in err and "run.nc" in err
 
