@@ -46,6 +46,7 @@ __all__ = [
     "number_style",
     "provenance",
     "provenance_bytes",
+    "provenance_for",
     "sidecar_path",
     "table_bytes",
     "wide_table",
@@ -147,6 +148,28 @@ def provenance(
     }
     record.update(extra or {})
     return record
+
+
+def provenance_for(record: Mapping[str, Any], sources: Iterable[str]) -> dict[str, Any]:
+    """The record of a table that holds only some of the sources of ``record``.
+
+    ``inputs`` keeps the files of ``sources``; the per-source entries (``remapping``,
+    ``variable_names``, ``omitted``) and ``references`` keep theirs.  Everything else
+    (software, choices, notes) is the same for every source and stays.  A dashboard table
+    of the ticked runs thereby lists the files its numbers come from, as ``gridscore
+    score`` does for the runs it was given.
+    """
+    keep = {str(s) for s in sources}
+    out = dict(record)
+    out["inputs"] = [dict(i) for i in record.get("inputs", []) if i.get("source") in keep]
+    for key in ("remapping", "variable_names"):
+        if isinstance(record.get(key), Mapping):
+            out[key] = {k: v for k, v in record[key].items() if k in keep}
+    if isinstance(record.get("omitted"), list):
+        out["omitted"] = [dict(o) for o in record["omitted"] if o.get("source") in keep]
+    if isinstance(record.get("references"), list):
+        out["references"] = [r for r in record["references"] if r in keep]
+    return out
 
 
 def _version(package: str) -> str:

@@ -40,6 +40,7 @@ __all__ = [
     "find_axis",
     "variables_in",
     "open_source",
+    "files_holding",
     "normalise",
     "get_variable",
     "FIXED_FIELDS",
@@ -324,6 +325,26 @@ def _files_with(paths: Sequence[str], variable: str) -> list[str]:
     return chosen
 
 
+def files_holding(paths: str | Iterable[str], variables: Sequence[str], *, source: str | None = None) -> list[str]:
+    """The files of ``paths`` that hold one of ``variables`` (by name or CF standard_name),
+    or, for a derived variable no file holds, the files of its inputs; sorted, no repeats.
+
+    These are the files :func:`open_source` opens for the variables (besides fixed fields).
+    """
+    files = expand_paths(paths, source=source)
+    wanted: list[str] = []
+    for v in variables:
+        holding = _files_with(files, v)
+        if not holding:
+            # a derived variable (net TOA flux, ...) needs the files of its inputs
+            from .derived import DERIVED
+
+            if v in DERIVED:
+                holding = [p for name in DERIVED[v].inputs for p in _files_with(files, name)]
+        wanted.extend(holding)
+    return sorted(set(wanted))
+
+
 def open_source(
     paths: str | Iterable[str],
     *,
@@ -356,16 +377,7 @@ def open_source(
     """
     files = expand_paths(paths, source=source)
     if variables:
-        wanted = []
-        for v in variables:
-            holding = _files_with(files, v)
-            if not holding:
-                # a derived variable (net TOA flux, ...) needs the files of its inputs
-                from .derived import DERIVED
-
-                if v in DERIVED:
-                    holding = [p for name in DERIVED[v].inputs for p in _files_with(files, name)]
-            wanted.extend(holding)
+        wanted = files_holding(files, variables, source=source)
         fixed = [p for p in files if any(m["has_time"] == "False" for m in _listing(p).values())]
         files_to_open = sorted(set(wanted) | set(fixed))
         if not wanted:

@@ -14,6 +14,7 @@ less.
 
 from __future__ import annotations
 
+import re
 import threading
 from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass, field
@@ -180,6 +181,11 @@ class Comparison:
         self.regrid_method = regrid
         self._lock = threading.RLock()
         self._land: dict[str, xr.DataArray] = {}
+        #: per source, the files read for the request (the variable's, a cell-area file its
+        #: cell_measures names); the primary's land-fraction file joins once a region uses it
+        self._used: dict[str, list[str]] = {}
+        self._land_file: list[str] = []  # the primary reference's land-fraction file(s), read lazily
+        self._land_read = False
         self._grids: dict[str, xr.Dataset] = {}
         self._cache = default_cache() if cache is True else (cache or None)
 
@@ -254,8 +260,17 @@ class Comparison:
             # name the files, not only the source: the message must say which file to fix
             files = io.expand_paths(src.paths, source=src.name)
             raise InputError(f"variable '{self.variable}' of '{src.name}' has no time axis", file=files, remedy="give monthly time series")
-        if "sftlf" in ds.data_vars or any(ds[v].attrs.get("standard_name") == "land_area_fraction" for v in ds.data_vars):
-            self._land[src.name] = _land_from(ds)
+        used = io.files_holding(src.paths, [stored_as, *inputs], source=src.name)
+        area = re.search(r"area:\s*(\S+)", str(da.attrs.get("cell_measures", "")))
+        if area and "cell_area" in da.coords:
+            used = sorted({*used, *io.files_holding(src.paths, [area.group(1)], source=src.name)})
+        self._used[src.name] = used
+        land = next((v for v in ds.data_vars if v == "sftlf" or ds[v].attrs.get("standard_name") == "land_area_fraction"), None)
+        if land is not None and src.name == self.reference.name:
+            # only the primary's land fraction shapes the land and ocean regions; it is read
+            # when a region needs it (see _reference_land), and only then named in the provenance
+            self._land[src.name] = ds[land]
+            self._land_file = io.files_holding(src.paths, [str(land)], source=src.name)
         return self._one_level(src, da)
 
     def _one_level(self, src: Source, da: xr.DataArray) -> xr.DataArray:
@@ -490,7 +505,14 @@ class Comparison:
     def _reference_land(self) -> xr.DataArray | None:
         """The reference files' own land fraction on the target grid, if they hold one."""
         land = self._land.get(self.reference.name)
-        if land is None or same_grid(land, self._target_grid):
+        if land is None:
+            return None
+        with self._lock:
+            if not self._land_read:
+                land = self._land[self.reference.name] = _land_from(land.to_dataset(name="sftlf"))
+                self._land_read = True
+            land = self._land[self.reference.name]
+        if same_grid(land, self._target_grid):
             return land
         method = "conservative" if self._grids[self.reference.name].attrs["grid_kind"] != "unstructured" else "nearest"
         key = f"on-target-{method}"
@@ -539,7 +561,7 @@ class Comparison:
 
     def _weights(self, region: str, mask: xr.DataArray) -> xr.DataArray:
         grid = self._target_grid
-        land = self._reference_land()
+        land = self._reference_land() if parse_region(region).surface else None
         frac = region_weights(region, grid, land=land)
         return grid["cell_area"] * frac * mask
 
@@ -839,7 +861,7 @@ class Comparison:
         self.prepare(seasons)
         grid = self._target_grid
         area = grid["cell_area"].values.ravel()
-        land = self._reference_land()
+        land = self._reference_land() if any(parse_region(r).surface for r in regions) else None
         fraction = {r: region_weights(r, grid, land=land).values.ravel() for r in regions}
         rows = []
         primary = self.reference.name
@@ -879,7 +901,13 @@ class Comparison:
         from .export import provenance
 
         every = [self.reference, *self.alternatives, *self.models]
-        srcs = [_Expanded(s.name, s.role, tuple(self._prepared[s.name].files)) for s in every]
+        surface = any(parse_region(r).surface for r in regions)
+        # the files read for this request: the variable's (and a cell-area file), and the
+        # primary's land fraction when a land or ocean region is scored; not every file of a source
+        srcs = [
+            _Expanded(s.name, s.role, tuple(sorted({*self._used[s.name], *(self._land_file if surface and s is self.reference else ())})))
+            for s in every
+        ]
         renamed = {
             s.name: "; ".join(f"{wanted} read from {stored}" for wanted, stored in s.names_in_files(self.variable).items())
             for s in every
@@ -899,6 +927,11 @@ class Comparison:
             else f"{grid.attrs['grid_kind']} grid: {describe_method(grid.attrs['grid_kind'], self.regrid_method)}"
             for name, grid in self._grids.items() if name in self._prepared
         }
+        if surface:
+            record["land_fraction"] = (
+                f"read from the primary reference '{self.reference.name}'" if self._land_file
+                else "the land fraction bundled with gridscore (the primary reference has none), remapped conservatively"
+            )
         if renamed:
             record["variable_names"] = renamed  # e.g. {"run-a": "tas read from TS"}
         # the primary first; with several, the rule by which run differences are read against their spread
@@ -954,7 +987,7 @@ def score_table(
     key = None
     if store is not None:
         key = Cache.key(
-            kind="scores-v5",
+            kind="scores-v6",  # v6: the provenance lists the files read, not every file
             # every reference in order (the primary first), then the runs
             sources=[(s.name, s.role, [vars(f) for f in io.file_identity(io.expand_paths(s.paths, source=s.name))], sorted(s.names_in_files(variable).items()))
                      for s in [reference, *alternatives, *models]],

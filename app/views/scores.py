@@ -16,7 +16,7 @@ import pandas as pd
 import panel as pn
 from bokeh.models.widgets.tables import HTMLTemplateFormatter, NumberFormatter
 
-from evaluation.export import METRIC_ORDER, provenance_bytes, sidecar_path, table_bytes, wide_table
+from evaluation.export import METRIC_ORDER, provenance_bytes, provenance_for, sidecar_path, table_bytes, wide_table
 from evaluation.metrics import METRICS
 from evaluation.regions import parse_region
 from evaluation.uncertainty import RULE, run_pairs, tied_with
@@ -236,7 +236,9 @@ class ScoresView(ResultView):
         return pn.Column(*parts, sizing_mode="stretch_width")
 
     def _downloads(self, data: dict[str, Any], request: Request) -> pn.Row:
-        tidy, record = data.get("every", data["tidy"]), data["provenance"]
+        tidy = data.get("every", data["tidy"])
+        # the files of the sources in the downloaded table only (the comparison holds every run of the variable)
+        record = provenance_for(data["provenance"], {request.reference, *tidy["model"], *tidy["reference"]})
         base = safe_filename("scores", request.variable, request.reference, request.region, request.season, request.period)
         results = self.results
         buttons = []
