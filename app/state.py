@@ -10,7 +10,8 @@ The URL query carries every value, defaults included, under the names ``variable
 ``level`` (``500 hPa``; empty for a variable without levels), ``reference``, ``models``
 (comma-separated), ``region``, ``season``, ``period`` (``YYYY-YYYY``), ``field``,
 ``target_grid`` (``reference``, a source's name or a spacing such as ``2.5x2.5``; the
-options are the collection's) and ``tab``.  Query values are validated against the options
+options are the collection's), ``overview_by`` (what the overview shows besides the
+variables: ``variable`` alone, ``season`` or ``region``; see :data:`OVERVIEW_BY`) and ``tab``.  Query values are validated against the options
 before they are applied; a bad value falls back to the default and leaves a notice.
 
 This module does not import Panel: the state can be built and tested without a server.
@@ -32,6 +33,7 @@ from evaluation.timeaxis import SEASONS, Period, parse_period, parse_season
 
 __all__ = [
     "FIELDS",
+    "OVERVIEW_BY",
     "TABS",
     "QUERY_NAMES",
     "Options",
@@ -66,7 +68,12 @@ TABS: dict[str, str] = {
 }
 
 #: The URL query names, in the order they are written.
-QUERY_NAMES: tuple[str, ...] = ("variable", "level", "reference", "models", "region", "season", "period", "field", "target_grid", "tab")
+QUERY_NAMES: tuple[str, ...] = ("variable", "level", "reference", "models", "region", "season", "period", "field", "target_grid", "overview_by", "tab")
+
+#: The overview's sub-views (URL ``overview_by``): value -> label.  ``variable``: one value per
+#: run and variable for the sidebar's region and season; ``season``: every season for the
+#: sidebar's region; ``region``: every predefined region for the sidebar's season.
+OVERVIEW_BY: dict[str, str] = {"variable": "By variable", "season": "By season", "region": "By region"}
 
 #: Global spacings the common-grid control offers besides the sources' own grids.
 TARGET_SPACINGS: tuple[str, ...] = ("1x1", "2.5x2.5", "5x5")
@@ -120,6 +127,7 @@ class Request:
     field: str
     level: str = ""  # "500 hPa"; empty for a variable without levels
     target_grid: str = "reference"  # the common grid: reference, a source's name or a spacing
+    overview_by: str = "variable"  # the overview's sub-view (OVERVIEW_BY)
 
     def query(self, *, tab: str) -> dict[str, str]:
         """Every URL value of this request, defaults included.
@@ -137,6 +145,7 @@ class Request:
             "period": self.period,
             "field": self.field,
             "target_grid": self.target_grid,
+            "overview_by": self.overview_by,
             "tab": tab,
         }
 
@@ -217,6 +226,7 @@ class Selection(param.Parameterized):
     field = param.Selector(default="difference", objects=list(FIELDS), doc="What the maps show.")
     tab = param.Selector(default="maps", objects=list(TABS), doc="The view on display.")
     target_grid = param.Selector(default="reference", objects=["reference"], doc="The common grid every source is remapped onto.")
+    overview_by = param.Selector(default="variable", objects=list(OVERVIEW_BY), doc="The overview's sub-view.")
 
     span = param.ClassSelector(class_=Period, default=None, allow_None=True, doc="Years every source covers.")
     default_period = param.ClassSelector(class_=Period, default=None, allow_None=True)
@@ -247,7 +257,7 @@ class Selection(param.Parameterized):
         self._set_variable(self.param.variable.default)
         self.param.watch(self._variable_changed, ["variable"])
         self.param.watch(self._span_source_changed, ["reference"])
-        self.param.watch(self._choice_changed, ["models", "region", "season", "period", "field", "level", "target_grid"])
+        self.param.watch(self._choice_changed, ["models", "region", "season", "period", "field", "level", "target_grid", "overview_by"])
 
     # ------------------------------------------------------------------ options
     def _set_variable(self, variable: str) -> None:
@@ -286,6 +296,7 @@ class Selection(param.Parameterized):
             "period": str(self.default_period) if self.default_period else "",
             "field": self.param.field.default,
             "target_grid": self.param.target_grid.default,
+            "overview_by": self.param.overview_by.default,
             "tab": self.param.tab.default,
         }
 
@@ -389,6 +400,14 @@ class Selection(param.Parameterized):
                     offered = ", ".join(self.param.target_grid.objects)
                     self.notify(f"Common grid '{_echo(value)}' is not offered ({_echo(offered)}); showing {self.param.target_grid.default}.")
                     self.target_grid = self.param.target_grid.default
+        if "overview_by" in query:
+            value = query["overview_by"].strip()
+            with param.parameterized.discard_events(self):
+                if value in OVERVIEW_BY:
+                    self.overview_by = value
+                else:
+                    self.notify(f"Overview sub-view '{_echo(value)}' is not known ({', '.join(OVERVIEW_BY)}); showing {self.param.overview_by.default}.")
+                    self.overview_by = self.param.overview_by.default
         if "tab" in query:
             value = query["tab"].strip()
             if value in self.param.tab.objects:
@@ -472,6 +491,7 @@ class Selection(param.Parameterized):
             field=self.field,
             level=self.level,
             target_grid=self.target_grid,
+            overview_by=self.overview_by,
         )
         if request != self.request:
             self.request = request

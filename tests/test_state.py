@@ -100,8 +100,9 @@ def test_url_round_trip_reproduces_the_view(results: Results) -> None:
 def test_query_names_are_the_contract() -> None:
     # issue 3, "Shareable link": these names exactly
     # and `level`, the vertical level of a variable on levels (the --level of the CLI),
-    # and `target_grid`, the common grid (the --target-grid of the CLI)
-    assert QUERY_NAMES == ("variable", "level", "reference", "models", "region", "season", "period", "field", "target_grid", "tab")
+    # and `target_grid`, the common grid (the --target-grid of the CLI),
+    # and `overview_by`, the overview's sub-view (issue 12, item 9)
+    assert QUERY_NAMES == ("variable", "level", "reference", "models", "region", "season", "period", "field", "target_grid", "overview_by", "tab")
 
 
 def test_level_from_a_link_is_read_in_any_units(results: Results) -> None:
