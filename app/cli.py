@@ -131,12 +131,14 @@ def _cmd_score(args) -> int:
         dataclasses.replace(r, name=f"{r.name} (reference)") if any(m.name == r.name for m in models) else r for r in references
     ]
     reference, alternatives = references[0], references[1:]
+    ensembles = _ensembles_arg(args.ensemble or [], models, references)
     regions = args.region or ["global"]
     seasons = args.season or ["ANN"]
     with _scheduler(args), _progress(True):
         table, provenance = score_table(
             reference=reference, models=models, variable=args.variable, regions=regions, seasons=seasons,
             period=args.period, regrid=args.regrid, level=args.level, target_grid=args.target_grid, alternatives=alternatives,
+            ensembles=ensembles,
         )
     _print_omissions(provenance)
     period = table["period"].iloc[0] if len(table) else args.period
@@ -154,6 +156,13 @@ def _cmd_score(args) -> int:
         else:
             _print_wide(table, title=f"{args.variable}{level} against {reference.name}, {period} ({units})")
     return EXIT_OK
+
+
+def _ensembles_arg(texts: Sequence[str], models: list, references: list) -> tuple:
+    """``--ensemble NAME=RUN1,RUN2``: the runs (``--model`` names) grouped as an ensemble."""
+    from evaluation.ensembles import check_ensembles, parse_ensemble_arg
+
+    return check_ensembles([parse_ensemble_arg(t) for t in texts], [m.name for m in models], others=[r.name for r in references])
 
 
 def _rule() -> str:
@@ -272,6 +281,11 @@ def build_parser() -> argparse.ArgumentParser:
         "against each further one, and each further one against the primary)",
     )
     p.add_argument("--model", required=True, action="append", metavar="NAME=PATH", help="a run (repeatable); PATH may be a quoted glob")
+    p.add_argument(
+        "--ensemble", action="append", metavar="NAME=RUN1,RUN2",
+        help="the --model runs RUN1, RUN2, ... are members of ensemble NAME (repeatable): adds the rows of the ensemble-mean "
+        "field, 'NAME (ensemble mean)', and the members' spread, 'NAME (members' min|max|std)'",
+    )
     p.add_argument("--variable", required=True, metavar="VAR", help="variable name or CF standard_name")
     p.add_argument("--level", metavar="VALUE+UNITS", help="one vertical level of a variable on levels, e.g. 850hPa, 85000Pa, 2m (interpolated where a source lacks it)")
     p.add_argument("--variable-in", action="append", metavar="NAME=VARIABLE", help="source NAME stores the variable under another name, e.g. run-a=TS (repeatable)")

@@ -20,6 +20,11 @@ A manifest is a small, human-editable TOML file::
     paths = ["refs/obs-b/*.nc"]
     reference_for = ["tas"]         # optional: the variables this reference serves, see below
 
+A run may carry ``ensemble = "name"``: the runs sharing a name are the members of that
+ensemble (at least two; the name is not a source's).  Their ensemble mean and the spread
+of their scores are computed beside the members' own (:mod:`evaluation.ensembles`,
+:meth:`Collection.ensembles_of`).
+
 A variable is compared with every reference that holds it: first, in manifest order, the
 references whose ``reference_for`` lists it, then those without ``reference_for``; a
 reference whose ``reference_for`` does not list the variable is not used for it.  The
@@ -37,11 +42,13 @@ import glob
 import os
 import re
 import tomllib
+from collections.abc import Sequence
 from dataclasses import dataclass
 from functools import cached_property
 from pathlib import Path
 
 from . import io
+from .ensembles import Ensemble, check_ensembles
 from .errors import InputError
 from .grids.target import parse_target_grid
 from .scoring import Source
@@ -52,7 +59,7 @@ MANIFEST_NAME = "manifest.toml"
 ROLES = ("model", "reference")
 # the folder layout read when there is no manifest: sub-folder -> role
 LAYOUT = {"references": "reference", "runs": "model"}
-_SOURCE_KEYS = ("name", "role", "paths", "colour", "description", "variables", "reference_for")
+_SOURCE_KEYS = ("name", "role", "paths", "colour", "description", "variables", "reference_for", "ensemble")
 _TOP_KEYS = ("title", "description", "target_grid", "source")
 # '#rgb' / '#rrggbb' or a CSS colour word such as 'teal'
 _COLOUR = re.compile(r"^(#[0-9a-fA-F]{3}|#[0-9a-fA-F]{6}|[a-zA-Z]{3,20})$")
@@ -82,6 +89,8 @@ class Collection:
     target_grid: str = "reference"
     #: reference name -> the variables its ``reference_for`` lists (references without it are absent)
     reference_for: tuple[tuple[str, tuple[str, ...]], ...] = ()
+    #: ensemble name -> its member runs, in manifest order (``ensemble = "name"`` on each member)
+    ensembles: tuple[tuple[str, tuple[str, ...]], ...] = ()
 
     @classmethod
     def from_path(cls, path: str | os.PathLike[str]) -> Collection:
@@ -155,6 +164,7 @@ class Collection:
         )
         _check_unique(sources, manifest)
         marks = tuple((s.name, _reference_for(entry, s, manifest)) for entry, s in zip(entries, sources, strict=True) if "reference_for" in entry)
+        ensembles = _ensembles(entries, sources, manifest)
         target_grid = _text(table, "target_grid", manifest, default="reference").strip() or "reference"
         try:
             target_grid = parse_target_grid(target_grid, sources=[s.name for s in sources]).text
@@ -167,6 +177,7 @@ class Collection:
             sources=sources,
             target_grid=target_grid,
             reference_for=marks,
+            ensembles=ensembles,
         )
 
     @classmethod
@@ -215,6 +226,24 @@ class Collection:
         first = [s for s in self.references if variable in marked.get(s.name, ())]
         rest = [s for s in self.references if s.name not in marked]
         return (*first, *rest)
+
+    def ensembles_of(self, runs: Sequence[str] | None = None) -> tuple[Ensemble, ...]:
+        """The ensembles of the collection, each with the members among ``runs`` (all when None).
+
+        An ensemble left with fewer than two of its members is not returned: its members
+        are then plain runs.
+        """
+        wanted = None if runs is None else set(runs)
+        out = []
+        for name, members in self.ensembles:
+            kept = tuple(m for m in members if wanted is None or m in wanted)
+            if len(kept) >= 2:
+                out.append(Ensemble(name, kept))
+        return tuple(out)
+
+    def ensemble_of(self, run: str) -> str | None:
+        """The ensemble ``run`` is a member of, or None."""
+        return next((name for name, members in self.ensembles if run in members), None)
 
     def source(self, name: str) -> Source:
         """The source called ``name``; InputError names the known ones otherwise."""
@@ -342,6 +371,30 @@ def _reference_for(entry: dict, source: Source, manifest: Path) -> tuple[str, ..
             remedy='write reference_for = ["tas", "pr"]',
         )
     return tuple(dict.fromkeys(v.strip() for v in value))
+
+
+def _ensembles(entries: list[dict], sources: tuple[Source, ...], manifest: Path) -> tuple[tuple[str, tuple[str, ...]], ...]:
+    """``ensemble = "name"`` on runs -> (name, members) in manifest order, checked."""
+    groups: dict[str, list[str]] = {}
+    for entry, src in zip(entries, sources, strict=True):
+        if "ensemble" not in entry:
+            continue
+        value = entry["ensemble"]
+        if src.role != "model":
+            raise InputError(f"source {src.name!r} is a reference but has ensemble", file=manifest,
+                             remedy='remove ensemble, or set role = "model"')
+        if not isinstance(value, str) or not value.strip() or _CONTROL.search(value):
+            raise InputError(f"source {src.name!r} has ensemble {value!r}", file=manifest,
+                             remedy='write ensemble = "name" (a short printable name shared by the members)')
+        groups.setdefault(value.strip(), []).append(src.name)
+    result = tuple((name, tuple(members)) for name, members in groups.items())
+    check_ensembles(
+        (Ensemble(name, members) for name, members in result),
+        [s.name for s in sources if s.role == "model"],
+        others=[s.name for s in sources if s.role != "model"],
+        where=manifest,
+    )
+    return result
 
 
 def _names_in_files(entry: dict, label: str, manifest: Path) -> dict[str, str]:

@@ -106,6 +106,7 @@ class _Prepared:
     seasons: dict[str, xr.DataArray] = field(default_factory=dict)  # on target grid, in memory
     cycle: xr.DataArray | None = None  # (month, lat, lon) on target grid
     kind: str = "monthly"  # monthly | annual | climatology (evaluation.timecoding.frequency)
+    members: tuple[str, ...] = ()  # an ensemble mean: the mean of these runs' reductions (evaluation.ensembles)
 
 
 class Comparison:
@@ -162,6 +163,7 @@ class Comparison:
         target_grid: str | None = None,
         cache: Cache | None | bool = True,
         alternatives: Sequence[Source] = (),
+        ensembles: Sequence = (),
     ) -> None:
         if not models:
             raise InputError("no model run given", remedy="add at least one --model NAME=PATH")
@@ -236,6 +238,12 @@ class Comparison:
         self.span = self._overlap(spans)  # the years the primary reference and every run cover
         self._note_time_kinds()
         self._target_grid, self.target_grid_text = self._choose_target()
+        #: ensembles of runs (evaluation.ensembles.Ensemble); each mean is a run named "<name> (ensemble mean)"
+        self.ensembles: list = []
+        if ensembles:
+            from .ensembles import attach
+
+            attach(self, ensembles)
 
     # ------------------------------------------------------------------ opening
     def _open(self, src: Source) -> xr.DataArray:
@@ -423,6 +431,8 @@ class Comparison:
             todo: list[tuple[str, str, xr.DataArray]] = []
             done: list[tuple[str, str, xr.DataArray]] = []
             for name, prep in self._prepared.items():
+                if prep.members:
+                    continue  # an ensemble mean: averaged from its members' reductions below
                 wanted = [s for s in seasons if s not in prep.seasons] + (["_cycle"] if cycle and prep.cycle is None else [])
                 for s in wanted:
                     if s != "_cycle" and self._omitted(name, s) is not None:
@@ -440,6 +450,7 @@ class Comparison:
                     else:
                         todo.append((name, s, season_means(prep.monthly, s, self.period)))
             if not todo and not done:
+                self._ensemble_means(seasons, cycle)
                 return
             # One dask pass per source: all its wanted reductions share the reads of its
             # monthly data, and only one source's chunks are in flight at a time, so
@@ -462,6 +473,13 @@ class Comparison:
                     self._prepared[name].cycle = value
                 else:
                     self._prepared[name].seasons[s] = value
+            self._ensemble_means(seasons, cycle)
+
+    def _ensemble_means(self, seasons: list[str], cycle: bool) -> None:
+        if self.ensembles:
+            from .ensembles import fill_means
+
+            fill_means(self, seasons, cycle)
 
     def _cache_key(self, name: str, what: str) -> str:
         prep = self._prepared[name]
@@ -894,7 +912,13 @@ class Comparison:
                 file=[f for p in self._prepared.values() for f in p.files],
                 remedy="choose seasons and a period every source has",
             )
-        return pd.DataFrame(rows, columns=list(TIDY_COLUMNS))
+        table = pd.DataFrame(rows, columns=list(TIDY_COLUMNS))
+        if self.ensembles:
+            from .ensembles import spread_rows
+
+            # the members' min, max and std of every metric, as rows "<ensemble> (members' min)" ...
+            table = pd.concat([table, spread_rows(table, self.ensembles)], ignore_index=True)
+        return table
 
     def provenance(self, *, regions: Sequence[str] = ("global",), seasons: Sequence[str] = ("ANN",)) -> dict:
         """Where the numbers come from, for the exporters."""
@@ -940,6 +964,8 @@ class Comparison:
             from .uncertainty import RULE
 
             record["observational_uncertainty"] = RULE
+        if self.ensembles:
+            record["ensembles"] = {e.name: list(e.members) for e in self.ensembles}
         record["omitted"] = [dict(o) for o in self.omissions]  # rows left out: {source, season, reason}
         if self.notes:
             record["notes"] = list(self.notes)
@@ -976,16 +1002,19 @@ def score_table(
     target_grid: str | None = None,
     cache: Cache | None | bool = True,
     alternatives: Sequence[Source] = (),
+    ensembles: Sequence = (),
 ) -> tuple[pd.DataFrame, dict]:
     """The tidy table and its provenance for one request, served whole from the cache when
     the same request on the same files (path, size, modification time) was answered before.
 
     ``reference`` is the primary reference; ``alternatives`` are further references (every
     run is scored against each, and each against the primary; see :meth:`Comparison.scores`).
+    ``ensembles`` (:class:`evaluation.ensembles.Ensemble`) group runs; such a table is not
+    kept whole in the cache (its key does not hold the grouping), only the reductions are.
     """
     store = default_cache() if cache is True else (cache or None)
     key = None
-    if store is not None:
+    if store is not None and not ensembles:
         key = Cache.key(
             kind="scores-v6",  # v6: the provenance lists the files read, not every file
             # every reference in order (the primary first), then the runs
@@ -1003,7 +1032,7 @@ def score_table(
         if hit is not None:
             return pd.DataFrame(hit["table"], columns=list(TIDY_COLUMNS)), hit["provenance"]
     cmp = Comparison(reference=reference, models=models, variable=variable, period=period, regrid=regrid, level=level, target_grid=target_grid,
-                     cache=store or False, alternatives=alternatives)
+                     cache=store or False, alternatives=alternatives, ensembles=ensembles)
     table = cmp.scores(regions=regions, seasons=seasons)
     prov = cmp.provenance(regions=regions, seasons=seasons)
     if store is not None and key is not None:
