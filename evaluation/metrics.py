@@ -77,6 +77,17 @@ METRICS: dict[str, Metric] = {
         Metric("ref_trend_pvalue", "Reference trend p-value", _one, None, "as trend_pvalue, for the reference"),
         Metric("iav_ratio", "IAV ratio", _one, "one", "interannual std of the detrended regional mean, run over reference"),
         Metric("rel_error", "Relative error", _one, "low", "(RMSE − median RMSE) / median RMSE across the runs (Gleckler et al. 2008)"),
+        Metric("bias_signif_area", "Significant bias area", _one, None,
+               "area fraction where run minus reference climatology stands out from interannual variability "
+               "(t-test with Santer et al. 2000 effective sizes, Benjamini-Hochberg FDR 10 % over the map, Wilks 2016)"),
+        Metric("rmse_diff_lo", "RMSE − best other, 95 % low", _same, None,
+               "lower end of the 95 % moving-block bootstrap interval of RMSE minus the RMSE of the best other run"),
+        Metric("rmse_diff_hi", "RMSE − best other, 95 % high", _same, None,
+               "upper end of the 95 % moving-block bootstrap interval of RMSE minus the RMSE of the best other run"),
+        Metric("abs_bias_diff_lo", "|Bias| − best other, 95 % low", _same, None,
+               "lower end of the 95 % moving-block bootstrap interval of |bias| minus the |bias| of the best other run"),
+        Metric("abs_bias_diff_hi", "|Bias| − best other, 95 % high", _same, None,
+               "upper end of the 95 % moving-block bootstrap interval of |bias| minus the |bias| of the best other run"),
     )
 }
 

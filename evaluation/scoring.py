@@ -678,6 +678,59 @@ class Comparison:
         )
         return out
 
+    def trend_significance(self, name: str, season: str, *, level: float | None = None) -> xr.Dataset:
+        """Where the trend map of a source stands out from interannual variability.
+
+        Returns
+        -------
+        Dataset
+            ``slope`` (per year), ``pvalue``, ``n_eff`` (:func:`evaluation.significance.trend_test`,
+            Santer et al. 2000) on the cells of :meth:`trend_map`, and ``significant``
+            (Benjamini–Hochberg at ``level``, default
+            :data:`evaluation.significance.FDR_LEVEL`, over every tested cell of the map);
+            attributes ``fdr_level`` and ``p_threshold``.
+        """
+        from .significance import FDR_LEVEL, fdr_significant, trend_test
+
+        level = FDR_LEVEL if level is None else level
+        if name == self.reference.name:
+            series = self.season_series(name, season)
+            mask = climatology(series).notnull()
+        else:
+            series, mask = self._aligned(name, season)[0], self._pair(name, season)[2]
+        out = trend_test(series, dim="year").where(mask)
+        significant, threshold = fdr_significant(out["pvalue"], level=level)
+        out["significant"] = significant
+        out.attrs.update(fdr_level=level, p_threshold=threshold, **self._attrs(f"{name} trend: significance", season))
+        return out
+
+    def significance_mask(self, name: str, season: str, *, of: str = "difference") -> xr.DataArray:
+        """The stippling of a map as a CF flag variable (:func:`evaluation.significance.significance_flags`).
+
+        ``of`` is ``"difference"`` (the bias map: :meth:`difference_significance` over the
+        whole map) or ``"trend_map"`` (:meth:`trend_significance`).  Against a reference
+        without years nothing is tested.
+        """
+        from .significance import FDR_LEVEL, significance_flags
+
+        if of == "difference":
+            if self._prepared[self.reference.name].kind == "climatology":
+                field = self.difference(name, season)
+                return significance_flags(field.notnull() & False, field.notnull() & False, name=f"{self.variable}_difference_significance",
+                                          long_name="not tested: the reference has no years", level=FDR_LEVEL, threshold=0.0, test="none")
+            ds = self.difference_significance(name, season)
+            what, test, target = "difference", ds.attrs["test"], f"{self.variable}_difference"
+        elif of == "trend_map":
+            ds = self.trend_significance(name, season)
+            what, test, target = "trend", ds.attrs["test"], f"{self.variable}_trend"
+        else:
+            raise ValueError(f"no significance for maps of kind {of!r}")
+        out = significance_flags(ds["significant"], ds["pvalue"].notnull(), name=f"{target}_significance",
+                                 long_name=f"significance of the {what} at each cell", level=float(ds.attrs["fdr_level"]),
+                                 threshold=float(ds.attrs["p_threshold"]), test=test)
+        out.attrs.update(season=season, period=str(self.period))
+        return out
+
     def zonal_mean(self, name: str, season: str) -> xr.DataArray:
         """Zonal mean ``(lat)`` of the climatology (run masked with the reference)."""
         out = zonal_mean(self.climatology(name, season))
@@ -819,12 +872,15 @@ class Comparison:
         return years, np.where(mask, m, 0.0), np.where(mask, r, 0.0), clim_m, clim_r, mask
 
     def _score_runs(self, scored: list[Source], season: str, against: str, regions: list[str], area: np.ndarray,
-                    fraction: dict[str, np.ndarray]) -> dict[str, dict[str, dict[str, float]]]:
-        """Every metric but ``rel_error`` of each run against one reference: region -> run -> metric -> value.
+                    fraction: dict[str, np.ndarray], moments: dict | None = None) -> dict[str, dict[str, dict[str, float]]]:
+        """Every metric but ``rel_error`` and the bootstrap intervals of each run against one
+        reference: region -> run -> metric -> value.
 
         A run without a season in years the reference has is removed from ``scored`` and
-        recorded as an omission.
+        recorded as an omission.  ``moments`` (region -> run) collects what the bootstrap
+        of :func:`evaluation.bootstrap.difference_intervals` needs.
         """
+        from .bootstrap import error_moments
         from .trends import detrend, ols_trend
 
         values: dict[str, dict[str, dict[str, float]]] = {r: {} for r in regions}
@@ -836,6 +892,7 @@ class Comparison:
                 self._omit(who, season, f"no {season} season in years the reference '{against}' also has")
                 scored.remove(m)
                 continue
+            significant, tested = self._significant_cells(ms_all, rs_all, mask, against)
             for region in regions:
                 w = area * fraction[region] * mask
                 stats = pattern_stats(clim_m, clim_r, w, where=f"{m.name}, {region}, {season}")
@@ -853,9 +910,26 @@ class Comparison:
                 if self._prepared[against].kind == "climatology":
                     # these need the reference's own years, which a climatology does not have
                     stats.update(ref_trend=float("nan"), ref_trend_pvalue=float("nan"), iav_ratio=float("nan"))
+                tested_w = w * tested
+                stats["bias_signif_area"] = float((tested_w * significant).sum() / tested_w.sum()) if tested_w.sum() > 0 else float("nan")
+                if moments is not None:
+                    moments.setdefault(region, {})[m.name] = error_moments(ms_all - rs_all, w, years)
                 values[region][m.name] = stats
             del ms_all, rs_all
         return values
+
+    def _significant_cells(self, ms_all: np.ndarray, rs_all: np.ndarray, mask: np.ndarray, against: str) -> tuple[np.ndarray, np.ndarray]:
+        """Cells ``(cell)`` where the run's climatology differs significantly from the reference's,
+        and the cells tested: the test and the false-discovery control over the whole map of
+        :meth:`difference_significance` (none against a reference without years)."""
+        from .significance import difference_test, fdr_significant
+
+        if self._prepared[against].kind == "climatology":
+            return np.zeros(mask.shape, dtype=bool), np.zeros(mask.shape, dtype=bool)
+        run = xr.DataArray(np.where(mask, ms_all, np.nan), dims=("year", "cell"))
+        ref = xr.DataArray(np.where(mask, rs_all, np.nan), dims=("year", "cell"))
+        pvalue = difference_test(run, ref, dim="year")["pvalue"].values
+        return fdr_significant(pvalue)[0], np.isfinite(pvalue)
 
     def scores(self, *, regions: Sequence[str] = ("global",), seasons: Sequence[str] = ("ANN",)) -> pd.DataFrame:
         """The tidy score table (columns :data:`TIDY_COLUMNS`, metrics in registry order).
@@ -873,7 +947,15 @@ class Comparison:
         run's rows against reference B equal a request with B alone on that grid, period
         and land fraction.  ``rel_error`` is relative to the median RMSE of the runs
         (never of the references) against the same reference.
+
+        ``rmse_diff_lo``/``_hi`` and ``abs_bias_diff_lo``/``_hi`` are moving-block bootstrap
+        intervals against the best other run (:func:`evaluation.bootstrap.difference_intervals`),
+        among the runs only (NaN for an alternative reference's rows and with one run);
+        ``bias_signif_area`` is the area fraction of the region's tested cells stippled on
+        the bias map (:meth:`difference_significance`, FDR over the whole map).
         """
+        from .bootstrap import INTERVAL_METRICS, difference_intervals
+
         seasons = [parse_season(s) for s in seasons]
         regions = [parse_region(r).id for r in regions]
         self.prepare(seasons)
@@ -888,8 +970,13 @@ class Comparison:
                 # against the primary, each alternative reference is scored as if it were a run
                 scored = [*self.models, *(self.alternatives if against == primary else [])]
                 scored = [m for m in scored if self._omitted(m.name, season, against) is None]
-                values = self._score_runs(scored, season, against, regions, area, fraction)
+                moments: dict = {}
+                values = self._score_runs(scored, season, against, regions, area, fraction, moments)
                 for region in regions:
+                    runs_here = {m.name: moments[region][m.name] for m in self.models if m.name in moments.get(region, {})}
+                    intervals = difference_intervals(runs_here)
+                    for name in values[region]:
+                        values[region][name].update({k: float(intervals.get(name, {}).get(k, np.nan)) for k in INTERVAL_METRICS})
                     # the median of the runs only: an alternative reference does not move the runs' relative errors
                     runs_rmse = {k: v["rmse"] for k, v in values[region].items() if k in {m.name for m in self.models}}
                     rel = relative_errors(runs_rmse)

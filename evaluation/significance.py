@@ -7,7 +7,9 @@ J. Geophys. Res. 105, 7337-7356) do for trends.  Testing thousands of cells at o
 "significant" cells by chance; :func:`fdr_significant` controls the false discovery rate
 (Benjamini and Hochberg 1995, J. R. Stat. Soc. B 57, 289-300), as Wilks (2016, Bull. Amer.
 Meteor. Soc. 97, 2263-2273) recommends for fields; :func:`significant_area_fraction`
-summarises the result as one number.
+summarises the result as one number.  :func:`trend_test` gives the per-cell p-values of
+trends (Santer et al. 2000), to which the same FDR control applies;
+:func:`significance_flags` writes a mask as a CF flag variable.
 """
 
 from __future__ import annotations
@@ -22,7 +24,9 @@ __all__ = [
     "difference_test",
     "effective_sizes",
     "fdr_significant",
+    "significance_flags",
     "significant_area_fraction",
+    "trend_test",
 ]
 
 #: The false-discovery level: Wilks (2016) shows that alpha_FDR = 2 alpha_global keeps a
@@ -193,3 +197,93 @@ def significant_area_fraction(significant: xr.DataArray, weights: xr.DataArray, 
     if total <= 0.0:
         return float("nan")
     return float((w * significant.astype("float64")).sum() / total)
+
+
+def trend_test(da: xr.DataArray, *, dim: str = "year", adjust: bool = True) -> xr.Dataset:
+    """Least-squares trend along ``dim`` and its two-sided p-value at every other index (cell).
+
+    Parameters
+    ----------
+    da
+        Yearly season means ``(dim, ...)``; the ``dim`` coordinate (numeric) is the abscissa.
+    adjust
+        Reduce the sample size for lag-1 autocorrelation of the residuals (Santer et al.
+        2000); ``False`` gives the classical test of ``scipy.stats.linregress``.
+
+    Returns
+    -------
+    Dataset
+        ``slope`` (per unit of ``dim``), ``pvalue``, ``n_eff`` on the other dimensions.
+
+    Notes
+    -----
+    The cell-by-cell form of :func:`evaluation.trends.ols_trend`, vectorised: ``r1`` the
+    lag-1 autocorrelation of the residuals about their mean, ``n_eff = n (1 - r1)/(1 + r1)``
+    (``n`` where ``r1 <= 0``), ``s_e² = Σe² / (n_eff - 2)``, ``t = slope sqrt(Σ(x - x̄)²) / s_e``
+    with ``n_eff - 2`` degrees of freedom.  A cell with NaN in any year, fewer than 3
+    years or ``n_eff <= 2`` gets NaN p-value; a perfect fit gets 0 (NaN for a zero slope).
+    """
+    da = da.transpose(dim, ...)
+    y = np.asarray(da.values, dtype="float64")
+    n = y.shape[0]
+    x = np.asarray(da[dim].values if dim in da.coords else np.arange(n), dtype="float64")
+    shape = (n,) + (1,) * (y.ndim - 1)
+    dx = (x - x.mean()).reshape(shape)
+    sxx = float((dx * dx).sum())
+    with np.errstate(invalid="ignore", divide="ignore"):
+        slope = (dx * (y - y.mean(axis=0))).sum(axis=0) / sxx if sxx > 0 else np.full(y.shape[1:], np.nan)
+        e = y - y.mean(axis=0) - slope * dx
+        sse = (e * e).sum(axis=0)
+        d = e - e.mean(axis=0)
+        r1 = (d[:-1] * d[1:]).sum(axis=0) / (d * d).sum(axis=0)
+        n_eff = np.where(adjust & np.isfinite(r1) & (r1 > 0), n * (1.0 - r1) / (1.0 + r1), float(n))
+        dof = n_eff - 2.0
+        stderr = np.sqrt(sse / np.where(dof > 0, dof, np.nan) / sxx)
+        t = np.abs(slope) / stderr
+        pvalue = np.where(stderr > 0, 2.0 * stats.t.sf(t, np.where(dof > 0, dof, 1.0)), np.where(slope != 0, 0.0, np.nan))
+    ok = np.isfinite(y).all(axis=0) & (n >= 3) & (sxx > 0) & (dof > 0)
+    other = [k for k in da.dims if k != dim]
+    coords = {k: v for k, v in da.coords.items() if dim not in v.dims}
+    out = xr.Dataset(
+        {
+            "slope": (other, np.where(ok, slope, np.nan)),
+            "pvalue": (other, np.where(ok, pvalue, np.nan)),
+            "n_eff": (other, np.where(np.isfinite(y).all(axis=0), n_eff, np.nan)),
+        },
+        coords=coords,
+    )
+    out.attrs = {"test": "least-squares trend, t-test" + (", Santer et al. (2000) effective sample size" if adjust else "")}
+    return out
+
+
+#: CF flag values of a significance mask (CF 1.10 section 3.5): cells not tested, tested
+#: and not significant, significant under false-discovery-rate control.
+FLAG_VALUES = (0, 1, 2)
+FLAG_MEANINGS = "not_tested not_significant significant"
+
+
+def significance_flags(significant: xr.DataArray, tested: xr.DataArray, *, name: str, long_name: str, level: float,
+                       threshold: float, test: str) -> xr.DataArray:
+    """A significance mask as a CF flag variable (byte, ``flag_values``/``flag_meanings``).
+
+    Parameters
+    ----------
+    significant, tested
+        Boolean masks (significant implies tested).
+    name, long_name
+        Variable name and its description.
+    level, threshold, test
+        The false-discovery level, the p-value threshold it gave and the test, kept as
+        attributes.
+    """
+    flags = xr.where(significant & tested, 2, xr.where(tested, 1, 0)).astype("int8")
+    flags.name = name
+    flags.attrs = {
+        "long_name": long_name,
+        "flag_values": np.array(FLAG_VALUES, dtype="int8"),
+        "flag_meanings": FLAG_MEANINGS,
+        "fdr_level": float(level),
+        "p_threshold": float(threshold),
+        "comment": f"{test}; significant: Benjamini-Hochberg false discovery rate {level:g} over the tested cells (Wilks 2016)",
+    }
+    return flags

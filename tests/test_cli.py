@@ -23,8 +23,9 @@ CONTRACT_COLUMNS = ["model", "reference", "variable", "level", "region", "season
 CONTRACT_METRICS = {
     "mean", "ref_mean", "bias", "rmse", "crmse", "corr", "std_ratio", "taylor_skill",
     "trend", "ref_trend", "trend_pvalue", "ref_trend_pvalue", "iav_ratio", "rel_error",
+    "bias_signif_area", "rmse_diff_lo", "rmse_diff_hi", "abs_bias_diff_lo", "abs_bias_diff_hi",
 }  # fmt: skip
-UNITLESS = {"corr", "std_ratio", "taylor_skill", "trend_pvalue", "ref_trend_pvalue", "iav_ratio", "rel_error"}
+UNITLESS = {"corr", "std_ratio", "taylor_skill", "trend_pvalue", "ref_trend_pvalue", "iav_ratio", "rel_error", "bias_signif_area"}
 
 
 def gridscore() -> str:

@@ -173,11 +173,14 @@ def test_metric_registry_matches_the_contract():
     assert list(METRICS) == [
         "mean", "ref_mean", "bias", "rmse", "crmse", "corr", "std_ratio", "taylor_skill",
         "trend", "ref_trend", "trend_pvalue", "ref_trend_pvalue", "iav_ratio", "rel_error",
+        "bias_signif_area", "rmse_diff_lo", "rmse_diff_hi", "abs_bias_diff_lo", "abs_bias_diff_hi",
     ]  # fmt: skip
     units = {k: m.units("K") for k, m in METRICS.items()}
     assert units["trend"] == units["ref_trend"] == "K/decade"
-    assert {k for k, u in units.items() if u == "1"} == {"corr", "std_ratio", "taylor_skill", "trend_pvalue", "ref_trend_pvalue", "iav_ratio", "rel_error"}
-    assert {k for k, u in units.items() if u == "K"} == {"mean", "ref_mean", "bias", "rmse", "crmse"}
+    assert {k for k, u in units.items() if u == "1"} == {"corr", "std_ratio", "taylor_skill", "trend_pvalue", "ref_trend_pvalue", "iav_ratio", "rel_error",
+                                                         "bias_signif_area"}
+    assert {k for k, u in units.items() if u == "K"} == {"mean", "ref_mean", "bias", "rmse", "crmse", "rmse_diff_lo", "rmse_diff_hi",
+                                                         "abs_bias_diff_lo", "abs_bias_diff_hi"}
 
 
 # ---------------------------------------------------------------------------- invariants

@@ -134,7 +134,9 @@ def test_every_metric_matches_an_independent_computation(files, three_runs, seas
         for metric, want in metrics.items():
             got = value(table, metric, model=name, season=season)
             assert got == pytest.approx(want, rel=1e-9, abs=1e-12), (name, metric)
-    assert set(table.metric) == set(expected["a"]) | {"trend", "ref_trend", "trend_pvalue", "ref_trend_pvalue", "iav_ratio"}
+    assert set(table.metric) == set(expected["a"]) | {"trend", "ref_trend", "trend_pvalue", "ref_trend_pvalue", "iav_ratio",
+                                                     # significance (tests/test_significance_maps.py, tests/validation/test_bootstrap_references.py)
+                                                     "bias_signif_area", "rmse_diff_lo", "rmse_diff_hi", "abs_bias_diff_lo", "abs_bias_diff_hi"}
 
 
 def test_regional_scores_use_fractional_weights(files, three_runs):
@@ -161,11 +163,11 @@ def test_regional_scores_use_fractional_weights(files, three_runs):
 def test_table_form(three_runs):
     cmp, table = three_runs
     assert list(table.columns) == list(TIDY_COLUMNS) == ["model", "reference", "variable", "level", "region", "season", "period", "metric", "value", "units"]
-    assert len(table) == 3 * 3 * 2 * 14  # runs × regions × seasons × metrics
+    assert len(table) == 3 * 3 * 2 * 19  # runs × regions × seasons × metrics
     assert set(table.period) == {"1995-2002"}
     units = dict(zip(table.metric, table.units, strict=False))
     assert units["trend"] == "K/decade" and units["bias"] == "K" and units["corr"] == "1" and units["rel_error"] == "1"
-    assert table.groupby(["model", "region", "season"]).size().eq(14).all()
+    assert table.groupby(["model", "region", "season"]).size().eq(19).all()
 
 
 def test_rel_error_median_is_zero(three_runs):
@@ -483,7 +485,7 @@ def test_comparison_stays_lazy_until_prepare(files, raise_if_computed):
         cmp.prepare(["DJF", "ANN"])  # already reduced: nothing read again
     with raise_if_computed(max_computes=0):
         table = cmp.scores(seasons=["ANN", "DJF"])  # everything already reduced: no compute at all
-    assert len(table) == 2 * 2 * 14
+    assert len(table) == 2 * 2 * 19
 
 
 def test_comparison_with_a_land_fraction_stays_lazy(tmp_path, raise_if_computed):

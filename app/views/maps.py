@@ -4,6 +4,11 @@ One map per source, side by side with linked zoom, on the comparison's target gr
 coastlines from the bundled land fraction, a colour bar, a sequential palette for means
 and a diverging one centred on zero for differences and trends.  Each field can be
 downloaded as CF NetCDF; the box-select tool on a map sets a box region.
+
+Bias maps (run minus reference) and trend maps are stippled where the value stands out
+from interannual variability under false-discovery-rate control
+(:meth:`evaluation.scoring.Comparison.significance_mask`); the download carries the
+stippling as a CF flag variable beside the field.
 """
 
 from __future__ import annotations
@@ -26,7 +31,7 @@ from .coastlines import coastline_path
 from .look import DIVERGING, SEQUENTIAL
 from .results import MapField
 
-__all__ = ["MapsView", "colour_range", "display_grid", "map_element", "region_outline"]
+__all__ = ["MapsView", "colour_range", "display_grid", "map_element", "region_outline", "stipple_points", "STIPPLE_LEGEND"]
 
 #: More cells than this per map are averaged in blocks for display (a 0.25° grid has
 #: about a million); the download always carries the full field.
@@ -80,6 +85,46 @@ def display_grid(field: xr.DataArray) -> xr.DataArray:
         return field
     factor = math.ceil(math.sqrt(cells / MAX_DISPLAY_CELLS))
     return field.coarsen(lat=factor, lon=factor, boundary="trim").mean()  # NaN-skipping for floats
+
+
+#: At most this many rows and columns of dots (one per 5° at most): on a finer grid the
+#: mask is thinned by majority over blocks, as stippling is usually drawn, so that the
+#: colours between the dots stay readable.
+MAX_STIPPLE_ROWS, MAX_STIPPLE_COLUMNS = 36, 72
+#: The legend of the stippling (the false-discovery level of evaluation.significance).
+STIPPLE_LEGEND = "dots: significant at FDR 10 % (Wilks 2016)"
+
+
+def stipple_points(flags: xr.DataArray) -> tuple[np.ndarray, np.ndarray]:
+    """Longitudes and latitudes of the dots for a significance flag field (2 = significant).
+
+    Notes
+    -----
+    A grid finer than :data:`MAX_STIPPLE_ROWS` x :data:`MAX_STIPPLE_COLUMNS` is cut into
+    blocks; a dot marks a block more than half of whose tested cells are significant, at
+    the block's centre, so the dots stay apart and the colours between them readable.
+    """
+    flags = flags.sortby("lat").sortby("lon")
+    factor = max(1, math.ceil(max(flags.sizes["lat"] / MAX_STIPPLE_ROWS, flags.sizes["lon"] / MAX_STIPPLE_COLUMNS)))
+    significant = (flags == 2).astype("float64")
+    tested = (flags > 0).astype("float64")
+    if factor > 1:
+        share = significant.coarsen(lat=factor, lon=factor, boundary="trim").sum() / tested.coarsen(lat=factor, lon=factor, boundary="trim").sum()
+        dots = share.fillna(0.0) > 0.5
+    else:
+        dots = significant > 0.5
+    lat, lon = xr.broadcast(dots["lat"], dots["lon"])
+    keep = dots.transpose("lat", "lon").values
+    return lon.transpose("lat", "lon").values[keep], lat.transpose("lat", "lon").values[keep]
+
+
+def stipple_element(flags: xr.DataArray) -> hv.Points:
+    """Small dark dots with a light rim, readable on both ends and the middle of the palettes."""
+    lon, lat = stipple_points(flags)
+    lon = np.where(lon >= 180.0, lon - 360.0, lon)  # the maps' longitudes run -180..180
+    points = hv.Points((lon, lat), kdims=["lon", "lat"])
+    return points.opts(color="#111111", size=3, line_color="#ffffff", line_width=0.4, tools=[], show_legend=False, backend="bokeh").opts(
+        color="#111111", s=2, edgecolors="none", show_legend=False, backend="matplotlib")
 
 
 def _regular(values: np.ndarray) -> bool:
@@ -157,6 +202,29 @@ def region_outline(region: str) -> hv.Overlay:
     return hv.Overlay(layers)
 
 
+#: The maps that are stippled: bias maps and trend maps.
+_STIPPLED = ("difference", "trend_map")
+#: How the dots are found, said under the maps.
+STIPPLE_RULE = (
+    "a two-sided t-test at every cell on the yearly season means (bias maps: run against reference, "
+    "two-sample; trend maps: least-squares trend), with sample sizes reduced for lag-1 autocorrelation "
+    "(Santer et al. 2000), and the Benjamini-Hochberg false discovery rate held at 10 % over all tested "
+    "cells of the map (Wilks 2016). Undotted cells are not shown to agree: their difference or trend is "
+    "within interannual variability. The NetCDF downloads carry the dots as a flag variable."
+)
+
+
+def with_mask(field: xr.DataArray, mask: xr.DataArray | None, variable: str) -> xr.DataArray | xr.Dataset:
+    """The field, and beside it its stippling as a CF flag variable (``ancillary_variables``)."""
+    if mask is None:
+        return field
+    name = str(field.name or variable)
+    out = field.to_dataset(name=name)
+    out[str(mask.name)] = mask
+    out[name].attrs["ancillary_variables"] = str(mask.name)
+    return out
+
+
 _QUANTITY = {"climatology": "Mean", "difference": "Difference", "trend_map": "Trend", "trend_difference": "Trend difference"}
 
 
@@ -204,7 +272,14 @@ class MapsView(ResultView):
             args = (request.reference, request.variable, request.period, request.season, kind, source, request.level, request.target_grid)
             data = await results.fetch(("map",) + args, results.map_field, *args)
             items.append(MapField(source=source, title=_title(kind, source, request.reference), data=data, signed=signed, quantity=_QUANTITY[kind]))
-        return {"items": items}
+        masks = []
+        for kind, source, _ in self._layout_of(request):
+            if kind not in _STIPPLED:
+                masks.append(None)
+                continue
+            args = (request.reference, request.variable, request.period, request.season, f"{kind}_significance", source, request.level, request.target_grid)
+            masks.append(await results.fetch(("map",) + args, results.map_field, *args))
+        return {"items": items, "masks": masks}
 
     def figure(self, data: dict[str, Any], request: Request) -> hv.Layout | None:
         items: list[MapField] = data["items"]
@@ -214,10 +289,14 @@ class MapsView(ResultView):
         if clim is None:
             return None
         outline = region_outline(request.region)
-        maps = [map_element(i, clim=clim, units=str(i.data.attrs.get("units", ""))) * outline for i in items]
+        masks = data.get("masks") or [None] * len(items)
+        maps = [
+            map_element(i, clim=clim, units=str(i.data.attrs.get("units", ""))) * outline * (stipple_element(f) if f is not None else hv.Overlay([]))
+            for i, f in zip(items, masks, strict=True)
+        ]
         info = self.results.variable_info(request.variable)
         name = f"{info.long_name} ({request.variable})" if info.long_name else request.variable
-        title = f"{name}, {request.season} {request.period}"
+        title = f"{name}, {request.season} {request.period}" + (f" ({STIPPLE_LEGEND})" if any(f is not None for f in masks) else "")
         layout = hv.Layout(maps).cols(2 if len(maps) > 1 else 1)
         return layout.opts(shared_axes=True, backend="bokeh").opts(title=plot_title(title), sublabel_format="", backend="matplotlib")
 
@@ -227,9 +306,14 @@ class MapsView(ResultView):
             return pn.pane.HTML('<div class="gs-empty">No valid values in this field for the selected period and season.</div>')
         plot = figure_pane(figure)  # the maps share their axes inside the layout
         self._watch_box(plot)
-        downloads = [self._field_download(item, request) for item in data["items"]]
+        masks = data.get("masks") or [None] * len(data["items"])
+        downloads = [self._field_download(item, request, mask) for item, mask in zip(data["items"], masks, strict=True)]
+        legend = []
+        if any(m is not None for m in masks):
+            legend.append(pn.pane.HTML(f'<div class="gs-hint gs-stipple-legend">{STIPPLE_LEGEND.capitalize()}: {STIPPLE_RULE}</div>', margin=(0, 10, 4, 10)))
         return pn.Column(
             plot,
+            *legend,
             pn.Row(pn.pane.HTML('<span class="gs-hint">Fields as CF NetCDF:</span>', margin=(12, 4)), *downloads),
             sizing_mode="stretch_width",
         )
@@ -257,13 +341,13 @@ class MapsView(ResultView):
         hv.streams.BoundsXY(source=image, subscribers=[set_box])
 
     # ------------------------------------------------------------------ NetCDF downloads
-    def _field_download(self, item: MapField, request: Request) -> pn.widgets.FileDownload:
+    def _field_download(self, item: MapField, request: Request, mask: xr.DataArray | None = None) -> pn.widgets.FileDownload:
         results = self.results
         args = (request.reference, request.variable, request.period, request.region, request.season, request.level, request.target_grid)
 
         async def make() -> io.BytesIO:
             record = await results.fetch(("provenance",) + args, results.provenance, *args)
-            payload = await results.run(lambda: field_bytes(item.data, provenance=record))
+            payload = await results.run(lambda: field_bytes(with_mask(item.data, mask, request.variable), provenance=record))
             return io.BytesIO(payload)
 
         filename = safe_filename(request.variable, item.title.replace(" ", "-"), request.season, request.period) + ".nc"
