@@ -34,11 +34,12 @@ import tempfile
 import threading
 from collections.abc import Iterator
 from pathlib import Path
-from typing import Any
-
-import xarray as xr
+from typing import TYPE_CHECKING, Any
 
 from .errors import InputError
+
+if TYPE_CHECKING:  # imported where arrays are read or written: a cached score table needs no xarray
+    import xarray as xr
 
 __all__ = ["Cache", "cache_limit_bytes", "default_cache"]
 
@@ -245,6 +246,8 @@ class Cache:
         f = self._verified(self._name(key, _SUFFIX))
         if f is None:
             return None
+        import xarray as xr
+
         try:
             return xr.load_dataarray(f)
         except Exception:  # unreadable despite a matching hash: a miss, and it goes

@@ -9,10 +9,12 @@ from __future__ import annotations
 
 from collections.abc import Callable
 from dataclasses import dataclass
-
-import xarray as xr
+from typing import TYPE_CHECKING
 
 from .errors import InputError
+
+if TYPE_CHECKING:  # annotations only: the registry is read by the warm cached path without xarray
+    import xarray as xr
 
 __all__ = ["DERIVED", "DerivedVariable", "derive"]
 

@@ -19,7 +19,6 @@ import io
 import json
 import math
 import os
-import shutil
 import tempfile
 from collections.abc import Callable, Iterable, Iterator, Mapping, Sequence
 from datetime import UTC, datetime
@@ -33,6 +32,19 @@ import xarray as xr
 
 from .errors import InputError
 from .metrics import METRICS
+from .plainfiles import (  # the parts the warm cached path of the command line shares, without pandas
+    KEY_COLUMNS,
+    TABLE_FORMATS,
+    TIDY_COLUMNS,
+    _atomic_write,
+    _bytes_writer,
+    _format_of,
+    _json_text,
+    check_table_path,
+    provenance_bytes,
+    sidecar_path,
+    spreadsheet_text,
+)
 
 __all__ = [
     "KEY_COLUMNS",
@@ -54,15 +66,9 @@ __all__ = [
     "write_table",
 ]
 
-#: The identifying columns of a score: one wide-table row per combination.
-KEY_COLUMNS: tuple[str, ...] = ("model", "reference", "variable", "level", "region", "season", "period")
-#: The contract columns of the tidy score table, in order.
-TIDY_COLUMNS: tuple[str, ...] = (*KEY_COLUMNS, "metric", "value", "units")
 #: The metric keys in registry order (evaluation.metrics.METRICS), the order the wide
 #: table shows them in; metrics outside the registry follow in order of first appearance.
 METRIC_ORDER: tuple[str, ...] = tuple(METRICS)
-#: Table formats by file extension (without the dot).
-TABLE_FORMATS: tuple[str, ...] = ("csv", "xlsx", "md", "tex", "html", "json")
 
 #: Packages whose versions identify the software that made a result.
 _SOFTWARE = ("gridscore", "xarray", "numpy", "dask", "pandas", "cftime", "xarray-regrid")
@@ -218,10 +224,6 @@ def _flat_items(value: Any, prefix: str = "") -> Iterator[tuple[str, str]]:
 def _provenance_frame(record: Mapping[str, Any] | None) -> pd.DataFrame:
     rows = list(_flat_items(record or {}))
     return pd.DataFrame(rows, columns=["key", "value"], dtype=object)
-
-
-def _json_text(record: Any) -> str:
-    return json.dumps(record, indent=2, ensure_ascii=False, allow_nan=False, default=str)
 
 
 # --------------------------------------------------------------------------------------
@@ -406,29 +408,6 @@ def _title(record: Mapping[str, Any] | None) -> str:
     return "Scores" + (f": {', '.join(parts)}" if parts else "")
 
 
-#: Characters that make a spreadsheet read a cell as a formula (OWASP, "CSV Injection").
-_FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
-
-
-def spreadsheet_text(value: Any) -> Any:
-    """A text cell that a spreadsheet shows as text: a leading ``'`` before a formula sign.
-
-    Notes
-    -----
-    Follows the OWASP guidance on CSV injection: text beginning with ``=``, ``+``, ``-``,
-    ``@``, a tab or a carriage return gets a single quote in front (a run named
-    ``=HYPERLINK(...)`` stays a name); a carriage return becomes a line feed.  Only text
-    is changed: numbers (``-1.5`` in the value column), NaN and ``None`` are returned as
-    they are.
-    """
-    if not isinstance(value, str):
-        return value
-    # A carriage return is written as a line feed, which the CSV writer quotes; a lone CR
-    # left unquoted would end the row for readers that take it as a line end (pandas).
-    value = value.replace("\r\n", "\n").replace("\r", "\n")
-    return "'" + value if value.startswith(_FORMULA_START) else value
-
-
 def csv_bytes(table: pd.DataFrame) -> bytes:
     """A table as CSV with its text cells safe for spreadsheets (:func:`spreadsheet_text`).
 
@@ -611,23 +590,6 @@ def _html_bytes(table: pd.DataFrame, record: Mapping[str, Any] | None) -> bytes:
     return text.encode("utf-8")
 
 
-def _format_of(fmt: str, *, file: str | None = None) -> str:
-    key = fmt.lower().lstrip(".")
-    if key not in TABLE_FORMATS:
-        shown = f".{key}" if key else "no extension"
-        raise InputError(
-            f"unknown table format {shown!r}" if key else "the output file has no extension",
-            file=file,
-            remedy=f"use one of {', '.join('.' + f for f in TABLE_FORMATS)}",
-        )
-    return key
-
-
-def check_table_path(path: str | os.PathLike[str]) -> None:
-    """Raise :class:`InputError` when the extension of ``path`` is not a table format."""
-    _format_of(Path(path).suffix, file=str(path))
-
-
 def table_bytes(tidy: pd.DataFrame, fmt: str, *, provenance: Mapping[str, Any] | None) -> bytes:
     """The score table in one of :data:`TABLE_FORMATS`, as bytes (UTF-8 for the text formats).
 
@@ -676,17 +638,6 @@ def table_bytes(tidy: pd.DataFrame, fmt: str, *, provenance: Mapping[str, Any] |
     if key == "tex":
         return _latex_bytes(table, provenance)
     return _html_bytes(table, provenance)
-
-
-def provenance_bytes(provenance: Mapping[str, Any] | None) -> bytes:
-    """The provenance record as the JSON file written beside a CSV table (UTF-8)."""
-    return (_json_text(dict(provenance or {})) + "\n").encode("utf-8")
-
-
-def sidecar_path(path: str | os.PathLike[str]) -> Path:
-    """Where :func:`write_table` puts the provenance of a CSV file: ``<name>.provenance.json``."""
-    path = Path(path)
-    return path.with_name(f"{path.stem}.provenance.json")
 
 
 def write_table(
@@ -968,80 +919,3 @@ def field_bytes(field: xr.DataArray | xr.Dataset, *, provenance: Mapping[str, An
         target = Path(folder) / "field.nc"
         write_field(field, target, provenance=provenance)
         return target.read_bytes()
-
-
-# --------------------------------------------------------------------------------------
-# atomic writes
-# --------------------------------------------------------------------------------------
-
-
-def _bytes_writer(data: bytes) -> Callable[[str], None]:
-    def write(target: str) -> None:
-        with open(target, "wb") as handle:
-            handle.write(data)
-
-    return write
-
-
-def _atomic_write(writes: Sequence[tuple[Path, Callable[[str], None]]]) -> None:
-    """Write each ``(path, writer)`` to a temporary file beside ``path``, then move them all.
-
-    Every temporary file is complete and flushed to disk before any target is replaced;
-    on failure all temporary files are removed and no target is touched.
-    """
-    # Each temporary file sits in a temporary folder of its own next to the target, not
-    # loose in the target folder: after a failed lazy NetCDF write, dask tasks still in
-    # flight reopen the file by name and would recreate a removed loose file.  Once the
-    # folder is gone they cannot.
-    folders: list[str] = []
-    staged: list[tuple[str, Path]] = []
-    try:
-        for path, writer in writes:
-            parent = path.parent if str(path.parent) else Path(".")
-            if not parent.is_dir():
-                raise InputError(
-                    "the folder does not exist" if not parent.exists() else "is not a folder",
-                    file=str(parent),
-                    remedy="create the folder first or choose another output path",
-                )
-            try:
-                folders.append(tempfile.mkdtemp(dir=parent, prefix=f".{path.name}.", suffix=".part"))
-                temporary = os.path.join(folders[-1], path.name)
-                writer(temporary)
-                _settle(temporary, path)
-            except OSError as error:
-                raise _unwritable(path, error) from error
-            staged.append((temporary, path))
-        for temporary, path in staged:
-            try:
-                os.replace(temporary, path)
-            except OSError as error:
-                raise _unwritable(path, error) from error
-    finally:
-        for folder in folders:
-            shutil.rmtree(folder, ignore_errors=True)
-
-
-def _settle(temporary: str, path: Path) -> None:
-    # A replaced report keeps the mode the old file had, a new one gets the usual
-    # rw-r--r--.  (Applying the umask would mean reading it, which changes it for the
-    # whole process: unsafe while the server runs threads.)
-    try:
-        mode = path.stat().st_mode & 0o777
-    except OSError:
-        mode = 0o644
-    os.chmod(temporary, mode)
-    handle = os.open(temporary, os.O_RDONLY)
-    try:
-        os.fsync(handle)  # the data are on disk before the rename makes them visible
-    finally:
-        os.close(handle)
-
-
-def _unwritable(path: Path, error: OSError) -> InputError:
-    reason = error.strerror or str(error) or type(error).__name__
-    return InputError(
-        f"cannot write the file ({reason})",
-        file=str(path),
-        remedy="choose a folder you may write to, with free space",
-    )

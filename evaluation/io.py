@@ -16,20 +16,20 @@ Data stay lazy (dask) throughout.
 
 from __future__ import annotations
 
-import glob
-import hashlib
 import os
 import re
 import threading
 import warnings
 from collections.abc import Iterable, Sequence
-from dataclasses import dataclass
 
 import numpy as np
 import xarray as xr
 
 from . import grids, timecoding
 from .errors import InputError
+
+# file identities and paths need no numpy: the warm cached path of the command line uses them
+from .request import FileIdentity, chunk_megabytes, expand_paths, file_identity
 
 __all__ = [
     "CF_CALENDARS",
@@ -41,6 +41,7 @@ __all__ = [
     "variables_in",
     "open_source",
     "files_holding",
+    "fits_in_memory",
     "normalise",
     "get_variable",
     "FIXED_FIELDS",
@@ -72,109 +73,6 @@ _AXIS_CRITERIA = {
 
 # netCDF-C/HDF5 are not thread-safe (pydata/xarray#4100): every open goes through one lock.
 _OPEN_LOCK = threading.RLock()
-
-
-@dataclass(frozen=True)
-class FileIdentity:
-    """What identifies the content of an input file for provenance and caching.
-
-    ``modified`` can be set back by anyone (``touch -d``), so a file replaced by one of
-    equal size with an old time would look unchanged; ``changed`` (the status-change time,
-    which the system sets on every write, rename onto the path or ``touch``, and which no
-    ordinary call can set back) and ``inode`` catch that from one ``stat``; ``sample`` is
-    a hash of the file's head, tail and blocks spread over it, which catches a changed
-    content on file systems whose status times are coarse or absent.
-    """
-
-    path: str
-    size: int
-    modified: float
-    changed: int = 0  # st_ctime_ns
-    inode: int = 0
-    sample: str = ""
-
-
-def expand_paths(paths: str | os.PathLike[str] | Iterable[str | os.PathLike[str]], *, source: str | None = None) -> list[str]:
-    """Expand a file, a quoted glob or a list of either into sorted absolute paths.
-
-    Raises :class:`InputError` when a pattern matches nothing or a named file is absent.
-    """
-    items = [paths] if isinstance(paths, (str, os.PathLike)) else list(paths)
-    if not items:
-        raise InputError("no input files given", file=source, remedy="give a file, a quoted glob or a list of files")
-    found: list[str] = []
-    for item in items:
-        text = os.path.expanduser(str(item))
-        if glob.has_magic(text):
-            matches = sorted(glob.glob(text))
-            if not matches:
-                raise InputError("the pattern matches no file", file=text, remedy="check the folder and the quoting of the glob")
-            folders = [m for m in matches if os.path.isdir(m)]
-            if folders:  # a folder is not a data file; reading it would fail with a misleading reason
-                raise InputError(f"the pattern matches a folder, not a file ({folders[0]})", file=text,
-                                 remedy=f"make the glob match files only, e.g. '{os.path.join(folders[0], '*.nc')}'")
-            found.extend(matches)
-        elif os.path.isfile(text):
-            found.append(text)
-        elif os.path.isdir(text):
-            raise InputError("is a folder, not a file", file=text, remedy=f"give a glob such as '{os.path.join(text, '*.nc')}'")
-        else:
-            raise InputError("file not found", file=text, remedy="check the path")
-    return sorted({os.path.abspath(f) for f in found})
-
-
-#: Bytes hashed at the head and the tail of a file, and the number and size of the blocks
-#: spread between them, for :attr:`FileIdentity.sample` (a file up to about 4 MiB is
-#: hashed whole).  Measured on a 104 MB NetCDF file in the page cache (2-core machine):
-#: 8 ms for the sample once per change of the file, 0.05 ms per later call (a stat),
-#: against 115 ms for a full SHA-256 (240 ms BLAKE2b) on every start of the program.
-_SAMPLE_HEAD = 1 << 20
-_SAMPLE_BLOCKS, _SAMPLE_BLOCK = 32, 1 << 16
-_SAMPLES: dict[tuple, str] = {}
-_SAMPLES_MAX = 50_000
-
-
-def _content_sample(path: str, size: int) -> str:
-    sha = hashlib.blake2b(str(size).encode(), digest_size=16)
-    with open(path, "rb") as fh:
-        if size <= 2 * _SAMPLE_HEAD + _SAMPLE_BLOCKS * _SAMPLE_BLOCK:
-            sha.update(fh.read())
-            return sha.hexdigest()
-        sha.update(fh.read(_SAMPLE_HEAD))
-        span = size - 2 * _SAMPLE_HEAD - _SAMPLE_BLOCK
-        for i in range(_SAMPLE_BLOCKS):
-            fh.seek(_SAMPLE_HEAD + span * i // (_SAMPLE_BLOCKS - 1))
-            sha.update(fh.read(_SAMPLE_BLOCK))
-        fh.seek(size - _SAMPLE_HEAD)
-        sha.update(fh.read(_SAMPLE_HEAD))
-    return sha.hexdigest()
-
-
-def file_identity(paths: Sequence[str]) -> list[FileIdentity]:
-    """Identity of each file for provenance and cache keys (see :class:`FileIdentity`).
-
-    Notes
-    -----
-    One ``stat`` per file; the content sample is read only when the file's status
-    (size, times, inode) is new to this process, so revalidating on every request costs
-    a ``stat``.
-    """
-    out = []
-    for p in paths:
-        st = os.stat(p)
-        path = os.path.abspath(p)
-        status = (path, st.st_size, st.st_mtime_ns, st.st_ctime_ns, st.st_ino, st.st_dev)
-        sample = _SAMPLES.get(status)
-        if sample is None:
-            try:
-                sample = _content_sample(path, st.st_size)
-            except OSError:
-                sample = ""  # unreadable: opening it reports the problem
-            if len(_SAMPLES) >= _SAMPLES_MAX:
-                _SAMPLES.clear()
-            _SAMPLES[status] = sample
-        out.append(FileIdentity(path=path, size=st.st_size, modified=st.st_mtime, changed=st.st_ctime_ns, inode=st.st_ino, sample=sample))
-    return out
 
 
 def _attr(var: xr.Variable | xr.DataArray, key: str) -> str | None:
@@ -444,6 +342,36 @@ def _require_horizontal_axes(path: str) -> None:
         grids.describe(raw, where=path)
 
 
+#: The most bytes of one source's variable that a comparison reads into memory whole
+#: (then reduced with numpy, without a dask graph); larger data are reduced chunk by chunk
+#: with dask.  Measured on a 2-core machine: loading and reducing in memory is 2-3x faster
+#: for the 2-degree 40-year request of the benchmarks; at 1 GiB of float32 (a century of
+#: 1-degree months) the peak memory of a score stays under 2 GB.
+LOAD_LIMIT_BYTES = 1 << 30
+
+
+def fits_in_memory(da: xr.DataArray) -> bool:
+    """Whether ``da`` may be read into memory whole: at most :data:`LOAD_LIMIT_BYTES`
+    and at most a quarter of the memory the system has available now."""
+    need = da.size * da.dtype.itemsize
+    return need <= min(LOAD_LIMIT_BYTES, _available_bytes() / 4)
+
+
+def _available_bytes() -> float:
+    """MemAvailable of /proc/meminfo (Linux), else the physical memory."""
+    try:
+        with open("/proc/meminfo") as fh:
+            for line in fh:
+                if line.startswith("MemAvailable:"):
+                    return float(line.split()[1]) * 1024
+    except (OSError, ValueError, IndexError):
+        pass
+    try:
+        return float(os.sysconf("SC_PAGE_SIZE") * os.sysconf("SC_PHYS_PAGES"))
+    except (OSError, ValueError):
+        return float(LOAD_LIMIT_BYTES)
+
+
 def _time_chunk(cells: int, steps_per_month: float = 1.0) -> int:
     """Time steps per dask chunk, about GRIDSCORE_CHUNK_MB of float64.
 
@@ -458,23 +386,6 @@ def _time_chunk(cells: int, steps_per_month: float = 1.0) -> int:
     if months >= 12:
         return 12 * per_month * (months // 12)
     return per_month * max(1, months)
-
-
-def chunk_megabytes() -> float:
-    """``$GRIDSCORE_CHUNK_MB`` (default 64), refused unless a positive finite number."""
-    text = os.environ.get("GRIDSCORE_CHUNK_MB", "").strip()
-    if not text:
-        return 64.0
-    try:
-        value = float(text)
-    except ValueError:
-        value = float("nan")
-    if not np.isfinite(value) or value <= 0:
-        raise InputError(
-            f"GRIDSCORE_CHUNK_MB is {text[:40]!r}, not a positive number of megabytes",
-            remedy="set it to a number such as 64, or unset it",
-        )
-    return value
 
 
 def _classify_open_error(files: Sequence[str], exc: BaseException) -> InputError:

@@ -15,87 +15,16 @@ the exact fractions apply; the native-grid weights serve checks and native-grid 
 
 from __future__ import annotations
 
-import re
-from dataclasses import dataclass
 from functools import lru_cache
 from importlib import resources
 
 import numpy as np
 import xarray as xr
 
-from .errors import InputError
+# region ids are plain text rules, kept importable without numpy (the warm cached path)
+from .request import REGIONS, Region, parse_region
 
-__all__ = ["Region", "REGIONS", "parse_region", "region_weights", "land_fraction", "bundled_land_fraction"]
-
-
-@dataclass(frozen=True)
-class Region:
-    """A latitude-longitude box, optionally restricted to land or ocean."""
-
-    id: str
-    label: str
-    south: float = -90.0
-    north: float = 90.0
-    west: float = -180.0
-    east: float = 180.0
-    surface: str | None = None  # None, "land" or "ocean"
-
-    @property
-    def definition(self) -> str:
-        text = f"{_lat(self.south)} to {_lat(self.north)}"
-        if not (self.west == -180.0 and self.east == 180.0):
-            text += f", {_lon(self.west)} to {_lon(self.east)}"
-        if self.surface:
-            text += f", {self.surface} fraction of each cell"
-        return text
-
-
-def _lat(v: float) -> str:
-    return f"{abs(v):g}°{'S' if v < 0 else 'N'}" if v else "0°"
-
-
-def _lon(v: float) -> str:
-    return f"{abs(v):g}°{'W' if v < 0 else 'E'}" if v else "0°"
-
-
-REGIONS: dict[str, Region] = {
-    r.id: r
-    for r in (
-        Region("global", "Global"),
-        Region("tropics", "Tropics (30°S–30°N)", -30.0, 30.0),
-        Region("nh-extratropics", "Northern extratropics (30°N–90°N)", 30.0, 90.0),
-        Region("sh-extratropics", "Southern extratropics (90°S–30°S)", -90.0, -30.0),
-        Region("arctic", "Arctic (60°N–90°N)", 60.0, 90.0),
-        Region("antarctic", "Antarctic (90°S–60°S)", -90.0, -60.0),
-        Region("land", "Global land", surface="land"),
-        Region("ocean", "Global ocean", surface="ocean"),
-    )
-}
-
-_NUM = r"\s*([-+]?\d+(?:\.\d*)?)\s*"
-_BOX = re.compile(rf"^box:{_NUM},{_NUM},{_NUM},{_NUM}$", re.IGNORECASE)
-
-
-def parse_region(text: str | Region) -> Region:
-    """A region id of :data:`REGIONS` or ``box:S,N,W,E`` (degrees) -> :class:`Region`."""
-    if isinstance(text, Region):
-        return text
-    key = str(text).strip()
-    if key.lower() in REGIONS:
-        return REGIONS[key.lower()]
-    m = _BOX.match(key)
-    if not m:
-        raise InputError(
-            f"unknown region '{text}'",
-            remedy=f"use one of {' '.join(REGIONS)} or box:S,N,W,E in degrees (e.g. box:-10,10,160,-150)",
-        )
-    s, n, w, e = (float(g) for g in m.groups())
-    if not (-90.0 <= s < n <= 90.0):
-        raise InputError(f"region '{text}': south must be below north, both within -90..90", remedy="write box:S,N,W,E, e.g. box:30,60,-10,40")
-    if not (-180.0 <= w <= 360.0 and -180.0 <= e <= 360.0) or w == e:
-        raise InputError(f"region '{text}': west and east must differ and lie within -180..360", remedy="write box:S,N,W,E, e.g. box:30,60,-10,40")
-    canonical = f"box:{s:g},{n:g},{w:g},{e:g}"
-    return Region(canonical, f"Box {_lat(s)}–{_lat(n)}, {_lon(w)}–{_lon(e)}", s, n, w, e)
+__all__ = ["Region", "REGIONS", "parse_region", "region_label", "region_weights", "land_fraction", "bundled_land_fraction"]
 
 
 def _lat_fraction(lat_bnds: np.ndarray, south: float, north: float) -> np.ndarray:
@@ -220,3 +149,13 @@ def land_fraction(grid: xr.Dataset | xr.DataArray) -> xr.DataArray:
             _LAND_CACHE.clear()
         _LAND_CACHE[key] = out.drop_vars([c for c in out.coords if c not in ("lat", "lon")])
     return _LAND_CACHE[key]
+
+
+def region_label(region: str | Region) -> str:
+    """The one label of a region that every view, plot title, table and export shows.
+
+    ``Arctic (60°N–90°N)``, ``Global land``, ``Box 10°S–10°N, 160°E–150°W``: the predefined
+    regions by name and latitudes, a box by its edges; never the bare id (``arctic``).
+    Raises :class:`~evaluation.errors.InputError` for text that is no region.
+    """
+    return parse_region(region).label

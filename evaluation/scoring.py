@@ -16,7 +16,7 @@ from __future__ import annotations
 
 import re
 import threading
-from collections.abc import Iterable, Mapping, Sequence
+from collections.abc import Iterable, Sequence
 from dataclasses import dataclass, field
 
 import dask
@@ -33,6 +33,7 @@ from .grids.target import parse_target_grid, regular_grid, regular_near
 from .levels import LEVEL_DIM, interpolate_levels, parse_level, section_scores, section_weights, select_level
 from .metrics import METRICS, pattern_stats, relative_errors, weighted_mean, zonal_mean
 from .regions import parse_region, region_weights
+from .request import Source, scores_key
 from .timeaxis import (
     MONTH_NAMES,
     Period,
@@ -61,41 +62,6 @@ _PREFERRED_UNITS = {
 def preferred_units(standard_name: str | None, stored: str) -> str:
     """The unit scores are reported in: mm day-1 for precipitation, hPa for sea-level pressure, else as stored."""
     return _PREFERRED_UNITS.get(standard_name or "", stored)
-
-
-@dataclass(frozen=True)
-class Source:
-    """A named collection of files: one model run or one reference dataset."""
-
-    name: str
-    role: str  # "model" or "reference"
-    paths: tuple[str, ...]
-    colour: str | None = None
-    description: str = ""
-    # compared variable -> the name this source's files store it under ({"tas": "TS"});
-    # left out of the hash so that a Source stays usable as a key
-    variables: Mapping[str, str] = field(default_factory=dict, hash=False)
-
-    def __post_init__(self) -> None:
-        if isinstance(self.paths, str):
-            object.__setattr__(self, "paths", (self.paths,))
-        else:
-            object.__setattr__(self, "paths", tuple(str(p) for p in self.paths))
-        object.__setattr__(self, "variables", {str(k): str(v) for k, v in dict(self.variables).items()})
-
-    def name_in_files(self, variable: str) -> str:
-        """The name (or standard_name) under which this source's files hold ``variable``."""
-        return self.variables.get(variable, variable)
-
-    def names_in_files(self, variable: str) -> dict[str, str]:
-        """Every name read under another name for ``variable``: ``{"tas": "TS"}``, or for a
-        derived variable stored nowhere, its inputs (``{"rlut": "LW_OUT_TOP"}``)."""
-        if variable in self.variables:
-            return {variable: self.variables[variable]}
-        from .derived import DERIVED
-
-        inputs = DERIVED[variable].inputs if variable in DERIVED else ()
-        return {name: self.variables[name] for name in inputs if name in self.variables}
 
 
 @dataclass
@@ -428,7 +394,7 @@ class Comparison:
         """
         seasons = [parse_season(s) for s in seasons]
         with self._lock:
-            todo: list[tuple[str, str, xr.DataArray]] = []
+            todo: list[tuple[str, str]] = []
             done: list[tuple[str, str, xr.DataArray]] = []
             for name, prep in self._prepared.items():
                 if prep.members:
@@ -445,20 +411,23 @@ class Comparison:
                     hit = self._cache.get(self._cache_key(name, s)) if self._cache else None
                     if hit is not None:
                         done.append((name, s, hit))
-                    elif s == "_cycle":
-                        todo.append((name, s, monthly_climatology(prep.monthly, self.period)))
                     else:
-                        todo.append((name, s, season_means(prep.monthly, s, self.period)))
+                        todo.append((name, s))
             if not todo and not done:
                 self._ensemble_means(seasons, cycle)
                 return
-            # One dask pass per source: all its wanted reductions share the reads of its
-            # monthly data, and only one source's chunks are in flight at a time, so
-            # memory stays bounded by chunk size however many sources there are.
+            # One pass per source: all its wanted reductions share one read of its monthly
+            # data -- loaded whole and reduced with numpy when it fits in memory, else one
+            # dask pass with only this source's chunks in flight, so that memory stays
+            # bounded by chunk size however many sources there are.
             for source in dict.fromkeys(t[0] for t in todo):
                 batch = [t for t in todo if t[0] == source]
-                computed = dask.compute(*[t[2] for t in batch])
-                for (name, s, _), value in zip(batch, computed, strict=True):
+                monthly = self._monthly_in_memory(source, cycle=any(s == "_cycle" for _, s in batch))
+                computed = dask.compute(*[
+                    monthly_climatology(monthly, self.period) if s == "_cycle" else season_means(monthly, s, self.period) for _, s in batch
+                ])
+                del monthly
+                for (name, s), value in zip(batch, computed, strict=True):
                     if self._cache is not None:
                         self._cache.put(self._cache_key(name, s), value)
                     done.append((name, s, value))
@@ -480,6 +449,24 @@ class Comparison:
             from .ensembles import fill_means
 
             fill_means(self, seasons, cycle)
+
+    def _monthly_in_memory(self, name: str, *, cycle: bool) -> xr.DataArray:
+        """A source's monthly data for the period, read into memory when they fit
+        (:func:`evaluation.io.fits_in_memory`); else the lazy (dask) data.
+
+        Only the years of the period are read (and the December before it, which DJF of
+        its first year needs); every year for a seasonal cycle or non-monthly steps.
+        """
+        da = self._prepared[name].monthly
+        if da.chunks is None:
+            return da
+        if self._prepared[name].kind == "monthly" and not cycle and da.sizes["time"]:
+            years = np.fromiter((t.year for t in da["time"].values), dtype=int, count=da.sizes["time"])
+            inside = np.flatnonzero((years >= self.period.start - 1) & (years <= self.period.end))
+            if inside.size:
+                da = da.isel(time=slice(int(inside[0]), int(inside[-1]) + 1))
+        # a copy (the lazy data stay lazy); graph not optimised: a few tasks per file, named as read
+        return da.compute(optimize_graph=False) if io.fits_in_memory(da) else da
 
     def _cache_key(self, name: str, what: str) -> str:
         prep = self._prepared[name]
@@ -1102,19 +1089,8 @@ def score_table(
     store = default_cache() if cache is True else (cache or None)
     key = None
     if store is not None and not ensembles:
-        key = Cache.key(
-            kind="scores-v6",  # v6: the provenance lists the files read, not every file
-            # every reference in order (the primary first), then the runs
-            sources=[(s.name, s.role, [vars(f) for f in io.file_identity(io.expand_paths(s.paths, source=s.name))], sorted(s.names_in_files(variable).items()))
-                     for s in [reference, *alternatives, *models]],
-            variable=variable,
-            regions=[parse_region(r).id for r in regions],
-            seasons=[parse_season(s) for s in seasons],
-            period=None if period is None else str(parse_period(period)),
-            regrid=regrid,
-            level=None if not level else parse_level(level).label(),
-            target_grid=target_grid or "reference",
-        )
+        key = scores_key(reference=reference, alternatives=alternatives, models=models, variable=variable, regions=regions,
+                         seasons=seasons, period=period, regrid=regrid, level=level, target_grid=target_grid)
         hit = store.get_json(key)
         if hit is not None:
             return pd.DataFrame(hit["table"], columns=list(TIDY_COLUMNS)), hit["provenance"]

@@ -22,7 +22,10 @@ from dataclasses import dataclass
 import numpy as np
 import xarray as xr
 from numpy.typing import ArrayLike
-from scipy import stats
+
+# scipy.special, not scipy.stats: the same functions scipy.stats.t.sf and norm.sf call
+# (stdtr(df, -t), ndtr(-z)), at a third of the import time (about 1 s saved per command)
+from scipy import special
 
 __all__ = [
     "MannKendall",
@@ -186,7 +189,7 @@ def ols_trend(y: ArrayLike | xr.DataArray, x: ArrayLike | None = None, *, adjust
     if stderr == 0.0:
         pvalue = 0.0 if slope != 0.0 else nan
     else:
-        pvalue = float(2.0 * stats.t.sf(abs(slope / stderr), dof))
+        pvalue = float(2.0 * special.stdtr(dof, -abs(slope / stderr)))
     return Trend(slope, intercept, stderr, pvalue, n, r1, n_eff)
 
 
@@ -357,6 +360,6 @@ def mann_kendall(y: ArrayLike | xr.DataArray) -> MannKendall:
         z = (s + 1.0) / np.sqrt(var_s)
     else:
         z = 0.0
-    pvalue = float(2.0 * stats.norm.sf(abs(z)))
+    pvalue = float(2.0 * special.ndtr(-abs(z)))
     tau = s / (n * (n - 1) / 2.0)
     return MannKendall(s, var_s, float(z), pvalue, float(tau))

@@ -261,6 +261,9 @@ def conversion(source: str, target: str, *, difference: bool = False) -> tuple[f
     count as a dimension of their own), when a month or year would have to be given a
     length, or when either unit is refused by :func:`parse_units`.
     """
+    if source == target and source in _PLAIN_UNITS:
+        # the identity, without loading pint's registry (about 0.7 s of every cold command)
+        return 1.0, 0.0
     ureg = registry()
     (src_scale, src), (tgt_scale, tgt) = parse_scaled(source), parse_scaled(target)
     mass_flux = ureg.Unit("kg m-2 s-1").dimensionality
@@ -319,6 +322,9 @@ STANDARD_NAME_UNITS: dict[str, str] = {
     "cell_area": "m2",
     "geopotential": "m2 s-2",
 }
+#: Unit strings that pint reads as exactly themselves (the canonical units above): converting
+#: one to itself is the identity, known without the registry.
+_PLAIN_UNITS = frozenset(STANDARD_NAME_UNITS.values())
 
 
 def check_standard_units(standard_name: str | None, units: str) -> None:

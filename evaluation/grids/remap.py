@@ -25,16 +25,16 @@ from __future__ import annotations
 
 from collections.abc import Callable
 from dataclasses import dataclass
+from importlib import import_module
 from typing import Literal
 
 import xarray as xr
 
 from ..errors import InputError
-from . import remap_points, remap_polygons, remap_regular
+from ..request import REGRID_METHODS  # the command line offers them without importing xarray
 
 __all__ = ["REGRID_METHODS", "RegridMethod", "Remapper", "REMAPPERS", "regrid", "describe_method"]
 
-REGRID_METHODS = ("conservative", "bilinear", "nearest")
 RegridMethod = Literal["conservative", "bilinear", "nearest"]
 
 
@@ -50,31 +50,47 @@ class Remapper:
     label: str
 
 
+#: Sample points per cell edge, at least, of the conservative maps from rotated and
+#: curvilinear grids (:mod:`evaluation.grids.remap_polygons`).
+EDGE_POINTS = 16
+
+
+def _lazy(module: str, name: str, **keywords: str) -> Callable[[xr.DataArray, xr.Dataset, xr.Dataset], xr.DataArray]:
+    """``module.name(da, grid, target, **keywords)``, the module imported on the first call:
+    the remapping modules import scipy.sparse, shapely and pyresample (about 1 s), which a
+    request whose sources share the target grid never needs."""
+
+    def call(da: xr.DataArray, grid: xr.Dataset, target: xr.Dataset) -> xr.DataArray:
+        return getattr(import_module(f"{__package__}.{module}"), name)(da, grid, target, **keywords)
+
+    return call
+
+
 def _polygons(kind: str) -> Callable[[xr.DataArray, xr.Dataset, xr.Dataset], xr.DataArray]:
-    return lambda da, grid, target: remap_polygons.conservative(da, grid, target, kind=kind)
+    return _lazy("remap_polygons", "conservative", kind=kind)
 
 
 _EXACT = "first-order conservative, exact overlap areas of the cells (Jones 1999)"
-_SAMPLED = f"first-order conservative, exact overlaps of the cells sampled with at least {remap_polygons.EDGE_POINTS} points per edge (Jones 1999)"
+_SAMPLED = f"first-order conservative, exact overlaps of the cells sampled with at least {EDGE_POINTS} points per edge (Jones 1999)"
 _NEAREST = "nearest source cell centre (target cells more than two source spacings away stay missing)"
 
 REMAPPERS: dict[tuple[str, str], Remapper] = {
-    ("regular", "conservative"): Remapper(remap_regular.conservative, _EXACT),
-    ("regular", "bilinear"): Remapper(remap_regular.bilinear, "bilinear in latitude and longitude"),
-    ("regular", "nearest"): Remapper(remap_points.nearest, _NEAREST),
+    ("regular", "conservative"): Remapper(_lazy("remap_regular", "conservative"), _EXACT),
+    ("regular", "bilinear"): Remapper(_lazy("remap_regular", "bilinear"), "bilinear in latitude and longitude"),
+    ("regular", "nearest"): Remapper(_lazy("remap_points", "nearest"), _NEAREST),
     ("rotated", "conservative"): Remapper(_polygons("rotated"), _SAMPLED),
-    ("rotated", "bilinear"): Remapper(remap_points.bilinear_rotated, "bilinear in rotated latitude and longitude"),
-    ("rotated", "nearest"): Remapper(remap_points.nearest, _NEAREST),
+    ("rotated", "bilinear"): Remapper(_lazy("remap_points", "bilinear_rotated"), "bilinear in rotated latitude and longitude"),
+    ("rotated", "nearest"): Remapper(_lazy("remap_points", "nearest"), _NEAREST),
     ("curvilinear", "conservative"): Remapper(_polygons("curvilinear"), _SAMPLED),
-    ("curvilinear", "bilinear"): Remapper(remap_points.bilinear, "bilinear between the four nearest centres (pyresample)"),
-    ("curvilinear", "nearest"): Remapper(remap_points.nearest, _NEAREST),
+    ("curvilinear", "bilinear"): Remapper(_lazy("remap_points", "bilinear"), "bilinear between the four nearest centres (pyresample)"),
+    ("curvilinear", "nearest"): Remapper(_lazy("remap_points", "nearest"), _NEAREST),
     ("unstructured", "conservative"): Remapper(
-        remap_polygons.mesh_conservative,
+        _lazy("remap_polygons", "mesh_conservative"),
         "first-order conservative, exact overlaps of the spherical Voronoi cells of the mesh centres (global meshes); "
         "where the file gives the cell areas (regional meshes): area-weighted mean of the cells whose centres lie in each "
         "target cell, nearest cell where none (approximately conservative)",
     ),
-    ("unstructured", "nearest"): Remapper(remap_points.nearest, _NEAREST),
+    ("unstructured", "nearest"): Remapper(_lazy("remap_points", "nearest"), _NEAREST),
 }
 
 

@@ -30,13 +30,14 @@ import scipy.sparse as sp
 import shapely
 import xarray as xr
 
+from .remap import EDGE_POINTS
 from .remap_sparse import apply_matrix, cached
 from .spherical import EARTH_RADIUS, great_circle_points, to_lonlat, to_xyz, wrap_lon
 
 __all__ = ["EDGE_POINTS", "MAX_STEP", "cell_polygons", "edge_polygons", "overlap_matrix", "conservative", "mesh_conservative"]
 
-#: Sample points per cell edge, at least; more where an edge spans many degrees of longitude.
-EDGE_POINTS = 16
+# EDGE_POINTS: sample points per cell edge, at least; more where an edge spans many degrees of
+# longitude (defined beside the sentence the provenance shows, in remap.py)
 #: Longest step in longitude (degrees) between two sample points of an edge: the straight
 #: chord in (λ, sin φ) between them then misses the true edge by about 1e-6 of a cell's
 #: area (measured in the tests); near the poles an edge spans many degrees of longitude.
