@@ -14,6 +14,7 @@ depends on the clock.
 
 from __future__ import annotations
 
+import math
 import shutil
 import tempfile
 from collections.abc import Callable, Iterator
@@ -134,6 +135,8 @@ class SourcePlan:
     biases: tuple[str, ...] = ()
     split_files: bool = False
     generic_errors: bool = True
+    ensemble: str | None = None  # members of one ensemble share their model errors, not their weather
+    errors_stream: int | None = None  # the stream of the model errors; default the variability's
 
 
 REFERENCES = (
@@ -243,6 +246,34 @@ RUNS = (
 )
 
 
+#: An invented ensemble: three members of one model that share its injected biases and
+#: model errors (one errors stream) but each have their own weather (internal variability).
+ENSEMBLE_NAME = "fennel"
+ENSEMBLE = tuple(
+    SourcePlan(
+        name=f"fennel-r{i}",
+        role="model",
+        colour=colour,
+        layout=GridLayout(step=5.0, lon_from_zero=True),
+        calendar="noleap",
+        trend=0.24,
+        albedo=0.295,
+        net_toa=0.7,
+        variability=40 + i,
+        errors_stream=40,
+        start_delay=10,
+        variables=("tas", "pr"),
+        ensemble=ENSEMBLE_NAME,
+        summary=f"Member {i} of the invented ensemble {ENSEMBLE_NAME}; the members differ only by their "
+        "weather (internal variability). Injected biases, the same in every member: a warm Southern "
+        "Ocean (+2 K over the ocean between 65S and 45S, tapered over 2.5 degrees) and 20% too much "
+        "rain over the tropical oceans (20S-20N, tapered over 3 degrees).",
+        biases=("warm-southern-ocean", "wet-tropical-ocean"),
+    )
+    for i, colour in ((1, "#6a3d9a"), (2, "#8e6bbf"), (3, "#b39ddb"))
+)
+
+
 @dataclass(frozen=True)
 class DemoSize:
     """How big a demo collection is."""
@@ -257,6 +288,7 @@ class DemoSize:
     modes: int  # highest spherical-harmonic degree of the variability
     # benchmarks: every run carries every variable of the size, over the whole record
     uniform: bool = False
+    ensemble: bool = False  # add the members of ENSEMBLE after the runs
 
 
 SIZES: dict[str, DemoSize] = {
@@ -279,6 +311,7 @@ SIZES: dict[str, DemoSize] = {
         quantise=True,
         complevel=7,  # 9 saves 2 % more but takes four times as long
         modes=12,
+        ensemble=True,
     ),
     "large": DemoSize(
         years=30,
@@ -353,12 +386,15 @@ class Grid:
         """The bundled 1 degree land fraction remapped conservatively, in 0..1."""
         # xarray-regrid does the conservative remap; a 1 degree grid is its own answer.
         with xr.open_dataset(LAND_FRACTION_FILE) as ds:
-            source = ds["sftlf"].load()
+            source = ds["sftlf"].load().astype(np.float64)
         if self.step == 1.0:
-            return source.values.astype(np.float64)
+            return source.values
         target = xr.Dataset(coords={"lat": self.lat, "lon": self.lon})
         remapped = source.regrid.conservative(target, latitude_coord="lat")
-        return np.clip(remapped.values.astype(np.float64), 0.0, 1.0)
+        # the remap is a BLAS product (float64 here: its CPU-dependent last bits are
+        # ~1e-16); rounding to 2^-24 drops them unless a value lies that close to a
+        # rounding midpoint (about one cell in 10^8)
+        return np.clip(np.round(remapped.values * 2.0**24) / 2.0**24, 0.0, 1.0)
 
 
 def _harmonics(grid: Grid, degree: int) -> tuple[np.ndarray, np.ndarray]:
@@ -673,6 +709,35 @@ def _red_series(rng: np.random.Generator, months: int, count: int, rho: float) -
     return np.concatenate([shocks[:1], rest])
 
 
+#: Why the generator avoids plain BLAS products.  OpenBLAS picks its kernel for the CPU at
+#: run time, and kernels add the terms of a dot product in different orders; the float64
+#: results then differ in their last bits from one machine to another, and the BitRound
+#: quantisation of the committed sample turns the few values that lie that close to a
+#: rounding midpoint into a one-step difference (e.g. 0.125 W m-2 of rsut between 8 and
+#: 16 W m-2 at 6 kept bits).  Measured: regenerating with OPENBLAS_CORETYPE=Prescott
+#: changed 5 values in 4 of 34 files before this was done, none after.  Products keep
+#: this many fractional bits in their exact part (see :func:`_product`).
+FIXED_POINT_BITS = 20
+
+
+def _product(a: np.ndarray, b: np.ndarray) -> np.ndarray:
+    """``a @ b`` whose result does not depend on the BLAS kernel's order of additions.
+
+    Each factor is split into a multiple of 2^-FIXED_POINT_BITS and a remainder below
+    2^-(FIXED_POINT_BITS+1).  The product of the two coarse parts is a sum of multiples of
+    2^-(2 FIXED_POINT_BITS); while the sum of the absolute terms stays below 2^12 every
+    partial sum is exact in float64, so any order gives the same bits.  The remainder
+    terms are about 10^-6 of the result, so their own last-bit differences (~10^-22
+    relative) reach the rounded result only about once in a million values, and a stored
+    value only if that lands on a quantisation midpoint as well.
+    """
+    scale = 2.0**FIXED_POINT_BITS
+    a_hi, b_hi = np.round(a * scale) / scale, np.round(b * scale) / scale
+    if float((np.abs(a_hi) @ np.abs(b_hi)).max(initial=0.0)) >= 2.0 ** (52 - 2 * FIXED_POINT_BITS):
+        raise ValueError("factors too large for an exact fixed-point product")
+    return a_hi @ b_hi + ((a - a_hi) @ b + a_hi @ (b - b_hi))
+
+
 @dataclass(frozen=True)
 class Weather:
     """Smooth red-noise variability of one stream, defined on the collection's timeline.
@@ -701,7 +766,7 @@ class Weather:
         """Unit-RMS smooth noise, (months, lat, lon) for months offset..offset+months."""
         rng = self.streams.rng(WEATHER, self.stream, kind)
         series = _red_series(rng, self.months, degrees.size, rho)[offset : offset + months]
-        flat = (series * _spectrum(degrees, slope)) @ basis.reshape(degrees.size, -1)
+        flat = _product(series * _spectrum(degrees, slope), basis.reshape(degrees.size, -1))
         return flat.reshape(months, *basis.shape[1:])
 
     def enso(self, offset: int, months: int) -> np.ndarray:
@@ -732,7 +797,8 @@ class ModelErrors:
         amplitude = _spectrum(degrees, 0.5)
 
         def pattern() -> np.ndarray:
-            return np.tensordot(rng.standard_normal(degrees.size) * amplitude, basis, axes=1)
+            coefficients = (rng.standard_normal(degrees.size) * amplitude)[None, :]
+            return _product(coefficients, basis.reshape(degrees.size, -1)).reshape(basis.shape[1:])
 
         return cls(
             tas=0.6 * pattern(),
@@ -749,8 +815,12 @@ class ModelErrors:
 
 
 def _area_mean(field: np.ndarray, weights: np.ndarray) -> np.ndarray:
-    """Area-weighted mean over the last two axes (weights sum to 1)."""
-    return np.tensordot(field, weights, axes=([-2, -1], [0, 1]))
+    """Area-weighted mean over the last two axes (weights sum to 1).
+
+    numpy's own pairwise sum, not a BLAS product: its order of additions is fixed by the
+    code, not by the CPU (see :data:`FIXED_POINT_BITS`).
+    """
+    return (field * weights).sum(axis=(-2, -1))
 
 
 def _damp_global(noise: np.ndarray, weights: np.ndarray, *, keep: float = 0.4) -> np.ndarray:
@@ -769,7 +839,10 @@ def annual_global_trend(series: np.ndarray) -> float:
     months weigh equally, whatever the calendar.
     """
     annual = series.reshape(-1, 12).mean(axis=1)
-    return float(np.polyfit(np.arange(annual.size), annual, 1)[0] * 10.0)
+    # the closed-form OLS slope with correctly rounded sums (math.fsum), not a LAPACK
+    # least-squares fit whose last bits depend on the CPU
+    x = np.arange(annual.size) - (annual.size - 1) / 2.0
+    return math.fsum(x * annual) / math.fsum(x * x) * 10.0
 
 
 def _trend_ramp(series: np.ndarray, target: float, years: np.ndarray, at: np.ndarray) -> np.ndarray:
@@ -841,6 +914,8 @@ def source_fields(
         tas_clim = tas_clim - 3.0 * (f * _band(geo.lat, 35.0, 70.0, 2.5))[None]
     if "warm-polar" in plan.biases:
         tas_clim = tas_clim + 1.0 * _ramp(np.abs(geo.lat), 57.5, 62.5)[None]
+    if "warm-southern-ocean" in plan.biases:
+        tas_clim = tas_clim + 2.0 * ((1 - f) * _band(geo.lat, -65.0, -45.0, 2.5))[None]
     pattern = _warming_pattern(geo, weights)[None]
     tas_noise = (0.4 + 0.8 * f + 1.6 * s**2)[None] * noise(TAS_NOISE, 0.55) + 0.9 * enso
     tas_noise = _damp_global(tas_noise, weights)
@@ -862,6 +937,8 @@ def source_fields(
         pacific = ((1 - f) * _pacific(geo.lon))[None]
         pr_clim = pr_clim * (1 - 0.3 * pacific * _gauss(geo.lat, 0.0, 3.0)[None])
         pr_clim = pr_clim + 5.0 * pacific * _band(geo.lat, -12.0, -5.0, 2.0)[None]
+    if "wet-tropical-ocean" in plan.biases:
+        pr_clim = pr_clim * (1 + 0.2 * ((1 - f) * _band(geo.lat, -20.0, 20.0, 3.0))[None])
     sigma = 0.3
     pr_mm = np.exp(sigma * noise(PR_NOISE, 0.3) - sigma**2 / 2 + 0.5 * enso - 0.125 * enso**2)
     pr_mm *= pr_clim[month]
@@ -879,7 +956,7 @@ def source_fields(
     kept = slice(12 * ((toa_first_year or axis.first_year) - axis.first_year), None)
     zonal_weights = weights.sum(axis=1)
     insolation = monthly_insolation(grid.lat, axis)  # (time, lat): zonally uniform
-    rsdt_mean = insolation @ zonal_weights
+    rsdt_mean = (insolation * zonal_weights).sum(axis=1)
     albedo = albedo_climatology(geo, itcz_shift=errors.itcz_shift) + errors.albedo[None]
     rsut = np.clip(albedo[month] + _damp_global(0.008 * noise(ALBEDO_NOISE, 0.3), weights), 0.03, 0.9)
     rsut *= insolation[:, :, None]
@@ -1193,15 +1270,17 @@ class _Plan:
 
 
 def _manifest(build: _Plan, size_name: str, seed: int) -> str:
-    runs = sum(p.role == "model" for p in build.plans)
-    references = len(build.plans) - runs
+    members = sum(p.ensemble is not None for p in build.plans)
+    runs = sum(p.role == "model" for p in build.plans) - members
+    references = len(build.plans) - runs - members
+    ensemble = f", an ensemble of {members} members" if members else ""
     lines = [
         DEMO_MARKER + f" (evaluation.demo.write_demo, size={size_name!r}, seed={seed}); "
         "rerunning `gridscore demo` on this folder replaces it",
         'title = "gridscore demo: an invented ensemble"',
         "description = "
         + _toml_string(
-            f"Invented scenario, monthly {build.first_year}-{LAST_YEAR}: {runs} model runs and "
+            f"Invented scenario, monthly {build.first_year}-{LAST_YEAR}: {runs} model runs{ensemble} and "
             f"{references} observation-like references; every name and value is synthetic. "
             "README.md lists the injected biases."
         ),
@@ -1220,6 +1299,7 @@ def _manifest(build: _Plan, size_name: str, seed: int) -> str:
             f"role = {_toml_string(plan.role)}",
             "paths = [" + ", ".join(_toml_string(g) for g in globs) + "]",
             f"colour = {_toml_string(plan.colour)}",
+            *([f"ensemble = {_toml_string(plan.ensemble)}"] if plan.ensemble else []),
             f"description = {_toml_string(build.describe(plan))}",
             "",
         ]
@@ -1243,8 +1323,9 @@ def _readme(build: _Plan, size_name: str, seed: int, folder: str) -> str:
         toa = f"{plan.net_toa:+.1f}" + (
             f", drift {plan.net_toa_drift:+.1f} per decade" if plan.net_toa_drift else ""
         )
+        role = f"{plan.role} ({plan.ensemble} member)" if plan.ensemble else plan.role
         rows.append(
-            f"| {plan.name} | {plan.role} | {', '.join(notes)} | {plan.calendar} | "
+            f"| {plan.name} | {role} | {', '.join(notes)} | {plan.calendar} | "
             f"{span} | {' '.join(plan.variables)} | {plan.trend:.2f} | "
             f"{plan.albedo:.3f} | {toa} |"
         )
@@ -1293,6 +1374,7 @@ def _readme(build: _Plan, size_name: str, seed: int, folder: str) -> str:
         "150 Pa in psl, 0.012 in albedo and 3 W m-2 in rlut), a seasonal cycle up to 12 % too "
         "weak or too strong and a rain belt shifted by up to 1.5°, so no run is perfect.",
         "",
+        *_ensemble_paragraph(build),
     ]
     construction = [
         "## How the fields are built",
@@ -1331,16 +1413,51 @@ def _readme(build: _Plan, size_name: str, seed: int, folder: str) -> str:
         f"gridscore serve {folder}",
         f"gridscore score --reference '{folder}/references/tessera-obs/*.nc' \\",
         f"    --model larkspur-2='{folder}/runs/larkspur-2/*.nc' --variable tas --region land",
+        *_ensemble_command(build, folder),
         "```",
         "",
     ]
     return "\n".join(header + construction)
 
 
+def _ensembles(build: _Plan) -> dict[str, list[SourcePlan]]:
+    groups: dict[str, list[SourcePlan]] = {}
+    for plan in build.plans:
+        if plan.ensemble:
+            groups.setdefault(plan.ensemble, []).append(plan)
+    return groups
+
+
+def _ensemble_paragraph(build: _Plan) -> list[str]:
+    lines = []
+    for name, members in _ensembles(build).items():
+        lines += [
+            f"**{name}** is an ensemble of {len(members)} members ({', '.join(p.name for p in members)}; "
+            f'`ensemble = "{name}"` in the manifest): one invented model run {len(members)} times. The members share '
+            "the model's injected biases and its smooth errors (one random stream) and differ only by their weather, "
+            "each an independent draw of the same red-noise variability, so their spread is internal variability and "
+            "their mean has less of it than any member.",
+            "",
+        ]
+    return lines
+
+
+def _ensemble_command(build: _Plan, folder: str) -> list[str]:
+    lines = []
+    for name, members in _ensembles(build).items():
+        models = " ".join(f"--model {p.name}='{folder}/runs/{p.name}/*.nc'" for p in members)
+        lines += [
+            f"gridscore score --reference '{folder}/references/tessera-obs/*.nc' \\",
+            f"    {models} \\",
+            f"    --ensemble {name}={','.join(p.name for p in members)} --variable tas",
+        ]
+    return lines
+
+
 def _build_plan(size: DemoSize, runs: int, years: int) -> _Plan:
     first_year = LAST_YEAR - years + 1
     plans = []
-    for plan in REFERENCES + scenario_runs(runs):
+    for plan in REFERENCES + scenario_runs(runs) + (ENSEMBLE if size.ensemble else ()):
         wanted = size.variables if size.uniform and plan.role == "model" else plan.variables
         variables = tuple(v for v in wanted if v in size.variables)
         plans.append(replace(plan, variables=variables, toa_from=None if size.uniform else plan.toa_from))
@@ -1362,7 +1479,7 @@ def _generate(build: _Plan, folder: Path, size: DemoSize, size_name: str, seed: 
         weather = Weather(streams, plan.variability, build.first_year, months, size.modes)
         own = Weather(streams, 100 + index, build.first_year, months, size.modes)
         errors = (
-            ModelErrors.draw(streams.rng(ERRORS, plan.variability), grid)
+            ModelErrors.draw(streams.rng(ERRORS, plan.variability if plan.errors_stream is None else plan.errors_stream), grid)
             if plan.generic_errors
             else ModelErrors.none((grid.lat.size, grid.lon.size))
         )
