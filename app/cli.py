@@ -214,6 +214,23 @@ def _print_wide(table, *, title: str) -> None:
     wide = wide_table(table)
     print(title)
     print(wide.to_markdown(index=False, floatfmt=".4g"))
+    _print_best(table)
+
+
+def _print_best(table) -> None:
+    """Which run is best by more than sampling noise, per region and season (evaluation.bootstrap.BEST_RULE)."""
+    from evaluation.bootstrap import BEST_RULE, GUARDED_BEST, confirmed_best
+
+    if not set(GUARDED_BEST.values()) & set(table["metric"]):
+        return
+    best = confirmed_best(table)
+    parts = []
+    for region, season in table[["region", "season"]].drop_duplicates().itertuples(index=False):
+        here = best[(best["region"] == region) & (best["season"] == season)]
+        named = {m: ", ".join(here.loc[here["metric"] == m, "model"]) or "none" for m in ("rmse", "bias")}
+        parts.append(f"{region} {season}: RMSE {named['rmse']}, bias {named['bias']}")
+    print("Best by more than sampling noise: " + "; ".join(parts))
+    print(f"  ({BEST_RULE})")
 
 
 def _cmd_budget(args) -> int:

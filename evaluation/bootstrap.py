@@ -40,16 +40,23 @@ from __future__ import annotations
 
 from collections.abc import Mapping
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
 import numpy as np
 
+if TYPE_CHECKING:
+    import pandas as pd
+
 __all__ = [
     "CONFIDENCE",
+    "BEST_RULE",
+    "GUARDED_BEST",
     "INTERVAL_METRICS",
     "RESAMPLES",
     "SEED",
     "ErrorMoments",
     "block_weights",
+    "confirmed_best",
     "difference_intervals",
     "error_moments",
     "expanded_tail",
@@ -60,6 +67,18 @@ __all__ = [
 
 #: The tidy metrics of the intervals (:func:`difference_intervals`).
 INTERVAL_METRICS = ("rmse_diff_lo", "rmse_diff_hi", "abs_bias_diff_lo", "abs_bias_diff_hi")
+#: The metrics whose "best" marking an interval guards -> the interval's upper end, which
+#: must lie below zero (relative error orders runs as RMSE does).
+GUARDED_BEST = {"rmse": "rmse_diff_hi", "rel_error": "rmse_diff_hi", "bias": "abs_bias_diff_hi"}
+#: The rule, as the command line, the dashboard and the README state it.
+BEST_RULE = (
+    "A run is marked best in RMSE and relative error only where the 95 % bootstrap interval of its RMSE "
+    "minus the RMSE of the best other run lies wholly below zero (rmse_diff_hi < 0), and best in bias only "
+    "where the interval of its |bias| minus the smallest |bias| of the other runs does (abs_bias_diff_hi < 0); "
+    "otherwise no run is marked, because the difference is within the sampling noise of the years "
+    "(moving-block bootstrap over years, Künsch 1989, block length of Wilks 1997, 2000 draws, fixed seed). "
+    "The other runs are every run scored against the same reference, also those not shown."
+)
 #: Number of bootstrap draws.
 RESAMPLES = 2000
 #: Seed of the draws: the same request gives the same interval every time.
@@ -271,3 +290,27 @@ def difference_intervals(
             "years": n,
         }
     return out
+
+
+def confirmed_best(table: pd.DataFrame) -> pd.DataFrame:
+    """The runs marked best by :data:`BEST_RULE` in a tidy score table.
+
+    Returns
+    -------
+    DataFrame
+        Columns ``reference variable level region season period metric model``: one row
+        per metric of :data:`GUARDED_BEST` and case where a run's interval lies wholly
+        below zero (at most one run per case: the interval is against the best other run).
+    """
+    import pandas as pd
+
+    keys = ["reference", "variable", "level", "region", "season", "period"]
+    columns = [*keys, "metric", "model"]
+    upper = table[table["metric"].isin(set(GUARDED_BEST.values()))]
+    rows = []
+    for metric, bound in GUARDED_BEST.items():
+        below = upper[(upper["metric"] == bound) & (pd.to_numeric(upper["value"], errors="coerce") < 0)]
+        for _, r in below.iterrows():
+            if ((table["metric"] == metric) & (table["model"] == r["model"])).any():
+                rows.append((*(r[k] for k in keys), metric, r["model"]))
+    return pd.DataFrame(rows, columns=columns)

@@ -248,7 +248,8 @@ class MapsView(ResultView):
         "Means use one shared colour scale; differences and trends are centred on zero "
         "(blue: below the reference or decreasing, red: above or increasing). "
         "Hover for values; the dashed outline is the selected region; drag with the box-select tool "
-        "to use a box as the region."
+        "to use a box as the region. On run-minus-reference and trend maps, dots mark cells that stand out from "
+        "interannual variability (rule below the maps)."
     )
 
     def _layout_of(self, request: Request) -> list[tuple[str, str, bool]]:
@@ -310,7 +311,7 @@ class MapsView(ResultView):
         downloads = [self._field_download(item, request, mask) for item, mask in zip(data["items"], masks, strict=True)]
         legend = []
         if any(m is not None for m in masks):
-            legend.append(pn.pane.HTML(f'<div class="gs-hint gs-stipple-legend">{STIPPLE_LEGEND.capitalize()}: {STIPPLE_RULE}</div>', margin=(0, 10, 4, 10)))
+            legend.append(pn.pane.HTML(f'<div class="gs-hint gs-stipple-legend">{STIPPLE_LEGEND[0].upper() + STIPPLE_LEGEND[1:]}: {STIPPLE_RULE}</div>', margin=(0, 10, 4, 10)))
         return pn.Column(
             plot,
             *legend,

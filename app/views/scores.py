@@ -16,6 +16,7 @@ import pandas as pd
 import panel as pn
 from bokeh.models.widgets.tables import HTMLTemplateFormatter, NumberFormatter
 
+from evaluation.bootstrap import BEST_RULE, GUARDED_BEST
 from evaluation.export import METRIC_ORDER, provenance_bytes, provenance_for, sidecar_path, table_bytes, wide_table
 from evaluation.metrics import METRICS
 from evaluation.regions import parse_region
@@ -94,6 +95,7 @@ P_VALUE_FORMAT = HTMLTemplateFormatter(
 GROUPS: dict[str, tuple[str, ...]] = {
     "Climatology": ("mean", "ref_mean", "bias", "rmse", "crmse", "corr", "std_ratio", "taylor_skill", "rel_error"),
     "Trends and variability": ("trend", "ref_trend", "trend_pvalue", "ref_trend_pvalue", "iav_ratio"),
+    "Significance": ("bias_signif_area", "rmse_diff_lo", "rmse_diff_hi", "abs_bias_diff_lo", "abs_bias_diff_hi"),
 }
 
 
@@ -111,10 +113,13 @@ def within_best(shown: pd.DataFrame, pairs: pd.DataFrame, metrics: list[str]) ->
     return marks
 
 
-def score_widget(shown: pd.DataFrame, units: dict[str, str], within: dict[str, list[bool]] | None = None) -> pn.widgets.Tabulator:
+def score_widget(shown: pd.DataFrame, units: dict[str, str], within: dict[str, list[bool]] | None = None,
+                 confirmed: dict[str, list[bool]] | None = None) -> pn.widgets.Tabulator:
     """A sortable table of runs × metrics with formatted numbers and the best values marked;
     with ``within`` (:func:`within_best`), the values tied with the best within observational
-    uncertainty are underlined and named in a text column."""
+    uncertainty are underlined and named in a text column; with ``confirmed`` (metric -> runs
+    whose bootstrap interval excludes zero, :data:`evaluation.bootstrap.BEST_RULE`), a metric
+    it names marks only those runs."""
     metrics = list(units)
     if within:
         shown = shown.copy()
@@ -136,6 +141,9 @@ def score_widget(shown: pd.DataFrame, units: dict[str, str], within: dict[str, l
         formatters[WITHIN_COLUMN] = {"type": "textarea"}  # wraps the list of metric names
         tooltips[WITHIN_COLUMN] = "Metrics in which this run is within observational uncertainty of the best run"
     marks = {m: best_rows(shown[m], m) for m in metrics}
+    for m, allowed in (confirmed or {}).items():
+        if m in marks:
+            marks[m] = [b and a for b, a in zip(marks[m], allowed, strict=True)]
 
     def highlight(column: pd.Series) -> list[str]:
         flags = marks.get(str(column.name), [False] * len(column))
@@ -169,7 +177,7 @@ class ScoresView(ResultView):
     explanation = (
         "Area-weighted statistics of each run against the reference for the selected region, "
         "season and period. The best value of each column is highlighted (bias: nearest zero; "
-        "ratios: nearest one). With several references, values within observational uncertainty of "
+        "ratios: nearest one; bias, RMSE and relative error only where the bootstrap interval excludes zero, rule below). With several references, values within observational uncertainty of "
         "the best are underlined and named in the last column (the rule is stated below the table's "
         "context line). Click a header to sort; hover a header for the definition."
     )
@@ -206,13 +214,16 @@ class ScoresView(ResultView):
         if tidy.empty:
             return pn.pane.HTML('<div class="gs-empty">No scores for this selection.</div>')
         shown, units = self.table(tidy)
+        # "best" only where the bootstrap interval against the best other run excludes zero
+        confirmed = {m: [bool(v < 0) for v in pd.to_numeric(shown[bound], errors="coerce")]
+                     for m, bound in GUARDED_BEST.items() if bound in shown.columns}
         tables = []
         for heading, group in GROUPS.items():
             metrics = [m for m in group if m in units]
             if metrics:
                 tables.append(pn.pane.HTML(f'<div class="gs-section-title">{text_html(heading)}</div>', margin=(6, 10, 2, 10)))
                 within = within_best(shown, data["pairs"], metrics) if data.get("pairs") is not None else None
-                tables.append(score_widget(shown[["Run", *metrics]], {m: units[m] for m in metrics}, within))
+                tables.append(score_widget(shown[["Run", *metrics]], {m: units[m] for m in metrics}, within, confirmed))
         others = [m for m in units if not any(m in g for g in GROUPS.values())]
         if others:
             tables.append(score_widget(shown[["Run", *others]], {m: units[m] for m in others}))
@@ -222,6 +233,8 @@ class ScoresView(ResultView):
             f"median over all {data['runs']} runs of the collection (Gleckler et al. 2008)."
         )
         parts: list[Any] = [pn.pane.HTML(f'<div class="gs-hint">{text_html(context)}</div>', margin=(0, 10, 6, 10))]
+        if confirmed:
+            parts.append(pn.pane.HTML(f'<div class="gs-hint gs-best-rule">{text_html(BEST_RULE)}</div>', margin=(0, 10, 6, 10)))
         if data.get("alternatives"):
             rule = (
                 f"Observational uncertainty, from the references {', '.join([request.reference, *data['alternatives']])}: "
