@@ -193,13 +193,15 @@ def error_moments(difference: np.ndarray, weights: np.ndarray, years: np.ndarray
     keep = w > 0
     d = np.asarray(difference, dtype="float64")[:, keep]
     w = w[keep] / w[keep].sum()
-    return ErrorMoments(np.asarray(years, dtype="float64"), (d * w) @ d.T, d @ w)
+    # einsum rather than a BLAS product: on a shared machine a threaded BLAS spent ~80x the
+    # CPU time on these thin (years x cells) products (benchmarks/significance.py)
+    return ErrorMoments(np.asarray(years, dtype="float64"), np.einsum("tc,sc->ts", d * w, d), np.einsum("tc,c->t", d, w))
 
 
 def resampled_scores(moments: ErrorMoments, draws: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """RMSE and bias of the climatologies over each draw (rows of ``draws``, weights over the years)."""
-    squared = np.einsum("bi,ij,bj->b", draws, moments.gram, draws)
-    return np.sqrt(np.clip(squared, 0.0, None)), draws @ moments.bias
+    squared = np.einsum("bj,bj->b", np.einsum("bi,ij->bj", draws, moments.gram), draws)
+    return np.sqrt(np.clip(squared, 0.0, None)), np.einsum("bi,i->b", draws, moments.bias)
 
 
 def difference_intervals(
