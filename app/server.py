@@ -222,6 +222,14 @@ def build_session(results: Results) -> pn.template.BaseTemplate:
     location = pn.state.location
     if location is not None and location.search:
         selection.apply_query(parse_query(location.search))
+    # Years already known (the comparison is open: warmed, or asked for by another session):
+    # settled before the page is built, so that it opens on the period instead of a
+    # placeholder slider and "checking the years…".
+    known = results.known_period(*selection.span_key)
+    if known is not None:
+        selection.settle(known[0], known[1])
+        for reason in known[2]:
+            selection.notify(f"Left out of the {selection.variable} comparison: {reason}")
     page = build(selection, results)
 
     async def settle() -> None:
@@ -254,7 +262,10 @@ def build_session(results: Results) -> pn.template.BaseTemplate:
     # Through the page gate: a URL written while the page loads could be dropped, and
     # writing the same value again later would then change nothing.
     selection.param.watch(lambda *events: on_document(doc, write_url), ["request", "tab"])
-    pn.state.execute(settle)
+    if known is None:
+        pn.state.execute(settle)
+    else:
+        selection.param.trigger("request")  # the views (built after the request) draw it
     return page
 
 

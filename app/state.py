@@ -11,7 +11,10 @@ The URL query carries every value, defaults included, under the names ``variable
 (comma-separated), ``region``, ``season``, ``period`` (``YYYY-YYYY``), ``field``,
 ``target_grid`` (``reference``, a source's name or a spacing such as ``2.5x2.5``; the
 options are the collection's), ``overview_by`` (what the overview shows besides the
-variables: ``variable`` alone, ``season`` or ``region``; see :data:`OVERVIEW_BY`) and ``tab``.  Query values are validated against the options
+variables: ``variable`` alone, ``season`` or ``region``; see :data:`OVERVIEW_BY`), ``taylor``
+(the Taylor diagram's scale: ``normalised`` or ``absolute``; :data:`TAYLOR_SCALES`), ``sort``
+(the score table's sort column, a metric key or ``model``, with ``-`` in front for
+descending; empty for the collection's order of runs) and ``tab``.  Query values are validated against the options
 before they are applied; a bad value falls back to the default and leaves a notice.
 
 This module does not import Panel: the state can be built and tested without a server.
@@ -28,6 +31,7 @@ import param
 
 from evaluation.errors import InputError
 from evaluation.levels import default_level, parse_level
+from evaluation.metrics import METRICS
 from evaluation.regions import parse_region
 from evaluation.timeaxis import SEASONS, Period, parse_period, parse_season
 
@@ -36,6 +40,9 @@ __all__ = [
     "OVERVIEW_BY",
     "TABS",
     "QUERY_NAMES",
+    "SORT_KEYS",
+    "TAYLOR_SCALES",
+    "parse_sort",
     "Options",
     "Request",
     "Selection",
@@ -68,7 +75,33 @@ TABS: dict[str, str] = {
 }
 
 #: The URL query names, in the order they are written.
-QUERY_NAMES: tuple[str, ...] = ("variable", "level", "reference", "models", "region", "season", "period", "field", "target_grid", "overview_by", "tab")
+QUERY_NAMES: tuple[str, ...] = (
+    "variable", "level", "reference", "models", "region", "season", "period", "field", "target_grid", "overview_by", "taylor", "sort", "tab",
+)
+
+#: The Taylor diagram's scales (URL ``taylor``): value -> label.
+TAYLOR_SCALES: dict[str, str] = {
+    "normalised": "Normalised: standard deviations divided by the reference's",
+    "absolute": "In the variable's units",
+}
+#: The score table's sort columns (URL ``sort``, ``-`` in front for descending): the run's
+#: name (``model``, the tidy table's column) or a metric of the registry.
+SORT_KEYS: tuple[str, ...] = ("model", *METRICS)
+
+
+def parse_sort(text: str) -> tuple[str, bool] | None:
+    """``(key, descending)`` of a ``sort`` URL value; ``None`` for the collection's order.
+
+    Raises :class:`InputError` for a key that is not in :data:`SORT_KEYS`.
+    """
+    value = str(text).strip()
+    if not value:
+        return None
+    descending = value.startswith("-")
+    key = value[1:] if descending else value
+    if key not in SORT_KEYS:
+        raise InputError(f"unknown sort column '{key}'", remedy=f"use one of {', '.join(SORT_KEYS)}, with '-' in front for descending")
+    return key, descending
 
 #: The overview's sub-views (URL ``overview_by``): value -> label.  ``variable``: one value per
 #: run and variable for the sidebar's region and season; ``season``: every season for the
@@ -128,6 +161,8 @@ class Request:
     level: str = ""  # "500 hPa"; empty for a variable without levels
     target_grid: str = "reference"  # the common grid: reference, a source's name or a spacing
     overview_by: str = "variable"  # the overview's sub-view (OVERVIEW_BY)
+    taylor: str = "normalised"  # the Taylor diagram's scale (TAYLOR_SCALES)
+    sort: str = ""  # the score table's sort: "rmse", "-corr"; "" for the collection's order
 
     def query(self, *, tab: str) -> dict[str, str]:
         """Every URL value of this request, defaults included.
@@ -146,6 +181,8 @@ class Request:
             "field": self.field,
             "target_grid": self.target_grid,
             "overview_by": self.overview_by,
+            "taylor": self.taylor,
+            "sort": self.sort,
             "tab": tab,
         }
 
@@ -227,6 +264,8 @@ class Selection(param.Parameterized):
     tab = param.Selector(default="maps", objects=list(TABS), doc="The view on display.")
     target_grid = param.Selector(default="reference", objects=["reference"], doc="The common grid every source is remapped onto.")
     overview_by = param.Selector(default="variable", objects=list(OVERVIEW_BY), doc="The overview's sub-view.")
+    taylor = param.Selector(default="normalised", objects=list(TAYLOR_SCALES), doc="The Taylor diagram's scale.")
+    sort = param.String(default="", doc="The score table's sort column ('-' in front: descending); '' for the collection's order.")
 
     span = param.ClassSelector(class_=Period, default=None, allow_None=True, doc="Years every source covers.")
     default_period = param.ClassSelector(class_=Period, default=None, allow_None=True)
@@ -257,7 +296,7 @@ class Selection(param.Parameterized):
         self._set_variable(self.param.variable.default)
         self.param.watch(self._variable_changed, ["variable"])
         self.param.watch(self._span_source_changed, ["reference"])
-        self.param.watch(self._choice_changed, ["models", "region", "season", "period", "field", "level", "target_grid", "overview_by"])
+        self.param.watch(self._choice_changed, ["models", "region", "season", "period", "field", "level", "target_grid", "overview_by", "taylor", "sort"])
 
     # ------------------------------------------------------------------ options
     def _set_variable(self, variable: str) -> None:
@@ -297,6 +336,8 @@ class Selection(param.Parameterized):
             "field": self.param.field.default,
             "target_grid": self.param.target_grid.default,
             "overview_by": self.param.overview_by.default,
+            "taylor": self.param.taylor.default,
+            "sort": self.param.sort.default,
             "tab": self.param.tab.default,
         }
 
@@ -408,6 +449,22 @@ class Selection(param.Parameterized):
                 else:
                     self.notify(f"Overview sub-view '{_echo(value)}' is not known ({', '.join(OVERVIEW_BY)}); showing {self.param.overview_by.default}.")
                     self.overview_by = self.param.overview_by.default
+        if "taylor" in query:
+            value = query["taylor"].strip()
+            with param.parameterized.discard_events(self):
+                if value in TAYLOR_SCALES:
+                    self.taylor = value
+                else:
+                    self.notify(f"Taylor scale '{_echo(value)}' is not known ({', '.join(TAYLOR_SCALES)}); showing {self.param.taylor.default}.")
+                    self.taylor = self.param.taylor.default
+        if "sort" in query:
+            try:
+                parsed = parse_sort(query["sort"])
+            except InputError as error:
+                self.notify(f"{_sentence(error.problem)}; showing the runs in the collection's order.")
+                parsed = None
+            with param.parameterized.discard_events(self):
+                self.sort = "" if parsed is None else ("-" if parsed[1] else "") + parsed[0]
         if "tab" in query:
             value = query["tab"].strip()
             if value in self.param.tab.objects:
@@ -492,6 +549,8 @@ class Selection(param.Parameterized):
             level=self.level,
             target_grid=self.target_grid,
             overview_by=self.overview_by,
+            taylor=self.taylor,
+            sort=self.sort,
         )
         if request != self.request:
             self.request = request
@@ -538,6 +597,14 @@ class Selection(param.Parameterized):
                 return
             if str(asked) != event.new:
                 self.period = str(asked)
+                return
+        if event.name == "sort":
+            try:
+                parse_sort(event.new)
+            except InputError as error:
+                self.notify(f"{_sentence(error.problem)}; kept the previous order.")
+                with param.parameterized.discard_events(self):
+                    self.sort = event.old
                 return
         if event.name == "models" and not event.new:
             self.notify("Pick at least one model run; kept the previous choice.")

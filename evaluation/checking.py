@@ -159,6 +159,11 @@ def check_file(path: str) -> FileReport:
             report.variables = [
                 v for v in report.variables if v["name"] not in (desc.lat, desc.lon)
             ]  # 2-D coordinates
+            # CF flag variables (CF 1.10 section 3.5: flag_values/flag_meanings, no units) are
+            # status masks beside a field, such as the stippling of a map download: not scored
+            flags = sorted(str(k) for k, var in raw.data_vars.items() if "flag_meanings" in var.attrs)
+            report.variables = [v for v in report.variables if v["name"] not in flags]
+            report.notes += [f"variable '{name}' is a CF flag variable (a mask beside the data), not scored" for name in flags]
             report.notes += list(desc.notes)
             if desc.kind == "regular":
                 report.notes += _bounds_notes(raw, desc)

@@ -111,6 +111,14 @@ def test_field_download_carries_the_flags(comparison, tmp_path) -> None:
     assert back[str(flags.name)].dtype == np.int8
     assert back[str(flags.name)].attrs["flag_meanings"] == "not_tested not_significant significant"
     np.testing.assert_array_equal(np.asarray(back[str(flags.name)].values).squeeze(), flags.values)
+    # gridscore check reads the download: the field can be scored, the flag variable (CF: no
+    # units needed) is named as a mask, not refused for want of units
+    from evaluation.checking import check_file
+
+    report = check_file(str(tmp_path / "field.nc"))
+    assert report.can_score, report.problems
+    assert [v["name"] for v in report.variables] == [str(field.name)]
+    assert any(str(flags.name) in note for note in report.notes)
 
 
 def test_significant_area_row_is_the_stippled_area(comparison) -> None:
@@ -129,6 +137,15 @@ def test_significant_area_row_is_the_stippled_area(comparison) -> None:
     row = table[(table.model == "run") & (table.metric == "bias_signif_area")].set_index("region")["value"]
     assert row["global"] == pytest.approx(float((area * reject).sum() / (area * finite).sum()), rel=1e-9)
     assert (table.loc[table.metric == "bias_signif_area", "units"] == "1").all()
+
+
+def test_confirmed_best_names_the_clearly_better_run(comparison) -> None:
+    # the run with a 0.4 K bump against the one with 1.5 K: better in RMSE and |bias| by far more
+    # than the years' noise, so it is the one run marked (evaluation.bootstrap.BEST_RULE)
+    from evaluation.bootstrap import confirmed_best
+
+    best = confirmed_best(comparison.scores(regions=["global"], seasons=["ANN"]))
+    assert sorted(best["metric"]) == ["bias", "rel_error", "rmse"] and set(best["model"]) == {"other"}
 
 
 def test_interval_rows(comparison) -> None:

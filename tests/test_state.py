@@ -66,8 +66,10 @@ def test_every_value_is_written_defaults_included(results: Results) -> None:
     query = selection.query()
     # the contract names of the issue, every one present and none empty
     assert tuple(query) == QUERY_NAMES
-    # every one but the level, which is empty for a variable without levels
-    assert all(query[name] for name in QUERY_NAMES if name != "level")
+    # every one but the level, which is empty for a variable without levels, and the sort,
+    # empty for the collection's order of runs
+    assert all(query[name] for name in QUERY_NAMES if name not in ("level", "sort"))
+    assert query["sort"] == ""
     assert query["level"] == ("" if not results.levels(query["variable"]) else query["level"])
     assert query == selection.defaults()
     # the default period is the core's default rule for these sources
@@ -86,6 +88,8 @@ def test_url_round_trip_reproduces_the_view(results: Results) -> None:
     span = first.span
     first.period = f"{span.start + 1}-{span.end}"
     first.field = "model_trend"
+    first.taylor = "absolute"
+    first.sort = "-rmse"
     first.tab = "taylor"
     search = query_string(first.query())
     second = settled(results, parse_query(search))
@@ -101,8 +105,11 @@ def test_query_names_are_the_contract() -> None:
     # issue 3, "Shareable link": these names exactly
     # and `level`, the vertical level of a variable on levels (the --level of the CLI),
     # and `target_grid`, the common grid (the --target-grid of the CLI),
-    # and `overview_by`, the overview's sub-view (issue 12, item 9)
-    assert QUERY_NAMES == ("variable", "level", "reference", "models", "region", "season", "period", "field", "target_grid", "overview_by", "tab")
+    # and `overview_by`, the overview's sub-view, `taylor`, the Taylor diagram's scale, and
+    # `sort`, the score table's sort column (issue 12, item 9)
+    assert QUERY_NAMES == (
+        "variable", "level", "reference", "models", "region", "season", "period", "field", "target_grid", "overview_by", "taylor", "sort", "tab",
+    )
 
 
 def test_level_from_a_link_is_read_in_any_units(results: Results) -> None:

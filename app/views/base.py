@@ -23,7 +23,7 @@ import param
 from panel.viewable import Viewer
 
 from evaluation.errors import InputError
-from evaluation.regions import parse_region
+from evaluation.regions import region_label
 
 from ..state import Request, Selection
 from .results import Results
@@ -102,8 +102,15 @@ class PageGate:
     def open(self) -> None:
         self.loaded = True
         pending, self.pending = self.pending, []
+        # Each change in a tick of its own, in order: made in one go they reach the browser
+        # as one patch, and a small change (the period's years) would appear only once the
+        # heaviest (a view's plots, seconds to render) had been drawn.
+        doc = pn.state.curdoc
         for change in pending:
-            change()
+            if doc is None or getattr(doc, "session_context", None) is None:
+                change()
+            else:
+                doc.add_next_tick_callback(change)
 
     def close(self, session_context: Any) -> None:
         """Forget the queued changes of a session that ended before its page loaded.
@@ -225,7 +232,7 @@ class ResultView(Viewer):
         if "models" in self.uses:
             parts.append(", ".join(request.models))
         if "region" in self.uses:
-            parts.append(parse_region(request.region).label)
+            parts.append(region_label(request.region))
         if "season" in self.uses:
             parts.append(request.season)
         if "period" in self.uses:

@@ -12,7 +12,7 @@ import panel as pn
 import param
 from panel.viewable import Viewer
 
-from evaluation.regions import REGIONS, parse_region
+from evaluation.regions import REGIONS, region_label
 from evaluation.timeaxis import MONTH_NAMES
 
 from ..state import FIELDS, Selection
@@ -97,7 +97,7 @@ class Controls(Viewer):
             css_classes=["gs-season"],
         )
         self.period = pn.widgets.IntRangeSlider(
-            label="Period", start=1900, end=2000, value=(1900, 2000), step=1, disabled=True, css_classes=["gs-period"]
+            label="Period", start=1900, end=2000, value=(1900, 2000), step=1, disabled=True, visible=False, css_classes=["gs-period"]
         )
         self.period_note = pn.pane.HTML("", margin=(0, 10))
         self.reset_period = pn.widgets.Button(label="Default period", color="light", width=130, height=30, disabled=True)
@@ -197,10 +197,10 @@ class Controls(Viewer):
 
     # ------------------------------------------------------------------ selection -> widgets
     def _region_options(self) -> dict[str, str]:
-        options = {r.label: r.id for r in REGIONS.values()}
+        options = {region_label(r): r.id for r in REGIONS.values()}
         region = self.selection.region
         if region not in REGIONS:
-            options[parse_region(region).label] = region
+            options[region_label(region)] = region
         return options
 
     @staticmethod
@@ -225,12 +225,13 @@ class Controls(Viewer):
         self.target_grid.value = sel.target_grid
         span = sel.span
         if span is None:
-            self.period.disabled = True
+            # hidden, not a placeholder range: until the years are known there is no period to show
+            self.period.param.update(disabled=True, visible=False)
             self.reset_period.disabled = True
             self.period_note.object = '<span class="gs-hint">checking the years…</span>'
             return
         start, end = (int(y) for y in sel.period.split("-"))
-        bounds = dict(start=span.start, end=max(span.end, span.start + 1), disabled=span.start == span.end)
+        bounds = dict(start=span.start, end=max(span.end, span.start + 1), disabled=span.start == span.end, visible=True)
         if (start, end) != tuple(self.period.value_throttled or ()):
             # The period came from elsewhere (a link, the reset button, a refused value):
             # show it.  A period the slider itself gave is not written back: by the time

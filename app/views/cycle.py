@@ -7,7 +7,7 @@ from typing import Any
 import holoviews as hv
 import panel as pn
 
-from evaluation.regions import parse_region
+from evaluation.regions import region_label
 
 from ..state import Request
 from .base import ResultView, figure_pane
@@ -56,7 +56,7 @@ class CycleView(ResultView):
             for name, da in data.items()
             if name == request.reference or name not in refs
         ]
-        region = parse_region(request.region).label
+        region = region_label(request.region)
         title = f"{region}: monthly climatology of {request.variable}, {request.period}"
         return line_figure(curves, title=title, xticks=_MONTHS, xlim=(0.7, 12.3))
 

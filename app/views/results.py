@@ -362,6 +362,13 @@ class Results:
                     self.comparison(self.references(variable)[0], variable).prepare(["ANN"])
             except InputError:
                 pass
+            # the years of every variable (files opened, nothing reduced): a link to any of
+            # them opens on its period at once instead of "checking the years"
+            for other in self.variables():
+                try:
+                    self.comparison(self.references(other)[0], other)
+                except InputError:
+                    pass
 
         return self._worker.submit(self._locked, job, ())
 
@@ -436,6 +443,17 @@ class Results:
         self._failed = self._failed or bool(left)
         comparisons.put(key, entry)
         return entry
+
+    def known_period(self, reference: str, variable: str) -> tuple[Period, Period, tuple[str, ...]] | None:
+        """``(span, default period, left out)`` of :meth:`period_info` when that comparison is
+        already open, else ``None``; never computes or waits (called on the event loop, so that
+        a session opened on a known comparison starts with its years)."""
+        key = (reference, variable, None, self._level(variable, "") or "", self.target_grid)
+        entry = self._comparisons.get(key)
+        if entry is _MISSING:
+            return None
+        cmp, left = entry
+        return cmp.span, cmp.period, (*left, *(f"{name}: {problem}" for name, problem in self._unreadable.items() if name != reference))
 
     def period_info(self, reference: str, variable: str) -> tuple[Period, Period]:
         """``(span, default period)`` of the years every source of the comparison covers."""

@@ -19,10 +19,10 @@ from bokeh.models.widgets.tables import HTMLTemplateFormatter, NumberFormatter
 from evaluation.bootstrap import BEST_RULE, GUARDED_BEST
 from evaluation.export import METRIC_ORDER, provenance_bytes, provenance_for, sidecar_path, table_bytes, wide_table
 from evaluation.metrics import METRICS
-from evaluation.regions import parse_region
+from evaluation.regions import parse_region, region_label
 from evaluation.uncertainty import RULE, run_pairs, tied_with
 
-from ..state import Request
+from ..state import SORT_KEYS, Request, parse_sort
 from .base import ResultView, safe_filename, text_html, text_tooltip
 
 __all__ = ["ScoresView", "best_rows", "number_format", "provenance_download", "within_best"]
@@ -169,6 +169,33 @@ def score_widget(shown: pd.DataFrame, units: dict[str, str], within: dict[str, l
     return widget
 
 
+def sorted_runs(shown: pd.DataFrame, sort: str) -> tuple[pd.DataFrame, dict[str, str] | None]:
+    """The shown table in the order of a ``sort`` URL value (:func:`app.state.parse_sort`), and
+    the Tabulator sorter that shows it; the collection's order and ``None`` for an empty value
+    or a column the table lacks.  Missing values go last in either direction."""
+    parsed = parse_sort(sort)
+    if parsed is None:
+        return shown, None
+    key, descending = parsed
+    column = "Run" if key == "model" else key
+    if column not in shown.columns:
+        return shown, None
+    ordered = shown.sort_values(column, ascending=not descending, na_position="last", kind="stable").reset_index(drop=True)
+    return ordered, {"field": column, "dir": "desc" if descending else "asc"}
+
+
+def sort_value(sorters: list[dict[str, Any]]) -> str | None:
+    """The ``sort`` URL value of a table's sorters (its first): ``""`` for none, ``None`` for a
+    column that is not a sort key (the text column of ties)."""
+    if not sorters:
+        return ""
+    field, direction = str(sorters[0].get("field", "")), str(sorters[0].get("dir", "asc"))
+    key = "model" if field == "Run" else field
+    if key not in SORT_KEYS:
+        return None
+    return ("-" if direction == "desc" else "") + key
+
+
 class ScoresView(ResultView):
     """Sortable scores of each selected run for the region, season and period."""
 
@@ -179,11 +206,12 @@ class ScoresView(ResultView):
         "season and period. The best value of each column is highlighted (bias: nearest zero; "
         "ratios: nearest one; bias, RMSE and relative error only where the bootstrap interval excludes zero, rule below). With several references, values within observational uncertainty of "
         "the best are underlined and named in the last column (the rule is stated below the table's "
-        "context line). Click a header to sort; hover a header for the definition."
+        "context line). Click a header to sort (the order goes into the link); hover a header for the definition."
     )
 
     def key(self, request: Request) -> Any:
-        return (request.variable, request.level, request.reference, request.models, request.region, request.season, request.period)
+        return (request.variable, request.level, request.reference, request.models, request.region, request.season, request.period,
+                request.target_grid, request.sort)
 
     async def load(self, request: Request) -> dict[str, Any]:
         results = self.results
@@ -214,6 +242,7 @@ class ScoresView(ResultView):
         if tidy.empty:
             return pn.pane.HTML('<div class="gs-empty">No scores for this selection.</div>')
         shown, units = self.table(tidy)
+        shown, sorter = sorted_runs(shown, request.sort)
         # "best" only where the bootstrap interval against the best other run excludes zero
         confirmed = {m: [bool(v < 0) for v in pd.to_numeric(shown[bound], errors="coerce")]
                      for m, bound in GUARDED_BEST.items() if bound in shown.columns}
@@ -223,13 +252,13 @@ class ScoresView(ResultView):
             if metrics:
                 tables.append(pn.pane.HTML(f'<div class="gs-section-title">{text_html(heading)}</div>', margin=(6, 10, 2, 10)))
                 within = within_best(shown, data["pairs"], metrics) if data.get("pairs") is not None else None
-                tables.append(score_widget(shown[["Run", *metrics]], {m: units[m] for m in metrics}, within, confirmed))
+                tables.append(self._sortable(score_widget(shown[["Run", *metrics]], {m: units[m] for m in metrics}, within, confirmed), sorter))
         others = [m for m in units if not any(m in g for g in GROUPS.values())]
         if others:
-            tables.append(score_widget(shown[["Run", *others]], {m: units[m] for m in others}))
+            tables.append(self._sortable(score_widget(shown[["Run", *others]], {m: units[m] for m in others}), sorter))
         region = parse_region(request.region)
         context = (
-            f"Region {region.label}: {region.definition}. Relative error compares each run's RMSE with the "
+            f"Region {region_label(region)}: {region.definition}. Relative error compares each run's RMSE with the "
             f"median over all {data['runs']} runs of the collection (Gleckler et al. 2008)."
         )
         parts: list[Any] = [pn.pane.HTML(f'<div class="gs-hint">{text_html(context)}</div>', margin=(0, 10, 6, 10))]
@@ -247,6 +276,21 @@ class ScoresView(ResultView):
             parts.append(pn.pane.HTML(f'<div class="gs-notice">{text_html(text)}</div>', margin=(0, 10, 6, 10)))
         parts += [*tables, self._downloads(data, request)]
         return pn.Column(*parts, sizing_mode="stretch_width")
+
+    def _sortable(self, widget: pn.widgets.Tabulator, sorter: dict[str, str] | None) -> pn.widgets.Tabulator:
+        """``widget`` showing the link's sort on its column, and a header click put into the link
+        (URL ``sort``): every table of the view is then drawn in that order of runs."""
+        if sorter is not None and sorter["field"] in widget.value.columns:
+            widget.sorters = [sorter]
+        sel = self.selection
+
+        def picked(event: Any) -> None:
+            value = sort_value(event.new)
+            if value is not None and value != sel.sort:
+                sel.sort = value
+
+        widget.param.watch(picked, "sorters")
+        return widget
 
     def _downloads(self, data: dict[str, Any], request: Request) -> pn.Row:
         tidy = data.get("every", data["tidy"])

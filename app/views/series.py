@@ -8,7 +8,7 @@ import holoviews as hv
 import numpy as np
 import panel as pn
 
-from evaluation.regions import parse_region
+from evaluation.regions import region_label
 from evaluation.trends import ols_trend
 from evaluation.units import trend_units
 
@@ -66,7 +66,7 @@ class SeriesView(ResultView):
                     curve(years, fit.intercept + fit.slope * years, label=f"{name} ({per_decade})", colour=colour,
                           xdim=xdim, ydim=ydim, dash="dashed")
                 )
-        region = parse_region(request.region).label
+        region = region_label(request.region)
         title = f"{region}: {request.variable}, {request.season} means {request.period}"
         return line_figure(curves, title=title)
 

@@ -16,10 +16,10 @@ import holoviews as hv
 import numpy as np
 import pandas as pd
 import panel as pn
-import param
+from evaluation.regions import region_label
 
-from ..state import Request
-from .base import ResultView, figure_pane, plot_title
+from ..state import TAYLOR_SCALES, Request
+from .base import ResultView, figure_pane, on_document, plot_title
 from .look import REFERENCE_COLOUR
 
 __all__ = ["TaylorView", "taylor_points"]
@@ -97,17 +97,21 @@ class TaylorView(ResultView):
         "the observations do."
     )
 
-    normalised = param.Boolean(default=True)
-
     def controls(self) -> list[pn.viewable.Viewable]:
-        toggle = pn.widgets.Checkbox.from_param(
-            self.param.normalised, label="Normalised: standard deviations divided by the reference's", margin=(4, 10)
+        # the scale is part of the link (URL ``taylor``): the widget shows and sets the selection's
+        sel = self.selection
+        toggle = pn.widgets.RadioButtonGroup(
+            options={label: key for key, label in TAYLOR_SCALES.items()}, value=sel.taylor, color="light",
+            margin=(4, 10), css_classes=["gs-taylor-scale"],
         )
-        self.param.watch(lambda event: self.update(force=True), "normalised")
+        toggle.param.watch(lambda event: setattr(sel, "taylor", event.new), "value")
+        doc = pn.state.curdoc
+        sel.param.watch(lambda event: on_document(doc, lambda: setattr(toggle, "value", event.new)), "taylor")
         return [toggle]
 
     def key(self, request: Request) -> Any:
-        return (request.variable, request.level, request.reference, request.models, request.region, request.season, request.period, self.normalised)
+        return (request.variable, request.level, request.reference, request.models, request.region, request.season, request.period,
+                request.target_grid, request.taylor)
 
     async def load(self, request: Request) -> dict[str, Any]:
         results = self.results
@@ -121,7 +125,8 @@ class TaylorView(ResultView):
         return {"tidy": mine, "units": units, "alternatives": alternatives}
 
     def figure(self, data: dict[str, Any], request: Request) -> hv.Overlay | None:
-        points, ref_std = taylor_points(data["tidy"], normalised=self.normalised)
+        normalised = request.taylor == "normalised"
+        points, ref_std = taylor_points(data["tidy"], normalised=normalised)
         if points.empty or not np.isfinite(ref_std):
             return None
         half = bool((points["corr"] < 0).any())  # negative correlations need the left half
@@ -173,8 +178,8 @@ class TaylorView(ResultView):
                 layers.append(_points(pd.DataFrame([row]), label=f"{name} (alternative reference)", colour=REFERENCE_COLOUR, marker="diamond"))
             else:
                 layers.append(_points(pd.DataFrame([row]), label=name, colour=self.results.colour(name)))
-        scale = "normalised" if self.normalised else f"[{data['units']}]"
-        title = plot_title(f"Taylor diagram: {request.variable}, {request.region}, {request.season} {request.period}")
+        axis = "Standard deviation (normalised)" if normalised else f"Standard deviation ({data['units']})"
+        title = plot_title(f"Taylor diagram: {request.variable}, {region_label(request.region)}, {request.season} {request.period}")
         xlim = (-top * 1.2 if half else 0.0, top * 1.2)
         ylim = (0.0, top * 1.2)
         radii = [round(float(v), 10) for v in np.arange(0.0, top + step / 2, step)]
@@ -184,11 +189,11 @@ class TaylorView(ResultView):
         frame_height = int(round(frame_width * (ylim[1] - ylim[0]) / (xlim[1] - xlim[0])))
         overlay = hv.Overlay(layers)
         return overlay.opts(
-            title=title, xlabel=f"Standard deviation ({scale})", ylabel=f"Standard deviation ({scale})",
+            title=title, xlabel=axis, ylabel=axis,
             xlim=xlim, ylim=ylim, frame_width=frame_width, frame_height=frame_height, xticks=xticks, yticks=radii,
             legend_position="right", show_grid=False, toolbar="above", backend="bokeh",
         ).opts(
-            title=title, xlabel=f"Standard deviation ({scale})", ylabel=f"Standard deviation ({scale})",
+            title=title, xlabel=axis, ylabel=axis,
             xlim=xlim, ylim=ylim, xticks=xticks, yticks=radii, aspect="equal", fig_inches=(8, 6), legend_position="right", backend="matplotlib",
         )
 
