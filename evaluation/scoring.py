@@ -1040,10 +1040,26 @@ class Comparison:
             record["observational_uncertainty"] = RULE
         if self.ensembles:
             record["ensembles"] = {e.name: list(e.members) for e in self.ensembles}
+        record["significance"] = self._significance_record()
         record["omitted"] = [dict(o) for o in self.omissions]  # rows left out: {source, season, reason}
         if self.notes:
             record["notes"] = list(self.notes)
         return record
+
+
+    @staticmethod
+    def _significance_record() -> dict:
+        """How the dots, ``bias_signif_area`` and the bootstrap intervals are made (for the provenance)."""
+        from .bootstrap import BEST_RULE, CONFIDENCE, RESAMPLES, SEED
+        from .significance import FDR_LEVEL
+
+        return {
+            "cell_test": "two-sided t-test of yearly season means with Santer et al. (2000) effective sample sizes",
+            "fdr": f"Benjamini-Hochberg over the tested cells of the map, level {FDR_LEVEL:g} (Wilks 2016)",
+            "bootstrap": f"moving-block bootstrap over years (Kuensch 1989), block length of Wilks (1997), {RESAMPLES} draws, "
+                         f"seed {SEED}, {CONFIDENCE:.0%} expanded percentile interval (Hesterberg 2015)",
+            "best_rule": BEST_RULE,
+        }
 
 
 @dataclass(frozen=True)

@@ -146,6 +146,10 @@ def test_confirmed_best_names_the_clearly_better_run(comparison) -> None:
 
     best = confirmed_best(comparison.scores(regions=["global"], seasons=["ANN"]))
     assert sorted(best["metric"]) == ["bias", "rel_error", "rmse"] and set(best["model"]) == {"other"}
+    # the provenance states the same rule the command line prints and the score page shows
+    from evaluation.bootstrap import BEST_RULE
+
+    assert comparison.provenance()["significance"]["best_rule"] == BEST_RULE
 
 
 def test_interval_rows(comparison) -> None:
