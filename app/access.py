@@ -12,6 +12,10 @@
 - :class:`GuardedComponentHandler` replaces Panel's ``/components/...`` route, which
   imports any module named in the URL and is served without login: here it needs the
   login when a password is set and only reads modules already imported.
+- :class:`GuardedLivenessHandler` replaces Panel's ``/liveness``, which answers without
+  login (and with ``?endpoint=/`` builds a whole session): here it needs the login when a
+  password is set.  Only static files (scripts, stylesheets, the icon) and the login page
+  itself are served to a visitor who has not logged in.
 """
 
 from __future__ import annotations
@@ -29,6 +33,7 @@ from typing import Any, ClassVar
 import tornado.escape
 from panel.auth import BasicAuthProvider, BasicLoginHandler
 from panel.auth import _validate_next_url
+from panel.io.liveness import LivenessHandler
 from panel.io.server import ComponentResourceHandler
 from panel.io.state import state
 from tornado.web import HTTPError, authenticated
@@ -38,10 +43,12 @@ from evaluation.errors import InputError
 __all__ = [
     "FAILED_LOGIN_DELAY",
     "GuardedComponentHandler",
+    "GuardedLivenessHandler",
     "PASSWORD_ENV",
     "SlowLoginProvider",
     "check_origins",
     "component_route",
+    "liveness_route",
     "password_from",
 ]
 
@@ -194,13 +201,13 @@ class SlowLoginProvider(BasicAuthProvider):
         })
 
 
-# ---------------------------------------------------------------------- component files
-class GuardedComponentHandler(ComponentResourceHandler):
-    """Panel's component resource route, behind the login and without imports.
+# ---------------------------------------------------------------------- routes behind the login
+class _LoginRequired:
+    """The server's login for a Tornado handler that Bokeh does not guard itself.
 
-    Panel's own handler (``/components/<module>/<class>/...``) imports the module the URL
-    names and answers without login.  Here a module that is not already imported is not
-    found, and with a password the login is required as for every page.
+    With a password (an auth provider that has a user getter) the current user is the
+    logged-in one, else none and ``@authenticated`` sends the visitor to the login page;
+    without a password every visitor is let through, as Bokeh's own pages do.
     """
 
     def get_login_url(self) -> str:
@@ -214,6 +221,35 @@ class GuardedComponentHandler(ComponentResourceHandler):
         if provider.get_user is not None:
             return provider.get_user(self)
         return "default_user"
+
+
+class GuardedLivenessHandler(_LoginRequired, LivenessHandler):
+    """Panel's ``/liveness`` (is the server up; with ``?endpoint=/`` can it build that
+    page), behind the login.  The pages are the server's own, looked up when asked."""
+
+    def initialize(self, applications: dict[str, Any] | None = None) -> None:
+        self.applications = applications or {}
+
+    @authenticated
+    async def get(self, *args: Any, **kwargs: Any) -> None:
+        contexts = getattr(self.application, "_applications", {})  # Bokeh's path -> ApplicationContext
+        self.applications = {path: context.application for path, context in contexts.items()}
+        await super().get(*args, **kwargs)
+
+
+def liveness_route() -> tuple[str, type, dict]:
+    """The ``/liveness`` route, listed before Panel's own (which answers without login)."""
+    return ("/liveness", GuardedLivenessHandler, {})
+
+
+# ---------------------------------------------------------------------- component files
+class GuardedComponentHandler(_LoginRequired, ComponentResourceHandler):
+    """Panel's component resource route, behind the login and without imports.
+
+    Panel's own handler (``/components/<module>/<class>/...``) imports the module the URL
+    names and answers without login.  Here a module that is not already imported is not
+    found, and with a password the login is required as for every page.
+    """
 
     def parse_url_path(self, path: str) -> str:
         module = path.split("/", 1)[0]

@@ -14,6 +14,7 @@ import os
 import secrets
 import socket
 import sys
+import time
 from collections.abc import Sequence
 from pathlib import Path
 from typing import Any
@@ -22,7 +23,7 @@ import panel as pn
 
 from evaluation.errors import InputError
 
-from .access import PASSWORD_ENV, SlowLoginProvider, check_origins, component_route, password_from
+from .access import PASSWORD_ENV, SlowLoginProvider, check_origins, component_route, liveness_route, password_from
 from .state import Selection, parse_query, query_string
 from .views.base import gate_page, on_document
 from .views.coastlines import coastline_segments
@@ -35,6 +36,9 @@ log = logging.getLogger("gridscore.app")
 
 #: Shortest password accepted for sharing inside a group.
 MIN_PASSWORD_LENGTH = 8
+#: Seconds between two looks of an open page at its input files (one look, shared by every
+#: session, costs a stat per file): a changed file is drawn anew within about this time.
+WATCH_SECONDS = 5.0
 _LOOPBACK_NAMES = {"localhost", "localhost.localdomain", "ip6-localhost"}
 
 
@@ -262,11 +266,36 @@ def build_session(results: Results) -> pn.template.BaseTemplate:
     # Through the page gate: a URL written while the page loads could be dropped, and
     # writing the same value again later would then change nothing.
     selection.param.watch(lambda *events: on_document(doc, write_url), ["request", "tab"])
+    _watch_files(results, selection)
     if known is None:
         pn.state.execute(settle)
     else:
         selection.param.trigger("request")  # the views (built after the request) draw it
     return page
+
+
+def _watch_files(results: Results, selection: Selection) -> None:
+    """Redraw this open page when its input files change, and say so.
+
+    Every :data:`WATCH_SECONDS` the session asks for the shared look at the files
+    (:meth:`Results.fresh`, off the event loop).  A new generation of the files re-issues
+    the request: the view on display is drawn again from the new files (hidden ones when
+    they are shown), and a notice tells when.
+    """
+    seen = results.generation
+
+    async def look() -> None:
+        nonlocal seen
+        files = await results.fresh()
+        if files == seen:
+            return
+        seen = files
+        when = time.strftime("%H:%M", time.localtime(results.changed_at or time.time()))
+        selection.notify(f"Files changed; numbers updated at {when}.")
+        if selection.request is not None:
+            selection.param.trigger("request")  # parameter changes only; the page follows through on_document
+
+    pn.state.add_periodic_callback(look, period=int(WATCH_SECONDS * 1000))
 
 
 # ---------------------------------------------------------------------- the server
@@ -300,9 +329,9 @@ def make_server(
     if port:
         # The addresses the person is told to open must be allowed too, or the page loads without data.
         origins = [*(origins or []), *_own_origins(address, port)]
-    # Panel's component route imports any module named in the URL and skips the login:
-    # this one, listed first, takes its place.
-    options: dict[str, Any] = {"extra_patterns": [component_route()]}
+    # Panel's component route imports any module named in the URL and skips the login,
+    # and its /liveness skips the login: these, listed first, take their places.
+    options: dict[str, Any] = {"extra_patterns": [component_route(), liveness_route()]}
     if password is not None:
         options.update(auth_provider=SlowLoginProvider(password), cookie_secret=secrets.token_urlsafe(32))
     if server_id is not None:

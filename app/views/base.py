@@ -255,7 +255,8 @@ class ResultView(Viewer):
         request = self.selection.request
         if request is None or self.selection.tab != self.tab:
             return
-        if not force and self.key(request) == self._drawn:
+        # drawn from files of an older generation: drawn again, even if hidden meanwhile
+        if not force and (self.results.generation, self.key(request)) == self._drawn:
             return
         pn.state.execute(self.refresh)
 
@@ -264,11 +265,13 @@ class ResultView(Viewer):
         request = self.selection.request
         if request is None:
             return
-        self.results.revalidate()  # a stat per input file: never draw from files that changed
         self._generation += 1
         generation = self._generation
         on_document(self._doc, lambda: setattr(self._body, "loading", True))
+        files = self.results.generation
         try:
+            # one shared look at the input files (off the loop): never draw from files that changed
+            files = await self.results.fresh()
             outcome: tuple[str, Any] = ("data", await self.load(request))
         except InputError as error:
             outcome = ("error", error.message)
@@ -276,9 +279,9 @@ class ResultView(Viewer):
             log.exception("view %s failed for %s", self.tab, request)
             outcome = ("error", f"This view could not be drawn ({type(error).__name__}: {error}).")
         if generation == self._generation:
-            on_document(self._doc, lambda: self._show(outcome, request, generation))
+            on_document(self._doc, lambda: self._show(outcome, request, generation, files))
 
-    def _show(self, outcome: tuple[str, Any], request: Request, generation: int) -> None:
+    def _show(self, outcome: tuple[str, Any], request: Request, generation: int, files: int = 0) -> None:
         """Put the drawing on the page (under the document lock)."""
         if generation != self._generation:
             return
@@ -303,7 +306,7 @@ class ResultView(Viewer):
             self._figure_buttons.visible = False
         self._body.objects = [shown]
         self._context.object = f'<div class="gs-hint"><b>Showing:</b> {text_html(self.context(request))}</div>'
-        self._drawn = self.key(request)
+        self._drawn = (files, self.key(request))
         for button in self._figure_buttons:
             button.filename = f"{self.figure_name(request)}.{button.filename.rsplit('.', 1)[-1]}"
         self._body.loading = False

@@ -48,6 +48,9 @@ _MISSING = object()
 #: Seconds after which a failure (an unreadable file, a run left out) is tried again even
 #: though no input file changed (a network file system that was briefly away).
 RETRY_SECONDS = 30.0
+#: Seconds during which one look at the input files answers every session that asks
+#: (:meth:`Results.fresh`): ten sessions drawing at once stat the files once, not ten times.
+LOOK_SECONDS = 1.0
 
 
 class BoundedCache:
@@ -196,6 +199,13 @@ class Results:
         self._stamp = self._inputs_stamp()
         self._checked = time.monotonic()
         self._failed = bool(self._unreadable)
+        # the shared look at the files (stat and content sample: no netCDF, safe on any thread)
+        self._watcher = ThreadPoolExecutor(max_workers=1, thread_name_prefix="gridscore-watch")
+        self._look_lock = threading.Lock()
+        self._looking: Future | None = None
+        self._looked = time.monotonic()
+        #: wall-clock time of the last new generation (for "numbers updated at HH:MM")
+        self.changed_at: float | None = None
 
     # ------------------------------------------------------------------ the collection
     def _list_variables(self) -> dict[str, dict[str, VariableInfo]]:
@@ -301,27 +311,67 @@ class Results:
                 stamp.append((src.name, str(error)))
         return tuple(stamp)
 
+    @property
+    def generation(self) -> int:
+        """Counts the changes of the input files seen so far (0 at the start)."""
+        return self._generation
+
+    def _outdated(self, stamp: tuple) -> bool:
+        retry = self._failed and time.monotonic() - self._checked > RETRY_SECONDS
+        return stamp != self._stamp or retry
+
     def revalidate(self) -> bool:
         """Forget what was computed from files that changed; retry failures after a while.
 
-        Called before each request of a view (cheap: a stat per file).  Returns whether a
-        new generation started.  Products and comparisons of the old generation are never
-        served again.
+        Returns whether a new generation started.  Products and comparisons of the old
+        generation are never served again.  On the calling thread (tests, exports, a new
+        session after a change); the dashboard's views use :meth:`fresh`, which keeps the
+        event loop free.
         """
-        now = time.monotonic()
         stamp = self._inputs_stamp()
-        retry = self._failed and now - self._checked > RETRY_SECONDS
-        if stamp == self._stamp and not retry:
+        if not self._outdated(stamp):
             return False
-        self._stamp, self._checked, self._failed = stamp, now, False
-        self._generation += 1
+        with self._lock:  # the listing reads file headers: never beside the worker's reads
+            return self._new_generation(stamp)
+
+    def _new_generation(self, stamp: tuple) -> bool:
+        """Start a generation for ``stamp`` (under the core lock)."""
+        if not self._outdated(stamp):  # another caller made it meanwhile
+            return False
+        self._stamp, self._checked, self._failed = stamp, time.monotonic(), False
         # a fresh product cache: a computation still running for the old files stores its
         # result in the old one, which nobody asks any more
         self.products = BoundedCache(max_items=self.products.max_items)
         self._comparisons = BoundedCache(max_items=self._comparisons.max_items)
         self._variables = self._list_variables()
         self._failed = bool(self._unreadable)
+        self.changed_at = time.time()
+        self._generation += 1  # last: a session that sees the new number finds the new listing
         return True
+
+    def stale(self) -> bool:
+        """Whether the input files changed since the last look (a stat per file)."""
+        return self._outdated(self._inputs_stamp())
+
+    async def fresh(self) -> int:
+        """Look at the input files off the event loop and start a new generation if they changed.
+
+        One look answers every session asking within :data:`LOOK_SECONDS` (they await the
+        same look); the files are stat'ed on a thread of their own and the new listing is
+        made on the core worker, so the event loop only waits.  Returns :attr:`generation`.
+        """
+        with self._look_lock:
+            look = self._looking
+            if look is None or (look.done() and time.monotonic() - self._looked >= LOOK_SECONDS):
+                look = self._looking = self._watcher.submit(self._look)
+        await asyncio.wrap_future(look)
+        return self._generation
+
+    def _look(self) -> None:
+        self._looked = time.monotonic()
+        stamp = self._inputs_stamp()
+        if self._outdated(stamp):
+            self._worker.submit(self._locked, self._new_generation, (stamp,)).result()
 
     async def fetch(self, key: tuple, function: Callable[..., T], *args: Any) -> T:
         """A cached product: answered at once when present, else computed off the loop."""
@@ -374,6 +424,7 @@ class Results:
 
     def close(self) -> None:
         self._worker.shutdown(wait=False, cancel_futures=True)
+        self._watcher.shutdown(wait=False, cancel_futures=True)
 
     # ------------------------------------------------------------------ comparisons
     def target_grids(self) -> list[str]:

@@ -61,7 +61,8 @@ def _serve(results: Results, **options):
     server = make_server(results, port=port, address="127.0.0.1", threaded=True, **options)
     url = f"http://127.0.0.1:{port}"
     deadline = time.monotonic() + 30
-    while _status(f"{url}/liveness")[0] != 200:
+    ready = "/login" if options.get("password") else "/liveness"  # with a password /liveness needs the login
+    while _status(url + ready)[0] != 200:
         assert time.monotonic() < deadline
         time.sleep(0.1)
     return server, url
@@ -146,12 +147,47 @@ def test_wrong_logins_are_slow_and_queued(guarded: str) -> None:
     assert time.monotonic() - begin < FAILED_LOGIN_DELAY
 
 
-@pytest.mark.parametrize("path", ["/", "/?tab=scores", "/components/panel.widgets/FileDownload/__css__/x.css",
-                                  "/components/antigravity/x/__css__/y", "/components/os/path/__css__/passwd"])
+#: One request per route of the server that is not a static file (see the test below).
+GUARDED_PATHS = ["/", "/?tab=scores", "/liveness", "/liveness?endpoint=/", "/metadata", "/ws",
+                 "/autoload.js?bokeh-autoload-element=x&bokeh-absolute-url=http://127.0.0.1",
+                 "/components/panel.widgets/FileDownload/__css__/x.css",
+                 "/components/antigravity/x/__css__/y", "/components/os/path/__css__/passwd"]
+#: Routes that answer everyone: the login page itself, logging out, and static files.
+OPEN_ROUTES = ("/login", "/logout", "/favicon.ico", "/static/")
+
+
+@pytest.mark.parametrize("path", GUARDED_PATHS)
 def test_no_route_without_login_but_static_files(guarded: str, path: str) -> None:
     status, location = _status(guarded + path)
     assert status in (302, 403, 404) and (status != 302 or "login" in location), (status, location)
     assert "antigravity" not in sys.modules
+
+
+def test_every_route_of_the_server_is_checked(collection: Path) -> None:
+    """A route added by a new Panel or Bokeh (or by us) must join GUARDED_PATHS or OPEN_ROUTES."""
+    results = Results(Collection.from_path(collection))
+    server = make_server(results, port=0, password=PASSWORD, start=False)
+    try:
+        patterns = [rule.matcher.regex.pattern for rule in server._tornado.wildcard_router.rules]
+    finally:
+        server.stop()
+        results.close()
+    assert patterns
+    for pattern in patterns:
+        stem = pattern.rstrip("$").split("(")[0].rstrip("?") or "/"
+        checked = any(p == stem or (stem != "/" and p.startswith(stem)) for p in GUARDED_PATHS)
+        assert checked or stem.startswith(OPEN_ROUTES), f"route {pattern!r} is neither checked for the login nor open"
+
+
+def test_liveness_answers_after_login(guarded: str) -> None:
+    import http.cookiejar
+
+    jar = http.cookiejar.CookieJar()
+    opener = urllib.request.build_opener(urllib.request.HTTPCookieProcessor(jar))
+    form = urllib.parse.urlencode({"username": "anyone", "password": PASSWORD}).encode()
+    opener.open(urllib.request.Request(f"{guarded}/login", data=form), timeout=30).close()
+    with opener.open(f"{guarded}/liveness", timeout=30) as reply:
+        assert reply.status == 200 and reply.geturl().endswith("/liveness")
 
 
 def test_static_assets_need_no_login(guarded: str) -> None:

@@ -1,0 +1,329 @@
+"""Many users at once: real browsers on one ``gridscore serve``.
+
+For each N (default 1, 5, 10) a fresh server is started on the bundled sample with an
+empty cache folder of its own (``GRIDSCORE_CACHE`` in a temporary folder), N headless
+Chromium pages (Debian's package, driven by Playwright) open the dashboard at the same
+moment, and for each page the time from navigation to **first maps drawn** is measured:
+
+    the maps view (``.gs-view-maps``) is not in its loading state, shows one NetCDF
+    download button per map of the request (``.gs-download-nc``: reference + runs) and
+    at least that many Bokeh canvases (``canvas`` elements inside the view).
+
+Two inputs are made while the server is busy.  As soon as its controls are on the page
+(before any map), each page picks the season "Jun–Aug (JJA)"; its first maps must be of
+JJA.  A fresh session opens on the differences (one map per run).  Right after its first maps,
+each page picks "Run mean" as the map field (the other pages are still loading: the
+server is busy) and the script checks that the input took effect: the URL carries
+``field=model_mean`` and the drawn maps are the means of the reference and the runs
+(their download buttons are titled "<source> mean"), still of JJA.  A page whose URL or
+drawn maps miss either input counts as an input lost.
+
+The server's resident memory (the process and its children, psutil) is sampled every
+0.2 s; the load average of the machine (``uptime``) is recorded beside the times, since
+the browsers share the machine's cores with the server.
+
+Run: ``python benchmarks/sessions.py`` (``--sessions 1 5 10 20``; ``--profile FILE``
+samples the server with py-spy under the largest N).  The table is printed and written into
+``benchmarks/results.md`` between the ``sessions`` markers.
+"""
+
+from __future__ import annotations
+
+import argparse
+import asyncio
+import os
+import shutil
+import signal
+import socket
+import statistics
+import subprocess
+import sys
+import tempfile
+import time
+import urllib.request
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import psutil
+
+HERE = Path(__file__).resolve().parent
+ROOT = HERE.parent
+SAMPLE = ROOT / "sample_output" / "manifest.toml"
+RESULTS = HERE / "results.md"
+BEGIN, END = "<!-- sessions: begin -->", "<!-- sessions: end -->"
+CHROMIUM_ARGS = ["--headless", "--no-sandbox", "--disable-gpu", "--disable-background-networking",
+                 "--disable-component-update", "--disable-sync", "--no-first-run"]
+#: The target of issue 11: median time to first maps with 10 sessions at most 3x one session's.
+TARGET_RATIO = 3.0
+TIMEOUT_S = 300.0
+#: The season picked while the page loads.
+SEASON, SEASON_LABEL = "JJA", "Jun–Aug (JJA)"
+
+
+@dataclass
+class Outcome:
+    first_maps: float = float("nan")  # seconds from navigation to first maps drawn
+    redrawn: float = float("nan")  # seconds from the field change to the difference maps
+    input_kept: bool = False
+    error: str = ""
+
+
+@dataclass
+class Round:
+    sessions: int
+    outcomes: list[Outcome] = field(default_factory=list)
+    peak_rss_mb: float = 0.0
+    load: str = ""
+
+    def times(self) -> list[float]:
+        return [o.first_maps for o in self.outcomes if o.first_maps == o.first_maps]
+
+
+def _free_port() -> int:
+    with socket.socket() as sock:
+        sock.bind(("127.0.0.1", 0))
+        return int(sock.getsockname()[1])
+
+
+def _uptime() -> str:
+    one, five, fifteen = os.getloadavg()
+    return f"{one:.2f} {five:.2f} {fifteen:.2f}"
+
+
+class Server:
+    """``gridscore serve`` on a free port with a fresh cache folder; RSS sampled meanwhile."""
+
+    def __init__(self, manifest: Path, scratch: Path) -> None:
+        self.port = _free_port()
+        cache = scratch / f"cache-{self.port}"
+        env = {**os.environ, "GRIDSCORE_CACHE": str(cache)}
+        self.log = open(scratch / f"server-{self.port}.log", "w")  # noqa: SIM115 (closed in stop)
+        self.process = subprocess.Popen(
+            [sys.executable, "-m", "app.cli", "serve", str(manifest), "--port", str(self.port)],
+            cwd=ROOT, env=env, stdout=self.log, stderr=subprocess.STDOUT, start_new_session=True,
+        )
+        self.url = f"http://localhost:{self.port}/"
+        self.peak_rss = 0
+        self._sampling = True
+        deadline = time.monotonic() + 120
+        while True:
+            try:
+                with urllib.request.urlopen(f"http://127.0.0.1:{self.port}/liveness", timeout=2) as reply:
+                    if reply.status == 200:
+                        break
+            except OSError:
+                pass
+            if self.process.poll() is not None or time.monotonic() > deadline:
+                raise RuntimeError(f"the server did not start; see {self.log.name}")
+            time.sleep(0.2)
+
+    def rss(self) -> int:
+        try:
+            proc = psutil.Process(self.process.pid)
+            return proc.memory_info().rss + sum(c.memory_info().rss for c in proc.children(recursive=True))
+        except psutil.Error:
+            return 0
+
+    async def sample(self) -> None:
+        while self._sampling:
+            self.peak_rss = max(self.peak_rss, self.rss())
+            await asyncio.sleep(0.2)
+
+    def stop(self) -> str:
+        self._sampling = False
+        self.process.send_signal(signal.SIGINT)
+        try:
+            self.process.wait(timeout=20)
+        except subprocess.TimeoutExpired:
+            self.process.kill()
+            self.process.wait()
+        self.log.close()
+        return Path(self.log.name).read_text(errors="replace")
+
+
+async def _maps_drawn(page, *, minus: bool, maps: int, season: str = "") -> bool:
+    """The definition of 'maps drawn' (see the module text)."""
+    view = page.locator(".gs-view-maps")
+    if await view.count() == 0 or await page.locator(".gs-view-maps.pn-loading").count():
+        return False
+    if season and not any(f" · {season} · " in t for t in await page.locator(".gs-hint").all_text_contents()):
+        return False  # the maps' context line ("Showing: … · JJA · 1991-2020")
+    labels = await view.locator(".gs-download-nc button").all_text_contents()
+    if len(labels) != maps or any((" minus " in t) != minus for t in labels):
+        return False
+    return await view.locator("canvas").count() >= maps
+
+
+async def _wait(page, *, minus: bool, maps: int, deadline: float, season: str = SEASON) -> None:
+    while not await _maps_drawn(page, minus=minus, maps=maps, season=season):
+        if time.monotonic() > deadline:
+            raise TimeoutError("maps not drawn in time")
+        await asyncio.sleep(0.05)
+
+
+async def _session(browser, url: str, runs: int, start: asyncio.Event) -> Outcome:
+    outcome = Outcome()
+    context = await browser.new_context(viewport={"width": 1500, "height": 1000})
+    try:
+        page = await context.new_page()
+        await start.wait()
+        begin = time.monotonic()
+        deadline = begin + TIMEOUT_S
+        await page.goto(url, wait_until="domcontentloaded", timeout=TIMEOUT_S * 1000)
+        # the first input, while the page loads: the season
+        await page.locator(".gs-season select").select_option(label=SEASON_LABEL, timeout=TIMEOUT_S * 1000)
+        await _wait(page, minus=True, maps=runs, deadline=deadline)  # a fresh session: the differences
+        outcome.first_maps = time.monotonic() - begin
+        # the input: the map field "Run mean", while the other pages still load
+        changed = time.monotonic()
+        await page.locator(".gs-field input[value='0']").check(timeout=60_000)  # options in order: model_mean first
+        try:
+            await _wait(page, minus=False, maps=runs + 1, deadline=time.monotonic() + 120)
+            outcome.redrawn = time.monotonic() - changed
+        except TimeoutError:
+            pass
+        outcome.input_kept = "field=model_mean" in page.url and f"season={SEASON}" in page.url and outcome.redrawn == outcome.redrawn
+        if not outcome.input_kept:
+            outcome.error = f"input lost: url {page.url}"
+    except Exception as error:  # counted and shown, not fatal for the round
+        outcome.error = f"{type(error).__name__}: {str(error)[:160]}"
+    finally:
+        await context.close()
+    return outcome
+
+
+async def _round(browser, manifest: Path, scratch: Path, n: int, runs: int, profile: Path | None) -> Round:
+    server = Server(manifest, scratch)
+    result = Round(sessions=n)
+    spy = None
+    try:
+        sampler = asyncio.create_task(server.sample())
+        if profile is not None:
+            spy = subprocess.Popen([shutil.which("py-spy") or "py-spy", "record", "--pid", str(server.process.pid), "--rate", "50",
+                                    "--format", "raw", "--output", str(profile), "--threads", "--idle", "--nonblocking"],
+                                   stdout=subprocess.DEVNULL, stderr=subprocess.STDOUT)
+        start = asyncio.Event()
+        tasks = [asyncio.create_task(_session(browser, server.url, runs, start)) for _ in range(n)]
+        await asyncio.sleep(0.5)  # contexts made; then every page navigates at once
+        start.set()
+        result.outcomes = list(await asyncio.gather(*tasks))
+        result.load = _uptime()
+        server._sampling = False
+        await sampler
+        result.peak_rss_mb = server.peak_rss / 1e6
+    finally:
+        if spy is not None:
+            spy.send_signal(signal.SIGINT)
+            spy.wait(timeout=60)
+        log = server.stop()
+    for line in log.splitlines():
+        if "Traceback" in line or "AssertionError" in line or "assert self._session" in line or line.startswith("ERROR"):
+            print(f"  server log ({n} sessions): {line[:200]}", file=sys.stderr)
+    return result
+
+
+def _runs_shown(manifest: Path) -> int:
+    """How many runs a fresh session shows (the dashboard's default count, capped by the runs of tas)."""
+    sys.path.insert(0, str(ROOT))
+    from app.state import DEFAULT_RUNS
+    from evaluation.catalog import Collection
+
+    collection = Collection.from_path(manifest)
+    holders = [s for s in collection.models if any(Path(p).name.startswith("tas") for p in _files(s))]
+    return min(DEFAULT_RUNS, len(holders) or len(collection.models))
+
+
+def _files(source) -> list[str]:
+    from evaluation import io
+
+    try:
+        return io.expand_paths(source.paths, source=source.name)
+    except Exception:
+        return []
+
+
+def _table(rounds: list[Round], machine: str) -> str:
+    lines = [
+        "| sessions | median to first maps (s) | max to first maps (s) | inputs kept | peak server RSS (MB) | load (1/5/15 min) at end |",
+        "|---:|---:|---:|---:|---:|---|",
+    ]
+    for r in rounds:
+        times = r.times()
+        kept = sum(o.input_kept for o in r.outcomes)
+        med = f"{statistics.median(times):.1f}" if times else "–"
+        top = f"{max(times):.1f}" if times else "–"
+        lines.append(f"| {r.sessions} | {med} | {top} | {kept}/{len(r.outcomes)} | {r.peak_rss_mb:.0f} | {r.load} |")
+    by_n = {r.sessions: r for r in rounds}
+    ratio = ""
+    if 1 in by_n and max(by_n) > 1 and by_n[1].times() and by_n[max(by_n)].times():
+        big = max(by_n)
+        value = statistics.median(by_n[big].times()) / statistics.median(by_n[1].times())
+        ratio = (f"\nmedian({big}) / median(1) = {value:.2f} (target ≤ {TARGET_RATIO:.0f} for 10 sessions: "
+                 f"{'met' if value <= TARGET_RATIO else 'missed'})")
+    return f"{machine}\n\n" + "\n".join(lines) + ratio + "\n"
+
+
+def _machine() -> str:
+    return (f"Machine: {os.cpu_count()} cores, {psutil.virtual_memory().total / 2**30:.1f} GiB; "
+            f"load at start {_uptime()}; {time.strftime('%Y-%m-%d %H:%M UTC', time.gmtime())}. "
+            "Browsers, server and other work share the cores.")
+
+
+def _record(text: str) -> None:
+    block = f"{BEGIN}\n## Many sessions at once (`python benchmarks/sessions.py`)\n\n{text}{END}\n"
+    old = RESULTS.read_text() if RESULTS.exists() else "# Benchmark results\n"
+    if BEGIN in old and END in old:
+        head, rest = old.split(BEGIN, 1)
+        new = head + block + rest.split(END, 1)[1].lstrip("\n")
+    else:
+        new = old.rstrip("\n") + "\n\n" + block
+    RESULTS.write_text(new)
+
+
+async def main_async(args: argparse.Namespace) -> list[Round]:
+    from playwright.async_api import async_playwright
+
+    chromium = shutil.which("chromium")
+    if chromium is None:
+        raise SystemExit("sessions.py: no 'chromium' on the PATH (Debian: apt-get install chromium)")
+    manifest = Path(args.collection).resolve()
+    runs = _runs_shown(manifest)
+    rounds = []
+    with tempfile.TemporaryDirectory(prefix="gridscore-sessions-") as tmp:
+        scratch = Path(tmp)
+        logs = Path(args.logs) if args.logs else None
+        async with async_playwright() as playwright:
+            browser = await playwright.chromium.launch(executable_path=chromium, args=CHROMIUM_ARGS)
+            for n in args.sessions:
+                profile = Path(args.profile).resolve() if args.profile and n == max(args.sessions) else None
+                r = await _round(browser, manifest, scratch, n, runs, profile)
+                errors = [o.error for o in r.outcomes if o.error]
+                print(f"{n} sessions: first maps {sorted(round(t, 1) for t in r.times())}, peak RSS {r.peak_rss_mb:.0f} MB, "
+                      f"load {r.load}" + (f"; problems: {errors[:3]}" if errors else ""), flush=True)
+                rounds.append(r)
+                if logs is not None:
+                    logs.mkdir(parents=True, exist_ok=True)
+                    for log in scratch.glob("server-*.log"):
+                        shutil.copy(log, logs / log.name)
+            await browser.close()
+    return rounds
+
+
+def main() -> None:
+    parser = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
+    parser.add_argument("--sessions", type=int, nargs="+", default=[1, 5, 10], metavar="N")
+    parser.add_argument("--collection", default=str(SAMPLE), help="manifest to serve (default: the bundled sample)")
+    parser.add_argument("--profile", metavar="FILE", help="sample the server with py-spy under the largest N (collapsed stacks)")
+    parser.add_argument("--logs", metavar="DIR", help="keep the servers' logs in DIR")
+    parser.add_argument("--no-record", action="store_true", help="print only; leave benchmarks/results.md as it is")
+    args = parser.parse_args()
+    machine = _machine()
+    rounds = asyncio.run(main_async(args))
+    text = _table(rounds, machine)
+    print(text)
+    if not args.no_record:
+        _record(text)
+
+
+if __name__ == "__main__":
+    main()
