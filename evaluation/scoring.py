@@ -64,6 +64,11 @@ def preferred_units(standard_name: str | None, stored: str) -> str:
     return _PREFERRED_UNITS.get(standard_name or "", stored)
 
 
+#: The most bytes of yearly means :meth:`Comparison.scores` holds for all seasons at once;
+#: beyond it, one season at a time (the others wait in the cache).
+HOLD_LIMIT_BYTES = 512 * 2**20
+
+
 @dataclass
 class _Prepared:
     monthly: xr.DataArray  # lazy, in comparison units, native grid
@@ -387,10 +392,11 @@ class Comparison:
             raise InputError(f"'{name}' is not part of this comparison", remedy=f"use one of {', '.join(self._sources)}")
         return self._prepared[name]
 
-    def prepare(self, seasons: Iterable[str], *, cycle: bool = False) -> None:
+    def prepare(self, seasons: Iterable[str], *, cycle: bool = False, keep: bool = True) -> None:
         """Reduce every source for the given seasons in one dask pass.
 
-        Already reduced seasons are not recomputed; the results stay in memory.
+        Already reduced seasons are not recomputed; the results stay in memory, or with
+        ``keep=False`` (and a cache) in the cache only, read back when a season is asked for.
         """
         seasons = [parse_season(s) for s in seasons]
         with self._lock:
@@ -430,7 +436,10 @@ class Comparison:
                 for (name, s), value in zip(batch, computed, strict=True):
                     if self._cache is not None:
                         self._cache.put(self._cache_key(name, s), value)
+                        if not keep and s != "_cycle" and value.sizes.get("year", 0):
+                            continue  # in the cache only (an entry that could not be written is recomputed)
                     done.append((name, s, value))
+                del computed
             for name, s, value in done:
                 if s != "_cycle" and value.sizes.get("year", 0) == 0:
                     # a partial table: this source and season have no rows, the others do
@@ -449,6 +458,18 @@ class Comparison:
             from .ensembles import fill_means
 
             fill_means(self, seasons, cycle)
+
+    def _lean(self, seasons: list[str]) -> bool:
+        """Whether :meth:`scores` holds one season at a time (the others in the cache): when the
+        yearly means of every source and season would take more than :data:`HOLD_LIMIT_BYTES`.
+
+        A century of 1-degree months, 6 sources and 5 seasons hold 1.6 GB of yearly means;
+        one season at a time, 0.3 GB.
+        """
+        if self._cache is None or self.ensembles:
+            return False
+        cells = int(np.prod([self._target_grid.sizes[d] for d in ("lat", "lon")]))
+        return len(self._prepared) * len(seasons) * self.period.length * cells * 8 > HOLD_LIMIT_BYTES
 
     def _monthly_in_memory(self, name: str, *, cycle: bool) -> xr.DataArray:
         """A source's monthly data for the period, read into memory when they fit
@@ -945,7 +966,8 @@ class Comparison:
 
         seasons = [parse_season(s) for s in seasons]
         regions = [parse_region(r).id for r in regions]
-        self.prepare(seasons)
+        lean = self._lean(seasons)
+        self.prepare(seasons, keep=not lean)
         grid = self._target_grid
         area = grid["cell_area"].values.ravel()
         land = self._reference_land() if any(parse_region(r).surface for r in regions) else None
@@ -980,6 +1002,9 @@ class Comparison:
                                 (m.name, against, self.variable, self.level, region, season, str(self.period), key,
                                  float(values[region][m.name][key]), metric.units(self.units))
                             )
+            if lean:
+                for prep in self._prepared.values():
+                    prep.seasons.pop(season, None)  # scored: back to the cache only
         if not rows:
             raise InputError(
                 "nothing could be scored: " + "; ".join(f"{o['source']} {o['season']}: {o['reason']}" for o in self.omissions),

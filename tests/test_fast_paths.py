@@ -113,3 +113,21 @@ def test_warm_score_imports_no_array_library_and_writes_the_same_files(tmp_path)
         assert "LOADED []" in outputs[("warm", suffix)][1]
         assert outputs[("warm", suffix)][0] == outputs[("cold", suffix)][0]
     assert (tmp_path / "warm.provenance.json").read_bytes() == (tmp_path / "cold.provenance.json").read_bytes()
+
+
+def test_scores_one_season_at_a_time_are_the_same_numbers(tmp_path, monkeypatch):
+    # large requests hold one season's yearly means at a time, the others in the cache
+    from evaluation import scoring
+    from evaluation.cache import Cache
+    from evaluation.scoring import Comparison, Source
+
+    ref = write_cf(tmp_path / "ref.nc", dlat=15.0, start_year=1990, years=5, land_fraction=lambda la, lo: (la > 0) * 100.0)
+    runs = [Source(f"run-{k}", "model", (str(write_cf(tmp_path / f"r{k}.nc", dlat=15.0, start_year=1990, years=5, offset=0.3 * k)),))
+            for k in (1, 2)]
+    kwargs = dict(reference=Source("obs", "reference", (str(ref),)), models=runs, variable="tas")
+    held = Comparison(**kwargs, cache=Cache(tmp_path / "cache-a")).scores(regions=["global", "land"], seasons=["ANN", "DJF", "JJA"])
+    monkeypatch.setattr(scoring, "HOLD_LIMIT_BYTES", 0)
+    lean = Comparison(**kwargs, cache=Cache(tmp_path / "cache-b"))
+    table = lean.scores(regions=["global", "land"], seasons=["ANN", "DJF", "JJA"])
+    assert all(not p.seasons for p in lean._prepared.values())  # nothing held after scoring
+    pd.testing.assert_frame_equal(table, held)  # bit for bit: float64 round-trips through NetCDF exactly
