@@ -508,17 +508,28 @@ def _latex_bytes(table: pd.DataFrame, record: Mapping[str, Any] | None) -> bytes
     # "--" is LaTeX's en dash and stays plain ASCII.
     keys = _key_columns(table)
     shown, constant = _compact(_display_frame(table, missing="--"), keys)
-    n_keys = len([k for k in keys if k in shown.columns])
-    styler = (
-        shown.style.hide(axis="index").format(escape="latex").format_index(escape="latex", axis="columns")
-    )
+    key_columns = [k for k in keys if k in shown.columns]
     # a floating table with a caption naming what every row shares (a standard document
-    # with \usepackage{booktabs} compiles it as it is)
+    # with \usepackage{booktabs} compiles it as it is); the metric columns in blocks that
+    # each fit the text width, every block repeating the key columns, stacked in the float
     caption = f"Scores: {_caption(constant)}" if constant else _title(record)
-    tabular = styler.to_latex(
-        hrules=True, column_format="l" * n_keys + "r" * (shown.shape[1] - n_keys),
-        caption=_latex_text(" ".join(caption.split())), position_float="centering",
-    )
+    blocks = []
+    for metrics in _latex_blocks(shown, key_columns):
+        styler = (
+            shown[[*key_columns, *metrics]].style.hide(axis="index").format(escape="latex").format_index(escape="latex", axis="columns")
+        )
+        blocks.append(styler.to_latex(hrules=True, column_format="l" * len(key_columns) + "r" * len(metrics)))
+    # as many blocks to a float as fit the page height; more floats, captioned as parts
+    per_float = max(1, int(_LATEX_HEIGHT_PT // ((len(shown) + 1) * _LATEX_LINE_PT + _LATEX_BLOCK_PT)))
+    floats = [blocks[i:i + per_float] for i in range(0, len(blocks), per_float)]
+    tabular = ""
+    for number, group in enumerate(floats, start=1):
+        part = f" (part {number} of {len(floats)})" if len(floats) > 1 else ""
+        tabular += (
+            "\\begin{table}\n\\centering\n\\caption{" + _latex_text(" ".join(caption.split()) + part) + "}\n"
+            + "\\small\n\\setlength{\\tabcolsep}{4pt}\n"
+            + "\\par\\medskip\n".join(group) + "\\end{table}\n"
+        )
     # "<" and ">" print as other glyphs in LaTeX's default font encoding ("< 0.001")
     tabular = tabular.replace("<", r"\textless{}").replace(">", r"\textgreater{}")
     comment = [f"% {' '.join(_title(record).split())}", "% needs \\usepackage{booktabs}"]
@@ -532,6 +543,42 @@ def _latex_bytes(table: pd.DataFrame, record: Mapping[str, Any] | None) -> bytes
         # A line break in a value would end the comment and turn the rest into LaTeX.
         comment.append(f"%   {key}: {' '.join(value.splitlines())}")
     return ("\n".join(comment) + "\n" + tabular).encode("utf-8")
+
+
+#: The text width of LaTeX's standard ``article`` class at 10 pt (345 pt, Lamport, "LaTeX",
+#: 2nd ed., sec. C.5.3); the table is set in ``\small`` (9 pt), where a digit of Computer
+#: Modern is 4.6 pt wide (value from memory; taken for every character), with
+#: ``\tabcolsep`` = 4 pt (8 pt around a column).
+_LATEX_WIDTH_PT, _LATEX_CHAR_PT, _LATEX_COLUMN_PT = 345.0, 4.6, 8.0
+#: The page height a float may fill (the article class's text height at 10 pt is 550-592 pt
+#: by paper size; the caption and some slack taken off), a table line in \small (11 pt
+#: baseline skip) and what a block adds besides its lines (rules, \medskip).
+_LATEX_HEIGHT_PT, _LATEX_LINE_PT, _LATEX_BLOCK_PT = 480.0, 11.0, 14.0
+
+
+def _latex_blocks(shown: pd.DataFrame, key_columns: Sequence[str]) -> list[list[str]]:
+    """The metric columns of ``shown`` in consecutive groups that fit the text width beside
+    the key columns (at least one metric per group).
+
+    Hand-written: pandas' ``to_latex`` has no column wrapping, and ``longtable`` or
+    ``\resizebox`` would need packages a plain document lacks (or shrink the text).
+    """
+
+    def width(column: str) -> float:
+        texts = [str(column), *(str(v) for v in shown[column])]
+        return max(len(t) for t in texts) * _LATEX_CHAR_PT + _LATEX_COLUMN_PT
+
+    base = sum(width(k) for k in key_columns)
+    blocks: list[list[str]] = []
+    used = base
+    for metric in [c for c in shown.columns if c not in key_columns]:
+        if blocks and blocks[-1] and used + width(metric) <= _LATEX_WIDTH_PT:
+            blocks[-1].append(metric)
+            used += width(metric)
+        else:
+            blocks.append([metric])
+            used = base + width(metric)
+    return blocks or [[]]
 
 
 #: LaTeX's special characters (Lamport, "LaTeX", 2nd ed., sec. 2.2.1 and C.2) as text.
