@@ -205,3 +205,16 @@ def test_cli_ensemble(tmp_path: Path, capsys: pytest.CaptureFixture[str], monkey
     assert main([*argv, "--ensemble", "ens=m0,zz"]) == 2
     err = capsys.readouterr().err.strip().splitlines()
     assert len(err) == 1 and "'zz'" in err[0]
+
+
+def test_run_list_expands_a_ticked_ensemble() -> None:
+    from app.views.runlist import run_options
+
+    names = ["a", mean_name("ens"), "m0", "m1"]
+    members = {mean_name("ens"): ("m0", "m1")}.get
+    closed = run_options(names, ["a"], lambda n: members(n, ()))
+    assert closed == {"a": "a", "ens (ensemble mean of 2)": mean_name("ens")}
+    opened = run_options(names, [mean_name("ens")], lambda n: members(n, ()))
+    assert list(opened.values()) == names and list(opened)[2:] == ["↳ m0", "↳ m1"]
+    # a member ticked alone stays visible (a ticked box never disappears)
+    assert "↳ m1" in run_options(names, ["m1"], lambda n: members(n, ()))

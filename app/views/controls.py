@@ -19,6 +19,7 @@ from ..state import FIELDS, Selection
 from .base import on_document, text_html
 from .look import ACCENT
 from .results import Results
+from .runlist import run_options
 
 __all__ = ["Controls", "SEASON_LABELS"]
 
@@ -77,7 +78,7 @@ class Controls(Viewer):
             label="Reference", options=list(sel.param.reference.objects), value=sel.reference, css_classes=["gs-reference"]
         )
         self.models = pn.widgets.CheckBoxGroup(
-            label="Model runs", options=list(sel.param.models.objects), value=list(sel.models), inline=False, css_classes=["gs-models"]
+            label="Model runs", options=self._run_options(), value=list(sel.models), inline=False, css_classes=["gs-models"]
         )
         self.region = pn.widgets.Select(
             label="Region", options=self._region_options(), value=sel.region, css_classes=["gs-region"]
@@ -203,6 +204,11 @@ class Controls(Viewer):
             options[region_label(region)] = region
         return options
 
+    def _run_options(self) -> dict[str, str]:
+        """The runs to tick; an ensemble expands to its members while it is ticked (app.views.runlist)."""
+        sel = self.selection
+        return run_options(sel.param.models.objects, sel.models or [], self.results.ensemble_members)
+
     @staticmethod
     def _box_text(region: str) -> str:
         return region[4:] if region.startswith("box:") else ""
@@ -211,7 +217,7 @@ class Controls(Viewer):
         sel = self.selection
         self.reference.options = list(sel.param.reference.objects)
         self.reference.value = sel.reference
-        self.models.options = list(sel.param.models.objects)
+        self.models.options = self._run_options()
         self.models.value = [m for m in sel.param.models.objects if m in sel.models]
         self.variable.value = sel.variable
         levels = [v for v in sel.param.level.objects if v]

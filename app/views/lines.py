@@ -11,7 +11,7 @@ from collections.abc import Sequence
 import holoviews as hv
 import numpy as np
 
-__all__ = ["BAND_COLOUR", "curve", "line_figure", "reference_band"]
+__all__ = ["BAND_COLOUR", "curve", "ensemble_bands", "line_figure", "range_band", "reference_band"]
 
 #: Fill of the references' spread (a grey that a thick black reference line stays visible on).
 BAND_COLOUR = "#8b8f98"
@@ -56,15 +56,51 @@ def reference_band(curves: dict, dim: str, *, xdim: hv.Dimension, ydim: hv.Dimen
     """
     if len(curves) < 2:
         return None
+    return range_band(curves, dim, xdim=xdim, ydim=ydim, label=f"reference spread ({', '.join(curves)})", colour=BAND_COLOUR, alpha=0.5)
+
+
+def range_band(curves: dict, dim: str, *, xdim: hv.Dimension, ydim: hv.Dimension, label: str, colour: str, alpha: float) -> hv.Area:
+    """A filled band from the lowest to the highest of several curves at each point of ``dim``.
+
+    The curves are joined on the union of their coordinates; where only some have a value
+    the band spans those, where none has one it has a gap.
+    """
     import pandas as pd
 
     frame = pd.concat({name: pd.Series(da.values, index=da[dim].values) for name, da in curves.items()}, axis=1).sort_index()
     with np.errstate(all="ignore"):
         low, high = frame.min(axis=1, skipna=True), frame.max(axis=1, skipna=True)
-    label = f"reference spread ({', '.join(curves)})"
     x = np.asarray(frame.index, dtype="float64")
     band = hv.Area((x, low.to_numpy(dtype="float64"), high.to_numpy(dtype="float64")), kdims=[xdim], vdims=[ydim, f"{ydim.name}_high"], label=label)
-    return band.opts(color=BAND_COLOUR, alpha=0.5, line_alpha=0.0, backend="bokeh").opts(color=BAND_COLOUR, alpha=0.5, backend="matplotlib")
+    return band.opts(color=colour, alpha=alpha, line_alpha=0.0, backend="bokeh").opts(color=colour, alpha=alpha, backend="matplotlib")
+
+
+def ensemble_bands(members: dict, dim: str, *, xdim: hv.Dimension, ydim: hv.Dimension, colour) -> list[hv.Area]:
+    """The range of each selected ensemble's members, in the ensemble's colour.
+
+    Parameters
+    ----------
+    members
+        Ensemble-mean name (``"<name> (ensemble mean)"``) -> {member name: 1-D DataArray along ``dim``}.
+    colour
+        ``colour(name)``: the line colour of a source (the ensemble mean's is its band's).
+
+    Notes
+    -----
+    The ensemble mean itself is drawn as a line like a run; the band spans the members from
+    their lowest to their highest value at each point (label: "<name>: members' range (N)").
+    An ensemble with fewer than two members' curves has no band.
+    """
+    from evaluation.ensembles import MEAN_SUFFIX
+
+    bands = []
+    for name, curves in members.items():
+        if len(curves) < 2:
+            continue
+        ensemble = name[: -len(MEAN_SUFFIX)] if name.endswith(MEAN_SUFFIX) else name
+        bands.append(range_band(curves, dim, xdim=xdim, ydim=ydim, label=f"{ensemble}: members' range ({len(curves)})",
+                                colour=colour(name), alpha=0.25))
+    return bands
 
 
 def line_figure(curves: list[hv.Element], *, title: str, xticks: list | None = None, xlim: tuple | None = None) -> hv.Overlay:

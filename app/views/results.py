@@ -30,6 +30,7 @@ import xarray as xr
 from bokeh.colors import named
 
 from evaluation import io
+from evaluation.ensembles import mean_name
 from evaluation.errors import InputError
 from evaluation.export import TIDY_COLUMNS
 from evaluation.levels import default_level, labels_from_listing
@@ -274,10 +275,30 @@ class Results:
         return [s.name for s in ordered if s.name in holders]
 
     def models(self, variable: str) -> list[str]:
+        """The runs holding ``variable``; an ensemble's mean (``"<name> (ensemble mean)"``,
+        see :mod:`evaluation.ensembles`) comes right before its members."""
+        runs = self._runs(variable)
+        means = {e.members[0]: mean_name(e.name) for e in self._ensembles(runs)}
+        return [n for r in runs for n in ((means[r], r) if r in means else (r,))]
+
+    def _runs(self, variable: str) -> list[str]:
         holders = self._variables.get(variable, {})
         return [s.name for s in self.collection.models if s.name in holders]
 
+    def _ensembles(self, runs: Sequence[str]) -> tuple:
+        """The collection's ensembles with at least two members among ``runs``."""
+        return getattr(self.collection, "ensembles_of", lambda runs: ())(runs)
+
+    def ensemble_members(self, name: str) -> tuple[str, ...]:
+        """The members of the ensemble whose mean is called ``name``; () for any other name."""
+        return next((e.members for e in self._ensembles(None) if mean_name(e.name) == name), ())
+
     def source(self, name: str) -> Source:
+        members = self.ensemble_members(name)
+        if members:
+            # an ensemble mean: its members' files, and the colour of its first member
+            first = self.collection.source(members[0])
+            return Source(name=name, role="model", paths=tuple(p for m in members for p in self.collection.source(m).paths), colour=first.colour)
         return self.collection.source(name)
 
     def colour(self, name: str) -> str:
@@ -466,7 +487,8 @@ class Results:
         entry = comparisons.get(key)
         if entry is not _MISSING:
             return entry
-        runs = [self.source(n) for n in self.models(variable)]
+        runs = [self.source(n) for n in self._runs(variable)]
+        ensembles = self._ensembles([r.name for r in runs])
         if not runs:
             raise InputError(f"no model run holds '{variable}'", remedy="choose another variable")
         # every other reference holding the variable: its spread is drawn and marks run differences
@@ -475,7 +497,8 @@ class Results:
         while True:
             try:
                 cmp = Comparison(reference=self.source(reference), models=runs, variable=variable, period=period, regrid=self.regrid,
-                                 level=level or None, target_grid=target_grid, alternatives=alternatives)
+                                 level=level or None, target_grid=target_grid, alternatives=alternatives,
+                                 ensembles=self._ensembles([r.name for r in runs]) if ensembles else ())
                 break
             except InputError as error:
                 other = next((a for a in alternatives if _blames(error, a)), None)

@@ -121,6 +121,8 @@ def score_widget(shown: pd.DataFrame, units: dict[str, str], within: dict[str, l
     whose bootstrap interval excludes zero, :data:`evaluation.bootstrap.BEST_RULE`), a metric
     it names marks only those runs."""
     metrics = list(units)
+    # the text column only in a table where some run ties (a column of dashes says nothing)
+    within = within if within and any(any(within.get(m, [])) for m in metrics) else None
     if within:
         shown = shown.copy()
         shown[WITHIN_COLUMN] = [

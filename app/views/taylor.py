@@ -102,7 +102,7 @@ class TaylorView(ResultView):
         sel = self.selection
         toggle = pn.widgets.RadioButtonGroup(
             options={label: key for key, label in TAYLOR_SCALES.items()}, value=sel.taylor, color="light",
-            margin=(4, 10), css_classes=["gs-taylor-scale"],
+            margin=(4, 10), sizing_mode="fixed", width=620, css_classes=["gs-taylor-scale"],
         )
         toggle.param.watch(lambda event: setattr(sel, "taylor", event.new), "value")
         doc = pn.state.curdoc
