@@ -16,11 +16,13 @@ import holoviews as hv
 import numpy as np
 import pandas as pd
 import panel as pn
+from evaluation.ensembles import MEAN_SUFFIX
 from evaluation.regions import region_label
 
 from ..state import TAYLOR_SCALES, Request
 from .base import ResultView, figure_pane, on_document, plot_title
 from .look import REFERENCE_COLOUR
+from .series import ensemble_members, members_of_ensemble
 
 __all__ = ["TaylorView", "taylor_points"]
 
@@ -94,7 +96,7 @@ class TaylorView(ResultView):
         "difference from the reference point (black). The closer a run is to the reference "
         "point, the better its pattern. Black diamonds are the other references, placed as if they "
         "were runs: runs nearer the reference point than they are differ from it by no more than "
-        "the observations do."
+        "the observations do. An ensemble's mean is one point; its members are the small points around it."
     )
 
     def controls(self) -> list[pn.viewable.Viewable]:
@@ -120,9 +122,11 @@ class TaylorView(ResultView):
         unit_args = (*args[:3], request.level, request.target_grid)  # the same comparison as the scores
         units = await results.fetch(("units",) + unit_args, results.units, *unit_args)
         alternatives = await self.alternatives(request)
+        # members of a ticked ensemble (app.views.series.ensemble_members): drawn as its cloud
+        members = [m for m in ensemble_members(results, request) if m not in request.models]
         # the runs and the alternative references, all scored against the selected reference
-        mine = tidy[(tidy["reference"] == request.reference) & tidy["model"].isin([*request.models, *alternatives])]
-        return {"tidy": mine, "units": units, "alternatives": alternatives}
+        mine = tidy[(tidy["reference"] == request.reference) & tidy["model"].isin([*request.models, *alternatives, *members])]
+        return {"tidy": mine, "units": units, "alternatives": alternatives, "members": members}
 
     def figure(self, data: dict[str, Any], request: Request) -> hv.Overlay | None:
         normalised = request.taylor == "normalised"
@@ -172,8 +176,16 @@ class TaylorView(ResultView):
         layers.append(_points(pd.DataFrame({"x": [ref_std], "y": [0.0], "model": [request.reference], "corr": [1.0], "std": [ref_std], "crmse": [0.0]}),
                               label=f"{request.reference} (reference)", colour=REFERENCE_COLOUR, marker="square"))
         alternatives = data.get("alternatives", [])
+        cloud = points[points["model"].isin(data.get("members", []))]
+        for name in request.models:  # each ticked ensemble's members as a cloud of small points in its colour
+            mine = cloud[cloud["model"].isin(members_of_ensemble(self.results, name))]
+            if len(mine):
+                ensemble = name[: -len(MEAN_SUFFIX)] if name.endswith(MEAN_SUFFIX) else name
+                layers.append(_points(mine, label=f"{ensemble}: members ({len(mine)})", colour=self.results.colour(name)).opts(size=7, alpha=0.6, backend="bokeh"))
         for _, row in points.iterrows():
             name = str(row["model"])
+            if name in data.get("members", []):
+                continue
             if name in alternatives:  # another reference, scored against the selected one as if it were a run
                 layers.append(_points(pd.DataFrame([row]), label=f"{name} (alternative reference)", colour=REFERENCE_COLOUR, marker="diamond"))
             else:
