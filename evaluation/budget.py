@@ -431,6 +431,25 @@ def budget_table(source: Source | Iterable[Source], *, period: Period | str | No
     return pd.DataFrame(rows, columns=BUDGET_COLUMNS)
 
 
+def budget_provenance(sources: Iterable[Source], table: pd.DataFrame) -> dict:
+    """The provenance of a budget table (``gridscore budget --output`` and the dashboard's
+    download): the files that hold the four budget fields of each source with rows in
+    ``table``, not every file of the sources."""
+    from types import SimpleNamespace
+
+    from .export import provenance
+
+    shown = set(table["model"])
+    used = []
+    for src in _as_sources(sources):
+        if src.name in shown:
+            files = io.expand_paths(src.paths, source=src.name)
+            names = _resolve_names(src, files)
+            used.append(SimpleNamespace(name=src.name, role=src.role, paths=io.files_holding(files, list(names.values()), source=src.name)))
+    periods = ",".join(sorted(set(map(str, table["period"]))))
+    return provenance(sources=used, variable="toa budget", period=periods, seasons=["ANN"], regions={"global": "90°S to 90°N"}, regrid="none")
+
+
 def budget_series(source: Source, *, period: Period | str | None = None) -> xr.DataArray:
     """Annual global-mean net downward TOA flux of one run (for the drift view).
 

@@ -172,3 +172,20 @@ def test_a_table_of_some_runs_keeps_only_their_entries() -> None:
     assert out["references"] == ["obs"]
     assert out["variable"] == "tas" and out["notes"] == ["kept"]
     assert len(record["inputs"]) == 4  # the record given is not changed
+
+
+def test_the_budget_provenance_lists_the_files_of_its_four_fields(tmp_path) -> None:
+    # the sample's runs hold pr, psl, ta and a land fraction beside the budget's rsdt, rsut, rlut and tas
+    import subprocess
+    import sys
+
+    sample = Path(__file__).resolve().parents[1] / "sample_output" / "runs"
+    runs = ["larkspur-2", "cobble-b"]
+    exe = Path(sys.executable).with_name("gridscore")
+    args = [str(exe), "budget", *(a for r in runs for a in ("--model", f"{r}={sample / r}/*.nc")), "--output", str(tmp_path / "b.csv")]
+    done = subprocess.run(args, capture_output=True, text=True, timeout=600)
+    assert done.returncode == 0, done.stderr
+    record = json.loads((tmp_path / "b.provenance.json").read_text(encoding="utf-8"))
+    expected = {str(sample / r / f) for r in runs for f in os.listdir(sample / r) if f.split("_")[0] in ("rsdt", "rsut", "rlut", "tas")}
+    assert {i["path"] for i in record["inputs"]} == expected
+    assert len(expected) == 8 and len([f for r in runs for f in os.listdir(sample / r)]) > 8

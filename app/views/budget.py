@@ -26,7 +26,7 @@ from ..state import Request
 from .base import ResultView, figure_pane, safe_filename, text_html, text_tooltip
 from .lines import curve, line_figure
 from .results import Results
-from .scores import TABLE_CSS
+from .scores import TABLE_CSS, provenance_download
 
 __all__ = ["BudgetView", "budget_available", "budget_runs"]
 
@@ -53,6 +53,10 @@ def budget_runs(results: Results, names: tuple[str, ...] | list[str]) -> list[st
 
 def budget_available(results: Results) -> bool:
     return bool(budget_runs(results, [s.name for s in results.collection.models]))
+
+
+def _provenance(results: Results, table: pd.DataFrame) -> dict:
+    return budget.budget_provenance([results.source(n) for n in dict.fromkeys(table["model"])], table)
 
 
 def _table(results: Results, names: tuple[str, ...]) -> tuple[pd.DataFrame, dict[str, str]]:
@@ -125,8 +129,10 @@ class BudgetView(ResultView):
         periods = list(dict.fromkeys(table["period"].map(str)))
         note = "" if len(periods) <= 1 else "The sources with numbers share no years; each is shown over its own period."
         references = {s.name for s in collection.references}
+        # the provenance the command line writes beside its CSV (the files of the four fields)
+        record = await results.fetch(("budget-provenance", names), _provenance, results, table)
         return {"table": table, "reasons": reasons, "note": note, "series": series, "names": names,
-                "references": references, "period": ", ".join(periods)}
+                "references": references, "period": ", ".join(periods), "provenance": record}
 
     def figure(self, data: dict[str, Any], request: Request) -> hv.Overlay:
         xdim = hv.Dimension("year", label="Year")
@@ -185,11 +191,14 @@ class BudgetView(ResultView):
             label="CSV", color="light", width=100, height=34,
             description=text_tooltip("Download the budget table (tidy: model, period, metric, value, units)"),
         )
+        csv_name = safe_filename("budget", data["period"]) + ".csv"
+        record = data.get("provenance")
         parts += [
             runs,
             *([pn.pane.HTML('<div class="gs-hint gs-budget-reasons">No numbers for ' + "; ".join(text_html(r) for r in reasons) + "</div>",
                             margin=(4, 10))] if reasons else []),
-            pn.Row(pn.pane.HTML('<span class="gs-hint">Download the table:</span>', margin=(12, 4, 0, 10)), download),
+            pn.Row(pn.pane.HTML('<span class="gs-hint">Download the table:</span>', margin=(12, 4, 0, 10)), download,
+                   *([provenance_download(record, csv_name)] if record is not None else [])),
             pn.pane.HTML('<div class="gs-hint">Published global annual means (W m-2, values from memory, rounded):</div>', margin=(8, 10, 0, 10)),
             estimates,
             figure_pane(self.figure(data, request)),
