@@ -163,3 +163,25 @@ def test_interval_rows(comparison) -> None:
     assert wide.loc["run", "abs_bias_diff_hi"] == pytest.approx(-wide.loc["other", "abs_bias_diff_lo"], rel=1e-12)
     # the run with the 1.5 K tropical bump is clearly worse than the one with 0.4 K
     assert wide.loc["run", "rmse_diff_lo"] > 0 and wide.loc["other", "rmse_diff_hi"] < 0
+
+
+def test_dots_are_thinned_by_block_majority_on_fine_grids() -> None:
+    # a 1° flag field: blocks of 5 x 5 cells (36 x 72 dots at most); a dot where more than half of
+    # a block's tested cells are significant, at the block's centre, rebuilt with numpy reshapes
+    # (common practice for stippling fine grids)
+    from app.views.maps import stipple_points
+
+    rng = np.random.default_rng(9)
+    lat, lon = np.arange(-89.5, 90, 1.0), np.arange(0.5, 360, 1.0)
+    flags = rng.choice(np.array([0, 1, 2], dtype="int8"), size=(180, 360), p=[0.1, 0.5, 0.4])
+    flags[:60, :120] = 2  # a clearly significant patch
+    lon_dots, lat_dots = stipple_points(xr.DataArray(flags, dims=("lat", "lon"), coords={"lat": lat, "lon": lon}))
+    blocks = lambda a: a.reshape(36, 5, 72, 5).sum(axis=(1, 3))  # noqa: E731
+    share = blocks((flags == 2).astype(float)) / np.maximum(blocks((flags > 0).astype(float)), 1)
+    rows, cols = np.nonzero(share > 0.5)
+    expected = sorted(zip(lon.reshape(72, 5).mean(axis=1)[cols], lat.reshape(36, 5).mean(axis=1)[rows], strict=True))
+    np.testing.assert_allclose(np.array(sorted(zip(lon_dots, lat_dots, strict=True))), np.array(expected), rtol=0, atol=1e-9)
+    assert len(expected) >= 12 * 24  # the patch is dotted whole
+    # a 2.5° grid or coarser keeps one dot per significant cell
+    coarse = xr.DataArray(flags[:36, :72], dims=("lat", "lon"), coords={"lat": lat[:36], "lon": lon[:72]})
+    assert len(stipple_points(coarse)[0]) == int((flags[:36, :72] == 2).sum())
