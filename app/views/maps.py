@@ -22,7 +22,7 @@ import numpy as np
 import panel as pn
 import xarray as xr
 
-from evaluation.export import field_bytes
+from evaluation.export import field_bytes, provenance_for
 from evaluation.regions import parse_region
 
 from ..state import Request
@@ -348,7 +348,9 @@ class MapsView(ResultView):
 
         async def make() -> io.BytesIO:
             record = await results.fetch(("provenance",) + args, results.provenance, *args)
-            payload = await results.run(lambda: field_bytes(with_mask(item.data, mask, request.variable), provenance=record))
+            # the files of this map's sources only (the run's and the reference's), not every run of the comparison
+            mine = provenance_for(record, {request.reference, item.source})
+            payload = await results.run(lambda: field_bytes(with_mask(item.data, mask, request.variable), provenance=mine))
             return io.BytesIO(payload)
 
         filename = safe_filename(request.variable, item.title.replace(" ", "-"), request.season, request.period) + ".nc"

@@ -240,3 +240,25 @@ def test_the_table_downloads_list_the_files_of_the_table_only(browser, served) -
         assert entry["size"] == os.stat(entry["path"]).st_size
     assert session.errors() == []
     session.close()
+
+
+def test_a_map_download_lists_the_files_of_its_run_and_reference(browser, served) -> None:
+    import netCDF4
+
+    url, sample, _ = served
+    runs = ["larkspur-2", "pumice-ctl", "tidewell-3"]
+    session = open_dashboard(browser, url + link({"variable": "tas", "models": ",".join(runs), "field": "difference", "tab": "maps"}))
+    page = session.page
+    wait_for_view(page, "maps")
+    with page.expect_download(timeout=60_000) as info:
+        page.locator(".gs-view-maps .gs-download-nc").first.locator("button, a").first.click()
+    name = info.value.suggested_filename
+    run = next(r for r in runs if r in name)
+    with netCDF4.Dataset(info.value.path()) as nc:
+        record = json.loads(nc.getncattr("provenance"))
+    # from the folders on disk: the near-surface temperature files of that run and of the reference
+    expected = {str(sample / "runs" / run / f) for f in os.listdir(sample / "runs" / run) if f.startswith("tas_")}
+    expected |= {str(sample / "references" / "tessera-obs" / f) for f in os.listdir(sample / "references" / "tessera-obs") if f.startswith("tas_")}
+    assert {i["path"] for i in record["inputs"]} == {os.path.abspath(p) for p in expected}
+    assert session.errors() == []
+    session.close()
