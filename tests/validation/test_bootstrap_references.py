@@ -165,3 +165,27 @@ def test_coverage_with_ar1_years_is_below_nominal() -> None:
     # when the blocks are lost.
     rate = coverage(0.3, seed=21)
     assert 0.88 <= rate <= 0.95
+
+
+def test_rmse_interval_coverage_without_persistence() -> None:
+    # the RMSE difference of two runs whose expected fields differ (patterns of RMS 0.577 and 0.751
+    # against the reference's zero field): the truth is the difference of the RMSEs of the expected
+    # fields.  The sample RMSE carries a noise bias (E RMSE² = RMSE² of the expected field + the
+    # noise variance over n; common practice), which mostly cancels in the difference, so a 95 %
+    # interval should still hold the truth in about 95 % of 400 trials of 30 white-noise years
+    # (binomial standard error 1.1 %).  Measured 93.5 %; 86.75 % with AR(1) phi = 0.3, 80 % with
+    # phi = 0.5 (the README says so).
+    rng = np.random.default_rng(30)
+    trials, years, cells = 400, 30, 30
+    pa, pb = np.linspace(-1.0, 1.0, cells), 1.3 * np.linspace(1.0, -1.0, cells)
+    truth = np.sqrt((pa**2).mean()) - np.sqrt((pb**2).mean())
+    ref = ar1(rng, 0.0, (trials, years, cells))
+    a = ar1(rng, 0.0, (trials, years, cells)) + pa
+    b = ar1(rng, 0.0, (trials, years, cells)) + pb
+    w, index = np.ones(cells), np.arange(years)
+    hits = 0
+    for k in range(trials):
+        got = difference_intervals({"a": error_moments(a[k] - ref[k], w, index), "b": error_moments(b[k] - ref[k], w, index)},
+                                   resamples=1000, seed=k)["a"]
+        hits += got["rmse_diff_lo"] <= truth <= got["rmse_diff_hi"]
+    assert 0.92 <= hits / trials <= 0.97
