@@ -22,6 +22,9 @@ import panel as pn  # noqa: E402
 
 __all__ = [
     "ACCENT",
+    "BETTER",
+    "MUTED",
+    "WORSE",
     "INK",
     "PAPER",
     "SEQUENTIAL",
@@ -42,6 +45,13 @@ SEQUENTIAL = list(Viridis256)
 #: (colorcet's diverging maps have a tinted centre).
 DIVERGING = [matplotlib.colors.to_hex(c) for c in matplotlib.colormaps["RdBu_r"](np.linspace(0.0, 1.0, 256))]
 REFERENCE_COLOUR = "#111111"
+#: The overview's two sides of the median run: smaller error (the accent teal) and larger
+#: error (a burnt orange); apart for colour-blind readers (blue–orange axis) and dark enough
+#: for white paper, light enough never to carry text.
+BETTER = "#0f7c78"
+WORSE = "#c0571b"
+#: Text that says "nothing here" (a run without the variable): grey, yet 5:1 on white (WCAG AA).
+MUTED = "#5f6673"
 #: Distinct, colour-blind-safe line colours for runs (Okabe & Ito 2008 without black).
 RUN_COLOURS = ("#0072b2", "#d55e00", "#009e73", "#cc79a7", "#e69f00", "#56b4e9", "#f0e442")
 

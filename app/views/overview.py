@@ -1,10 +1,17 @@
-"""Overview: a heat map of normalised relative errors, runs × variables (Gleckler et al. 2008).
+"""Overview: every run's relative error for every variable, as ranked lollipops.
 
-Each cell is ``(E − median E) / median E`` for one run and one variable, where ``E`` is
-the run's RMSE against the reference and the median is taken over all runs of the
-collection that hold the variable: negative (blue) is better than the typical run,
-positive (red) worse.  Values come from the core's ``rel_error`` score; the heat map is
-computed for the whole collection, not only the runs ticked in the sidebar.
+One narrow panel per variable, one row per run, the runs ranked (best first) by their
+median relative error over everything shown.  A run's value is a dot on a horizontal
+stem from the centre line, which is the median run: ``(E − median E) / median E``
+(Gleckler et al. 2008), where ``E`` is the run's RMSE against the variable's reference
+and the median is over the runs shown that hold the variable.  Left of the line (teal)
+is a smaller error than the typical run, right (orange) a larger one.  "By season" and
+"by region" give every run one sub-row per season or region, so a run's pattern across
+them reads as a short profile inside its band.
+
+Position along a shared axis carries the value (read more exactly than a colour), the
+run order carries the ranking, and the sub-rows are labelled with the season or region
+they show.  The numbers come from :mod:`evaluation.relative`; this module only draws.
 """
 
 from __future__ import annotations
@@ -15,51 +22,151 @@ import holoviews as hv
 import numpy as np
 import pandas as pd
 import panel as pn
-import param
 
 from evaluation.regions import REGIONS, parse_region
+from evaluation.relative import relative_error_table, run_order
 
-from ..state import Request
+from ..state import OVERVIEW_BY, Request
 from .base import ResultView, figure_pane, plot_title
-from .look import DIVERGING
+from .look import BETTER, INK, MUTED, WORSE
 
-__all__ = ["OverviewView", "SPLITS", "error_matrix"]
+__all__ = ["OverviewView", "axis_cap", "describe", "overview_table", "row_positions", "shorten"]
 
-#: What the columns show besides the variable: view option -> label.
-SPLITS = {"none": "Variables", "season": "Variables × seasons", "region": "Variables × regions"}
 _SEASONS = ("ANN", "DJF", "MAM", "JJA", "SON")
+#: Blank sub-rows between two runs' bands when each run has several sub-rows.
+GAP = 0.8
+#: The axis reaches the smallest of these that holds nine in ten values; values beyond it
+#: are drawn at the edge with an arrow head (hover gives the value).
+CAPS = (0.25, 0.5, 1.0)
+_BAND = "#eef2f1"
+#: Pixels the figure may take beside the sidebar on a 1500-pixel-wide screen, and those of the run names.
+WIDTH = 1050
+NAME_PX = 150
+#: Characters of a run name that fit in NAME_PX at 10 pt bold; longer names take two lines (hover has them whole).
+NAME_CHARS = 20
 
 
-def error_matrix(tidy: pd.DataFrame, *, split: str) -> pd.DataFrame:
-    """Relative errors as a long frame: ``model``, ``column`` (variable [× split]), ``value``.
+def _variable_label(variable: str, level: Any) -> str:
+    """A variable on levels is shown on its level: ``ta 500 hPa``."""
+    return f"{variable} {level}" if isinstance(level, str) and level else str(variable)
 
-    Notes
-    -----
-    Rows other than the ``rel_error`` metric are ignored; NaN stays NaN (an empty cell).
+
+def _part_label(by: str, part: str) -> str:
+    """A sub-row's label: the season, or the region's name without its latitudes."""
+    if by == "region":
+        return parse_region(part).label.split(" (")[0]
+    return str(part) if by == "season" else ""
+
+
+def overview_table(tidy: pd.DataFrame, ties: pd.DataFrame | None, by: str) -> pd.DataFrame:
+    """The overview's values: :func:`evaluation.relative.relative_error_table` of ``tidy``
+    with ``label`` (variable [level]), ``part`` (season or region id for ``by`` = season or
+    region, else empty) and ``tied`` (within observational uncertainty of the best run).
     """
-    rel = tidy[tidy["metric"] == "rel_error"].copy()
-    if "level" in rel.columns:  # a variable on levels is shown on its level: "ta 500 hPa"
-        rel["variable"] = [f"{v} {lv}" if isinstance(lv, str) and lv else v for v, lv in zip(rel["variable"], rel["level"], strict=True)]
-    if split == "season":
-        rel["column"] = rel["variable"] + " " + rel["season"]
-    elif split == "region":
-        rel["column"] = rel["variable"] + " " + rel["region"]
-    else:
-        rel["column"] = rel["variable"]
-    return rel[["model", "column", "variable", "region", "season", "reference", "value"]].reset_index(drop=True)
+    table = relative_error_table(tidy)
+    if table.empty:
+        return table.assign(label=[], part=[], tied=[])
+    table["label"] = [_variable_label(v, lv) for v, lv in zip(table["variable"], table.get("level", [""] * len(table)), strict=True)]
+    table["part"] = table[by].astype(str) if by in ("season", "region") else ""
+    tied: set[tuple[str, ...]] = set()
+    if ties is not None and not ties.empty:
+        tied = {
+            (str(m), _variable_label(v, lv), str(r), str(s))
+            for m, v, lv, r, s in ties[["model", "variable", "level", "region", "season"]].itertuples(index=False, name=None)
+        }
+    table["tied"] = [(str(m), lab, str(r), str(s)) in tied for m, lab, r, s in table[["model", "label", "region", "season"]].itertuples(index=False, name=None)]
+    return table
 
 
-def _tied_cells(ties: pd.DataFrame | None, split: str) -> set[tuple[str, str]]:
-    """(run, column) of the cells within observational uncertainty of their column's best."""
-    if ties is None or ties.empty:
-        return set()
-    return set(zip(ties["model"], error_matrix(ties.assign(metric="rel_error", reference="", value=0.0), split=split)["column"], strict=True))
+def row_positions(runs: list[str], parts: list[str]) -> tuple[dict[tuple[str, str], float], dict[str, float], tuple[float, float]]:
+    """Vertical positions: ``(run, part) -> y``, ``run -> y of its band's centre`` and the y range.
+
+    The first run is at the top (y = 0, going down); each run has one sub-row per part and
+    a gap of :data:`GAP` rows before the next run when there are several parts.
+    """
+    k = max(1, len(parts))
+    step = k + (GAP if k > 1 else 0.0)
+    y = {(r, p): -(i * step + j) for i, r in enumerate(runs) for j, p in enumerate(parts)}
+    centre = {r: -(i * step + (k - 1) / 2) for i, r in enumerate(runs)}
+    bottom = -((len(runs) - 1) * step + k - 1)
+    return y, centre, (bottom - 0.7, 0.7)
 
 
-def _cell_text(value: float) -> str:
+def axis_cap(values: Any) -> float:
+    """Half the width of the shared axis: the smallest of :data:`CAPS` that holds nine in ten
+    finite values (the largest when more lie beyond it)."""
+    finite = np.abs(np.asarray(values, dtype="float64"))
+    finite = finite[np.isfinite(finite)]
+    if finite.size == 0:
+        return CAPS[-1]
+    reach = float(np.quantile(finite, 0.9))
+    return next((c for c in CAPS if reach <= c), CAPS[-1])
+
+
+def shorten(text: str, limit: int = NAME_CHARS) -> str:
+    """``text`` on at most two lines of ``limit`` characters, broken at a space where one is
+    (else cut), a cut marked with "…"."""
+    if len(text) <= limit:
+        return text
+    head = text[: limit + 1].rpartition(" ")[0] or text[:limit]
+    rest = text[len(head):].strip()
+    second = rest if len(rest) <= limit else rest[: limit - 1].rstrip() + "…"
+    return f"{head}\n{second}"
+
+
+def _number(value: float, units: str = "") -> str:
     if not np.isfinite(value):
-        return ""
+        return "—"
+    text = f"{value:.4g}"
+    return f"{text} {units}".strip()
+
+
+def _signed(value: float) -> str:
+    if not np.isfinite(value):
+        return "—"
     return "0.00" if abs(value) < 0.005 else f"{value:+.2f}"  # no "-0.00"
+
+
+def _ordered_parts(table: pd.DataFrame, by: str) -> list[str]:
+    present = list(dict.fromkeys(table["part"]))
+    canonical = list(_SEASONS) if by == "season" else list(REGIONS) if by == "region" else []
+    return [p for p in canonical if p in present] + [p for p in present if p not in canonical]
+
+
+def describe(table: pd.DataFrame, request: Request, *, short: bool = False) -> str:
+    """What the overview shows, in words: runs, references, where, when, periods and the median.
+
+    The region and season named are those of the values (every season or region of the
+    sub-view), the references and periods those each variable was scored with.
+    """
+    by = request.overview_by
+    parts = _ordered_parts(table, by)
+    per_ref = table.groupby("reference", sort=False)["label"].unique()
+    if len(per_ref) == 1:
+        refs = f"against {per_ref.index[0]}"
+    else:
+        refs = "against " + "; ".join(f"{ref} ({', '.join(labels)})" for ref, labels in per_ref.items())
+    per_period = table.groupby("period", sort=False)["label"].unique()
+    if len(per_period) == 1:
+        periods = str(per_period.index[0])
+    else:
+        periods = "; ".join(f"{period} ({', '.join(labels)})" for period, labels in per_period.items())
+    if by == "region":
+        where = "regions " + ", ".join((p if short else parse_region(p).label) for p in parts)
+    else:
+        where = parse_region(str(table["region"].iloc[0])).label
+    when = "seasons " + ", ".join(parts) if by == "season" else str(table["season"].iloc[0])
+    counts = table.groupby("label", sort=False)["runs"].max()
+    runs = table["model"].nunique()
+    fewer = [f"{label} {n}" for label, n in counts.items() if n < runs]
+    median = f"0 = the median over the {runs} runs shown"
+    if fewer and not short:
+        median += f" (over fewer where runs lack a variable: {', '.join(fewer)})"
+    if short:  # a figure title: the panels name each variable's reference and period when they differ
+        where = f"{len(parts)} regions" if by == "region" else where
+        common = [refs, periods] if len(per_ref) == 1 and len(per_period) == 1 else []
+        return " · ".join([f"{runs} runs", *common, where, when, median])
+    return " · ".join([f"{runs} runs × {len(counts)} variables", refs, where, when, periods, median])
 
 
 class OverviewView(ResultView):
@@ -69,92 +176,193 @@ class OverviewView(ResultView):
     title = "Overview of relative errors"
     uses = ("reference", "region", "season", "period")
     explanation = (
-        "Each cell compares one run's RMSE for one variable with the median RMSE of all runs "
-        "(Gleckler et al. 2008): −0.2 means 20 % smaller error than the typical run (blue, "
-        "better), +0.2 means 20 % larger (red, worse). Computed for every run and variable of "
-        "the collection, for the selected region, season and period; grey: the run does not "
-        "provide the variable. ≈ marks a run within observational uncertainty of the best run of "
-        "its column (for variables with several references; the rule is on the Scores page)."
+        "One panel per variable, one row per run; the runs are ranked, best first, by their median "
+        "relative error over every value shown. A dot's distance from the centre line is the run's RMSE "
+        "relative to the median RMSE of the runs shown that hold the variable (Gleckler et al. 2008): "
+        "left of the line (teal) a smaller error than the typical run, right (orange) a larger one; "
+        "−0.2 means 20 % smaller; a dark dot is the median run itself. “By season” and “By region” give "
+        "each run one sub-row per season or region. A triangle at the edge lies beyond the axis (hover "
+        "for the value); “n/a”: the run does not provide the variable; ≈ within observational "
+        "uncertainty of the best run of that variable (variables with several references; the rule is "
+        "on the Scores page). Hover a dot for the RMSE, the median and the number of runs behind it."
     )
-
-    split = param.Selector(default="none", objects=list(SPLITS))
 
     def controls(self) -> list[pn.viewable.Viewable]:
         choice = pn.widgets.RadioButtonGroup(
-            label="Columns", options={label: key for key, label in SPLITS.items()}, value=self.split, color="light", margin=(4, 10)
+            label="Overview by", options={label: key for key, label in OVERVIEW_BY.items()}, value=self.selection.overview_by,
+            color="light", margin=(4, 10), css_classes=["gs-overview-by"],
         )
-        choice.link(self, value="split")
-        self.param.watch(lambda event: self.update(force=True), "split")
+
+        def picked(event: Any) -> None:
+            self.selection.overview_by = event.new
+
+        def changed(event: Any) -> None:  # a link or another control set it
+            choice.value = event.new
+
+        choice.param.watch(picked, "value")
+        self.selection.param.watch(changed, "overview_by")
         return [choice]
 
     def key(self, request: Request) -> Any:
-        return (request.reference, request.region, request.season, request.period, self.split)
+        return (request.reference, request.region, request.season, request.period, request.target_grid, request.overview_by)
 
     async def load(self, request: Request) -> dict[str, Any]:
-        regions = tuple(REGIONS) if self.split == "region" else (request.region,)
-        seasons = _SEASONS if self.split == "season" else (request.season,)
+        by = request.overview_by
+        regions = tuple(REGIONS) if by == "region" else (request.region,)
+        seasons = _SEASONS if by == "season" else (request.season,)
         args = (request.reference, request.period, regions, seasons, request.target_grid)
         results = self.results
         tidy = await results.fetch(("overview",) + args, results.overview, *args)
         ties = await results.fetch(("overview_ties",) + args, results.overview_ties, *args)
-        return {"tidy": tidy, "split": self.split, "ties": ties}
+        return {"table": overview_table(tidy, ties, by), "by": by}
 
-    def figure(self, data: dict[str, Any], request: Request) -> hv.Overlay | None:
-        matrix = error_matrix(data["tidy"], split=data["split"])
-        if matrix.empty:
+    # ------------------------------------------------------------------ what is shown, in words
+    def context(self, request: Request) -> str:
+        table = self._last[0]["table"] if self._last is not None and self._last[1] == request else None
+        if table is None or table.empty:
+            return super().context(request)
+        return describe(table, request)
+
+    # ------------------------------------------------------------------ drawing
+    def figure(self, data: dict[str, Any], request: Request) -> hv.Layout | None:
+        table: pd.DataFrame = data["table"]
+        if table.empty:
             return None
-        runs = list(dict.fromkeys(matrix["model"]))
-        columns = list(dict.fromkeys(matrix["column"]))
-        finite = matrix["value"].to_numpy(dtype="float64")
-        finite = finite[np.isfinite(finite)]
-        top = float(np.abs(finite).max()) if finite.size else 1.0
-        top = top if top > 0 else 1.0  # all runs equal: a zero range breaks the colour bar
-        # "≈": within observational uncertainty of the best run of the column (several references)
-        tied = _tied_cells(data.get("ties"), data["split"])
-        marks = ["≈" if (m, c) in tied else "" for m, c in zip(matrix["model"], matrix["column"], strict=True)]
-        frame = matrix.assign(text=[mark + _cell_text(v) for mark, v in zip(marks, matrix["value"], strict=True)])
-        # HoloViews reshapes the hover columns into the grid; pyarrow-backed strings
-        # (pandas' default string type) cannot be reshaped, plain objects can.
-        frame = frame.astype({c: object for c in frame.columns if c != "value"})
-        xdim = hv.Dimension("column", label="Variable", values=columns)
-        ydim = hv.Dimension("model", label="Run", values=runs[::-1])
-        vdim = hv.Dimension("value", label="Relative error")
-        heat = hv.HeatMap(frame, [xdim, ydim], [vdim, "reference", "region", "season"])
-        # Dark cells need light text: two label layers, split at 60 % of the colour range.
-        dark = np.abs(frame["value"].to_numpy(dtype="float64")) > 0.6 * top
-        labels = [hv.Labels(frame[dark], [xdim, ydim], "text"), hv.Labels(frame[~dark], [xdim, ydim], "text")]
-        where = parse_region(request.region).label if data["split"] != "region" else "all regions"
-        when = request.season if data["split"] != "season" else "seasons"
-        title = plot_title(f"Relative RMSE error: {where}, {when}, {request.period}")
-        height = max(260, 60 + 44 * len(runs))
-        heat = heat.opts(
-            cmap=DIVERGING, clim=(-top, top), colorbar=True, tools=["hover"], xrotation=30 if len(columns) > 6 else 0,
-            responsive=True, height=height, title=title, clipping_colors={"NaN": "#eeeeee"}, toolbar="above",
-            colorbar_opts={"title": "rel. error"}, backend="bokeh",
-        ).opts(cmap=DIVERGING, clim=(-top, top), colorbar=True, title=title, fig_inches=(max(6, 1.1 * len(columns) + 3), max(3, 0.5 * len(runs) + 1.5)),
-               xrotation=30 if len(columns) > 6 else 0, backend="matplotlib")
-        labels = [
-            layer.opts(text_font_size="10pt", text_color=colour, backend="bokeh").opts(size=9, color=colour, backend="matplotlib")
-            for layer, colour in zip(labels, ("#ffffff", "#111827"), strict=True)
-        ]
-        return heat * labels[0] * labels[1]
+        by = data["by"]
+        runs = run_order(table)
+        parts = _ordered_parts(table, by) if by in ("season", "region") else [""]
+        labels = list(dict.fromkeys(table["label"]))
+        y, centre, ylim = row_positions(runs, parts)
+        k = len(parts)
+        row_px = 30 if k == 1 else 15 if k <= 5 else 14  # 8 pt sub-row names need 13 px
+        height = int(row_px * (ylim[1] - ylim[0]))
+        # run names take NAME_PX; sub-row names what the longest needs (8 pt, about 6 px a character)
+        label_width = NAME_PX + (0 if k == 1 else 12 + 6 * max(len(_part_label(by, p)) for p in parts))
+        panel_width = int(np.clip((WIDTH - label_width) / len(labels) - 18, 60, 220))
+        cap = axis_cap(table["rel_error"])
+        xlim = (-cap * 1.12, cap * 1.12)
 
-    def export_figure(self, data: dict[str, Any], request: Request) -> hv.Element | None:
-        # matplotlib cannot place text labels on categorical heat-map axes; it writes the
-        # values into the cells itself.
+        # the label panel: rank and run name at the band's centre, sub-row names on the right
+        names = pd.DataFrame({"x": 0.02, "y": [centre[r] for r in runs], "text": [shorten(f"{i}. {r}") for i, r in enumerate(runs, 1)]})
+        panel = hv.Labels(names, ["x", "y"], "text").opts(
+            text_align="left", text_font_size="10pt", text_color=INK, text_font_style="bold", backend="bokeh",
+        ).opts(horizontalalignment="left", size=9, color=INK, weight="bold", backend="matplotlib")
+        if k > 1:
+            subs = pd.DataFrame({"x": 0.98, "y": [y[(r, p)] for r in runs for p in parts], "text": [_part_label(by, p) for _ in runs for p in parts]})
+            panel = panel * hv.Labels(subs, ["x", "y"], "text").opts(
+                text_align="right", text_font_size="8pt", text_color="#4b5563", backend="bokeh",
+            ).opts(horizontalalignment="right", size=7, color="#4b5563", backend="matplotlib")
+        panel = panel.opts(
+            xaxis=None, yaxis=None, xlim=(0, 1), ylim=ylim, frame_width=label_width, frame_height=height, title=" ", toolbar=None,
+            show_frame=False, fontsize={"title": "10pt"}, backend="bokeh",
+        ).opts(xaxis=None, yaxis=None, xlim=(0, 1), ylim=ylim, title=" ", aspect=1.4 * label_width / height, show_frame=False, backend="matplotlib")
+        panels = [panel]
+
+        bands = [(y[(r, parts[-1])] - 0.5, y[(r, parts[0])] + 0.5) for i, r in enumerate(runs) if i % 2 == 0]
+        for index, label in enumerate(labels):
+            block = table[table["label"] == label].copy()
+            block["y"] = [y[(m, p)] for m, p in zip(block["model"], block["part"], strict=True)]
+            value = block["rel_error"].to_numpy(dtype="float64")
+            block["shown"] = np.clip(value, -cap, cap)
+            block["colour"] = np.where(value < 0, BETTER, np.where(value > 0, WORSE, INK))
+            block["where"] = [f"{parse_region(r).label}, {s}" for r, s in zip(block["region"], block["season"], strict=True)]
+            block["rmse_text"] = [_number(v, u) for v, u in zip(block["rmse"], block["units"], strict=True)]
+            block["median_text"] = [_number(v, u) for v, u in zip(block["median_rmse"], block["units"], strict=True)]
+            block["rel_text"] = [_signed(v) for v in value]
+            block["n_runs"] = block["runs"].astype(int)
+            block["rank_text"] = [f"{int(rk)} of {n}" if np.isfinite(rk) else "—" for rk, n in zip(block["rank"], block["runs"], strict=True)]
+            block = block.astype({c: object for c in ("model", "reference", "period", "label", "where", "rmse_text", "median_text", "rel_text", "rank_text", "colour")})
+            finite = block[np.isfinite(value)]
+            inside = finite[np.abs(finite["rel_error"]) <= cap]
+            outside = finite[np.abs(finite["rel_error"]) > cap]
+            hover = ["y", "model", "label", "where", "reference", "period", "rmse_text", "median_text", "n_runs", "rel_text", "rank_text", "colour"]
+            tooltips = [
+                ("Run", "@{model}"), ("Variable", "@{label}"), ("Where, when", "@{where}"), ("Reference", "@{reference}"), ("Period", "@{period}"),
+                ("RMSE", "@{rmse_text}"), ("Median RMSE", "@{median_text}"), ("Runs in the median", "@{n_runs}"),
+                ("Relative error", "@{rel_text}"), ("Rank", "@{rank_text}"),
+            ]
+            # every layer's first dimensions are (shown, y): the axes are labelled after them
+            # (HoloViews finds a dimension by its label too: every label differs)
+            x, yd = hv.Dimension("shown", label="relative error", range=xlim), hv.Dimension("y", label="row")
+            ends = [hv.Dimension("x_end", label="row end x"), hv.Dimension("y_end", label="row end y")]
+            layers = []
+            if bands:
+                spans = pd.DataFrame([(xlim[0], low, xlim[1], high) for low, high in bands], columns=["shown", "y", "x_end", "y_end"])
+                layers.append(hv.Rectangles(spans, [x, yd, *ends]).opts(color=_BAND, line_width=0, backend="bokeh")
+                              .opts(color=_BAND, linewidth=0, backend="matplotlib"))
+            zero = pd.DataFrame({"shown": [0.0], "y": [ylim[0]], "x_end": [0.0], "y_end": [ylim[1]]})
+            layers.append(hv.Segments(zero, [x, yd, *ends]).opts(color=INK, line_width=1, backend="bokeh")
+                          .opts(color=INK, linewidth=0.8, backend="matplotlib"))
+            stems = finite.assign(x_end=finite["shown"], y_end=finite["y"], shown=0.0)
+            layers.append(hv.Segments(stems, [x, yd, *ends], ["colour"]).opts(
+                color="colour", line_width=2 if k > 1 else 3, backend="bokeh").opts(color="colour", linewidth=1.2, backend="matplotlib"))
+            layers.append(hv.Scatter(inside, x, [yd, *hover[1:]]).opts(
+                color="colour", size=7 if k > 1 else 10, line_color="white", tools=["hover"], hover_tooltips=tooltips, backend="bokeh",
+            ).opts(color="colour", s=12 if k > 1 else 30, edgecolors="white", backend="matplotlib"))
+            for side, turn in ((outside[outside["rel_error"] > 0], -90), (outside[outside["rel_error"] < 0], 90)):
+                if side.empty:
+                    continue
+                # an arrow head pointing off the axis (HoloViews takes a constant angle in degrees)
+                layers.append(hv.Scatter(side, x, [yd, *hover[1:]]).opts(
+                    color="colour", marker="triangle", angle=turn, size=10 if k > 1 else 13, tools=["hover"], hover_tooltips=tooltips,
+                    backend="bokeh",
+                ).opts(color="colour", marker=">" if turn < 0 else "<", s=22 if k > 1 else 45, backend="matplotlib"))
+            present = {(m, p) for m, p in zip(finite["model"], finite["part"], strict=True)}
+            # a run without the variable: "n/a" at the left edge, off the centre line
+            gaps = pd.DataFrame([(xlim[0] + 0.04 * cap, y[(r, p)], "n/a") for r in runs for p in parts if (r, p) not in present], columns=["shown", "y", "text"])
+            if not gaps.empty:
+                layers.append(hv.Labels(gaps, [x, yd], "text").opts(text_color=MUTED, text_font_size="8pt", text_align="left", backend="bokeh")
+                              .opts(color=MUTED, size=6, horizontalalignment="left", backend="matplotlib"))
+            tied = finite[finite["tied"].astype(bool)]
+            if not tied.empty:
+                marks = pd.DataFrame({"shown": tied["shown"] + np.where(tied["shown"] < 0, -0.16, 0.16) * cap, "y": tied["y"], "text": "≈"})
+                layers.append(hv.Labels(marks, [x, yd], "text").opts(text_color=INK, text_font_size="11pt", backend="bokeh")
+                              .opts(color=INK, size=9, backend="matplotlib"))
+            title = plot_title(label)
+            panels.append(hv.Overlay(layers).redim.range(y=ylim).opts(
+                title=title, frame_width=panel_width, frame_height=height, yaxis=None, xlim=xlim, ylim=ylim, show_grid=False,
+                toolbar=None, xticks=[-cap, 0, cap], xlabel="" if index else "relative error", fontsize={"title": "10pt", "xticks": "8pt", "xlabel": "8pt"},
+                backend="bokeh",
+            ).opts(title=title, yaxis=None, xlim=xlim, ylim=ylim, xticks=[-cap, 0, cap], aspect=panel_width / height, xlabel="", ylabel="", fontsize={"title": 8, "xticks": 6},
+                   backend="matplotlib"))
+        return hv.Layout(panels).cols(len(panels)).opts(shared_axes=False, toolbar=None, backend="bokeh").opts(
+            shared_axes=False, sublabel_format="", hspace=0.08, fig_inches=(min(16.0, 1.6 + 0.95 * len(labels)), None), backend="matplotlib",
+        )
+
+    def export_figure(self, data: dict[str, Any], request: Request) -> hv.Layout | None:
+        """The figure for matplotlib: the run and sub-row names as the first panel's tick labels
+        (matplotlib does not keep a text-only panel on the variable panels' rows)."""
         figure = self.figure(data, request)
         if figure is None:
             return None
-        heat = figure.get(0)
-        runs, columns = len(heat.dimension_values(1, expanded=False)), len(heat.dimension_values(0, expanded=False))
-        rounded = heat.clone(heat.data.assign(value=heat.data["value"].round(2)))
-        return rounded.opts(
-            show_values=True, aspect=max(1.0, columns / max(runs, 1)) * 1.2, fig_inches=max(7.0, 1.1 * columns + 3.0),
-            backend="matplotlib",
+        table, by = data["table"], data["by"]
+        runs = run_order(table)
+        parts = _ordered_parts(table, by) if by in ("season", "region") else [""]
+        y, centre, _ = row_positions(runs, parts)
+        if len(parts) == 1:
+            ticks = [(centre[r], f"{i}. {r}") for i, r in enumerate(runs, 1)]
+        else:
+            ticks = [(y[(r, p)], f"{i}. {r} · {_part_label(by, p)}" if j == 0 else _part_label(by, p))
+                     for i, r in enumerate(runs, 1) for j, p in enumerate(parts)]
+        labels = list(dict.fromkeys(table["label"]))
+        first = table.drop_duplicates("label").set_index("label")
+        several = table["reference"].nunique() > 1 or table["period"].nunique() > 1
+        panels = []
+        for index, panel in enumerate(list(figure)[1:]):
+            label = labels[index]
+            # a report figure stands alone: each variable's reference and period under its name when they differ
+            title = f"{label}\n{first.loc[label, 'reference']}\n{first.loc[label, 'period']}" if several else label
+            xlabel = "relative error" if index == 0 else ""
+            panels.append(panel.opts(title=plot_title(title), xlabel=xlabel or " ", ylabel=" ", backend="matplotlib"))
+        panels[0] = panels[0].opts(yaxis="left", yticks=ticks, fontsize={"title": 7, "xticks": 6, "yticks": 6 if len(parts) > 1 else 8},
+                                   backend="matplotlib")
+        return hv.Layout(panels).cols(len(panels)).opts(
+            title=plot_title(f"Relative RMSE error (Gleckler et al. 2008): {describe(table, request, short=True)}"),
+            fontsize={"title": 8}, shared_axes=False, sublabel_format="", hspace=0.1, fig_inches=(min(16.0, 2.2 + 0.95 * len(panels)), None), backend="matplotlib",
         )
 
     def figure_name(self, request: Request) -> str:
-        return super().figure_name(request).replace(f"_{request.variable}_", "_")
+        return super().figure_name(request).replace(f"_{request.variable}_", f"_by-{request.overview_by}_")
 
     def draw(self, data: dict[str, Any], request: Request) -> pn.viewable.Viewable:
         figure = self.figure(data, request)

@@ -20,6 +20,7 @@ from evaluation.bootstrap import BEST_RULE, GUARDED_BEST
 from evaluation.export import METRIC_ORDER, provenance_bytes, provenance_for, sidecar_path, table_bytes, wide_table
 from evaluation.metrics import METRICS
 from evaluation.regions import parse_region, region_label
+from evaluation.relative import relative_error_table, with_relative_errors
 from evaluation.uncertainty import RULE, run_pairs, tied_with
 
 from ..state import SORT_KEYS, Request, parse_sort
@@ -226,10 +227,12 @@ class ScoresView(ResultView):
         alternatives = await self.alternatives(request)
         # the selected runs against every reference, and the other references against the selected one
         every = tidy[tidy["model"].isin([*request.models, *alternatives])].reset_index(drop=True)
+        # relative error: against the median of the runs shown (the ticked ones), as on the command line
+        every = with_relative_errors(every, request.models)
         mine = every[(every["reference"] == request.reference) & every["model"].isin(request.models)].reset_index(drop=True)
         pairs = run_pairs(every[every["model"].isin(request.models)], primary=request.reference) if alternatives else None
-        runs = tidy.loc[(tidy["reference"] == request.reference) & ~tidy["model"].isin(alternatives), "model"].nunique()
-        return {"tidy": mine, "every": every, "pairs": pairs, "alternatives": alternatives, "provenance": record, "left_out": left, "runs": int(runs)}
+        runs = relative_error_table(every[every["reference"] == request.reference], request.models)["runs"].max()
+        return {"tidy": mine, "every": every, "pairs": pairs, "alternatives": alternatives, "provenance": record, "left_out": left, "runs": int(runs) if pd.notna(runs) else 0}
 
     def table(self, tidy: pd.DataFrame) -> tuple[pd.DataFrame, dict[str, str]]:
         """The shown frame (one row per run, one column per metric) and each column's units."""
@@ -261,7 +264,7 @@ class ScoresView(ResultView):
         region = parse_region(request.region)
         context = (
             f"Region {region_label(region)}: {region.definition}. Relative error compares each run's RMSE with the "
-            f"median over all {data['runs']} runs of the collection (Gleckler et al. 2008)."
+            f"median over the {data['runs']} runs shown (Gleckler et al. 2008); ticking a run on or off changes it."
         )
         parts: list[Any] = [pn.pane.HTML(f'<div class="gs-hint">{text_html(context)}</div>', margin=(0, 10, 6, 10))]
         if confirmed:
