@@ -89,3 +89,35 @@ def test_runs_ordered_by_their_median_relative_error() -> None:
     # by hand: r1 tas -0.6, pr +1/3 -> median -0.1333; r2 tas -0.2, pr -1/3 -> -0.2667;
     # r3 tas +0.6 (pr missing) -> 0.6; r4 tas +0.2 -> 0.2
     assert run_order(table) == ["r2", "r1", "r4", "r3"]
+
+
+def test_runs_shown_from_a_larger_comparison_equal_a_request_of_those_runs(tmp_path) -> None:
+    """The dashboard scores every run of the collection at once and then takes the median over
+    the runs ticked; the command line scores only the runs it is given.  Both give the same
+    relative errors, and those follow the formula by hand (Gleckler et al. 2008)."""
+    from cfdata import write_cf
+
+    from evaluation.scoring import Comparison, Source
+
+    def field(seed):
+        return lambda lat, lon, year, month: 280.0 + 20.0 * np.cos(np.deg2rad(lat)) + seed * np.sin(np.deg2rad(lon)) + 0.1 * month
+
+    common = dict(dlat=10.0, start_year=2000, years=3, dtype="float64")
+    ref = write_cf(tmp_path / "ref.nc", field=field(0.0), **common)
+    runs = {name: write_cf(tmp_path / f"{name}.nc", field=field(seed), offset=offset, **common)
+            for name, seed, offset in (("a", 1.0, 0.5), ("b", 2.0, -0.2), ("c", 3.0, 1.5), ("d", 0.5, 0.9))}
+
+    def scores(names):
+        cmp = Comparison(reference=Source(name="ref", role="reference", paths=[str(ref)]),
+                         models=[Source(name=n, role="model", paths=[str(runs[n])]) for n in names], variable="tas")
+        return cmp.scores(regions=["global"], seasons=["ANN"])
+
+    every = scores(["a", "b", "c", "d"])
+    shown = ["a", "c", "d"]
+    dashboard = with_relative_errors(every, shown)
+    request = scores(shown)
+    pick = lambda t: t[(t["metric"] == "rel_error") & t["model"].isin(shown)].set_index("model")["value"].sort_index()  # noqa: E731
+    np.testing.assert_allclose(pick(dashboard).to_numpy(), pick(request).to_numpy(), rtol=1e-12)
+    rmse = request[request["metric"] == "rmse"].set_index("model")["value"].sort_index()
+    median = np.median(rmse.to_numpy())  # Gleckler et al. 2008: the median over the runs compared
+    np.testing.assert_allclose(pick(request).to_numpy(), (rmse.to_numpy() - median) / median, rtol=1e-12)
