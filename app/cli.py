@@ -103,10 +103,11 @@ def _scheduler(args) -> contextlib.AbstractContextManager:
     workers = getattr(args, "workers", None)
     if not address and workers is None:  # --workers 0 is refused by connect, not ignored
         import dask
+        import dask.threaded
 
-        # dask's default, named: without a named scheduler every compute first imports
-        # dask.distributed to look for a client (about 0.4 s of every command)
-        return dask.config.set(scheduler="threads")
+        # dask's default threads, given as the function: a scheduler given by name or none
+        # makes every compute import dask.distributed to look for a client (0.4 s a command)
+        return dask.config.set(scheduler=dask.threaded.get)
     from evaluation.engine import connect
 
     return connect(address=address, workers=workers)
