@@ -178,7 +178,7 @@ def _santer(y: np.ndarray, x: np.ndarray) -> tuple[float, float]:
 def _rows(table: pd.DataFrame):
     for key, rows in table.groupby(["model", "region", "season"]):
         values = dict(zip(rows["metric"], rows["value"], strict=True))
-        assert len(values) == len(rows) == 14, key  # one row per contract metric
+        assert len(values) == len(rows) == 19, key  # one row per contract metric (14 scores, 5 significance rows)
         yield key, values
 
 
