@@ -24,6 +24,7 @@ import xarray as xr
 
 from evaluation.export import field_bytes, provenance_for
 from evaluation.regions import parse_region
+from evaluation.significance import FDR_LEVEL
 
 from ..state import Request
 from .base import ResultView, figure_pane, plot_title, safe_filename, text_tooltip
@@ -92,7 +93,7 @@ def display_grid(field: xr.DataArray) -> xr.DataArray:
 #: colours between the dots stay readable.
 MAX_STIPPLE_ROWS, MAX_STIPPLE_COLUMNS = 36, 72
 #: The legend of the stippling (the false-discovery level of evaluation.significance).
-STIPPLE_LEGEND = "dots: significant at FDR 10 % (Wilks 2016)"
+STIPPLE_LEGEND = f"dots: significant at FDR {FDR_LEVEL * 100:g} % (Wilks 2016)"
 
 
 def stipple_points(flags: xr.DataArray) -> tuple[np.ndarray, np.ndarray]:
@@ -208,7 +209,7 @@ _STIPPLED = ("difference", "trend_map")
 STIPPLE_RULE = (
     "a two-sided t-test at every cell on the yearly season means (bias maps: run against reference, "
     "two-sample; trend maps: least-squares trend), with sample sizes reduced for lag-1 autocorrelation "
-    "(Santer et al. 2000), and the Benjamini-Hochberg false discovery rate held at 10 % over all tested "
+    f"(Santer et al. 2000), and the Benjamini-Hochberg false discovery rate held at {FDR_LEVEL * 100:g} % over all tested "
     "cells of the map (Wilks 2016). Undotted cells are not shown to agree: their difference or trend is "
     "within interannual variability. The NetCDF downloads carry the dots as a flag variable."
 )
