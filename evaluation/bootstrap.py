@@ -70,21 +70,21 @@ INTERVAL_METRICS = ("rmse_diff_lo", "rmse_diff_hi", "abs_bias_diff_lo", "abs_bia
 #: The metrics whose "best" marking an interval guards -> the interval's upper end, which
 #: must lie below zero (relative error orders runs as RMSE does).
 GUARDED_BEST = {"rmse": "rmse_diff_hi", "rel_error": "rmse_diff_hi", "bias": "abs_bias_diff_hi"}
-#: The rule, as the command line, the dashboard and the README state it.
-BEST_RULE = (
-    "A run is marked best in RMSE and relative error only where the 95 % bootstrap interval of its RMSE "
-    "minus the RMSE of the best other run lies wholly below zero (rmse_diff_hi < 0), and best in bias only "
-    "where the interval of its |bias| minus the smallest |bias| of the other runs does (abs_bias_diff_hi < 0); "
-    "otherwise no run is marked, because the difference is within the sampling noise of the years "
-    "(moving-block bootstrap over years, Künsch 1989, block length of Wilks 1997, 2000 draws, fixed seed). "
-    "The other runs are every run scored against the same reference, also those not shown."
-)
 #: Number of bootstrap draws.
 RESAMPLES = 2000
 #: Seed of the draws: the same request gives the same interval every time.
 SEED = 19890601
 #: Coverage of the intervals.
 CONFIDENCE = 0.95
+#: The rule, as the command line, the dashboard and the README state it.
+BEST_RULE = (
+    f"A run is marked best in RMSE and relative error only where the {CONFIDENCE * 100:g} % bootstrap interval of its RMSE "
+    "minus the RMSE of the best other run lies wholly below zero (rmse_diff_hi < 0), and best in bias only "
+    "where the interval of its |bias| minus the smallest |bias| of the other runs does (abs_bias_diff_hi < 0); "
+    "otherwise no run is marked, because the difference is within the sampling noise of the years "
+    f"(moving-block bootstrap over years, Künsch 1989, block length of Wilks 1997, {RESAMPLES} draws, fixed seed). "
+    "The other runs are every run scored against the same reference, also those not shown."
+)
 
 
 def expanded_tail(confidence: float, n_eff: float) -> float:
