@@ -124,3 +124,30 @@ def test_a_same_size_rewrite_in_place_changes_the_identity(collection: Path, tmp
     after = file_identity([str(target)])[0]
     assert (after.size, after.modified) == (before.size, before.modified)
     assert after != before and after.sample != before.sample
+
+
+def test_sessions_share_one_look_at_the_files_off_the_event_loop(collection: Path, tmp_path: Path, monkeypatch) -> None:
+    import asyncio
+    import threading
+
+    import app.views.results as module
+
+    results = Results(Collection.from_path(collection))
+    looks: list[str] = []
+    stamp = results._inputs_stamp
+    monkeypatch.setattr(results, "_inputs_stamp", lambda: looks.append(threading.current_thread().name) or stamp())
+
+    async def sessions(n: int) -> list[int]:
+        return await asyncio.gather(*(results.fresh() for _ in range(n)))
+
+    assert asyncio.run(sessions(10)) == [0] * 10
+    assert len(looks) == 1 and looks[0].startswith("gridscore-watch")  # one look, not on the loop's thread
+    assert asyncio.run(sessions(10)) == [0] * 10 and len(looks) == 1  # within LOOK_SECONDS: the same look
+    monkeypatch.setattr(module, "LOOK_SECONDS", 0.0)
+    _replace_keeping_size_and_time(collection / "runs" / "a" / "tas.nc", 6.0, tmp_path)
+    assert asyncio.run(sessions(3)) == [1] * 3  # one new generation, seen by every session
+    assert results.changed_at is not None
+    args = ("ref", "tas", "2001-2002", "global", "ANN")
+    table = results.product(("scores", *args), results.scores, *args)
+    assert float(table.query("model == 'a' and metric == 'bias'")["value"].item()) == pytest.approx(6.0, abs=1e-4)
+    results.close()
