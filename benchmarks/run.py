@@ -18,6 +18,8 @@ Cases
 -----
 request      4 sources of 2° monthly tas, 40 years (1 reference, 3 runs):
              3 runs × 6 regions × 5 seasons over 1981–2010 (issue 14)
+memory       a century of 1° monthly tas (1 reference, 5 runs; fast synthetic values of the
+             collection's shape): the peak memory of one cold score over the whole span
 collections  the README's 1° collections: 30 and 100 years, 5 runs, 4 variables, every
              run × 8 regions × 5 seasons over the whole common span, one command per
              variable; the 100-year one also gives the peak memory of a score
@@ -77,15 +79,16 @@ def measure(cmd: list[str], *, env: dict | None = None, cwd: Path = ROOT) -> dic
     """
     gnu_time = shutil.which("time") if Path("/usr/bin/time").exists() else None
     with tempfile.NamedTemporaryFile("r", suffix=".time") as report:
-        full = [gnu_time, "-f", "%M", "-o", report.name, *cmd] if gnu_time else cmd
+        full = [gnu_time, "-f", "%M %U %S", "-o", report.name, *cmd] if gnu_time else cmd
         t0 = time.perf_counter()
         proc = subprocess.run(full, env=env, cwd=cwd, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True)
         seconds = time.perf_counter() - t0
         if proc.returncode != 0:
             raise RuntimeError(f"{' '.join(cmd[:4])} ... failed ({proc.returncode}): {proc.stderr.strip()[-400:]}")
-        lines = report.read().split()
-    peak_kb = float(lines[-1]) if gnu_time and lines else float("nan")
-    return {"seconds": seconds, "peak_mb": peak_kb / 1024.0}
+        fields = report.read().split()
+    peak_kb, user, system = (float(x) for x in fields[-3:]) if gnu_time and len(fields) >= 3 else (float("nan"),) * 3
+    # CPU seconds (user + system) grow far less than wall time when other work shares the cores
+    return {"seconds": seconds, "peak_mb": peak_kb / 1024.0, "cpu_seconds": user + system}
 
 
 def load_average() -> float:
@@ -212,7 +215,7 @@ def run_rounds(name: str, steps: dict[str, list[list[str]]], rounds: int, *, cac
             env = cache_env(cache) if step in ("cold", "warm") else {**os.environ, "OPENBLAS_NUM_THREADS": os.environ.get("OPENBLAS_NUM_THREADS", "1")}
             parts = [measure(c, env=env) for c in cmds]
             per[step].append({"seconds": sum(p["seconds"] for p in parts), "peak_mb": max(p["peak_mb"] for p in parts),
-                              "each": [round(p["seconds"], 3) for p in parts]})
+                              "cpu_seconds": sum(p["cpu_seconds"] for p in parts), "each": [round(p["seconds"], 3) for p in parts]})
         shutil.rmtree(cache, ignore_errors=True)
         loads.append((before, load_average()))
         print(f"  [{name}] round {i + 1}/{rounds}: " + ", ".join(f"{k} {v[-1]['seconds']:.2f} s" for k, v in per.items())
@@ -220,15 +223,18 @@ def run_rounds(name: str, steps: dict[str, list[list[str]]], rounds: int, *, cac
     out: dict = {"rounds": rounds, "load": loads}
     for step, values in per.items():
         out[step] = {"seconds": statistics.median(v["seconds"] for v in values), "peak_mb": max(v["peak_mb"] for v in values),
+                     "cpu_seconds": statistics.median(v["cpu_seconds"] for v in values),
                      "all": [round(v["seconds"], 3) for v in values], "each_last": values[-1]["each"]}
 
-    def ratio(a: str, b: str) -> float | None:
+    def ratio(a: str, b: str, what: str = "seconds") -> float | None:
         if a not in per or b not in per:
             return None
-        return statistics.median(x["seconds"] / y["seconds"] for x, y in zip(per[a], per[b], strict=True))
+        return statistics.median(x[what] / y[what] for x, y in zip(per[a], per[b], strict=True))
 
     out["ratios"] = {"cold_vs_floor": ratio("cold", "floor"), "cold_vs_peer": ratio("cold", "peer"),
                      "peer_vs_floor": ratio("peer", "floor"), "warm_vs_floor": ratio("warm", "floor")}
+    out["cpu_ratios"] = {"cold_vs_floor": ratio("cold", "floor", "cpu_seconds"), "cold_vs_peer": ratio("cold", "peer", "cpu_seconds"),
+                         "peer_vs_floor": ratio("peer", "floor", "cpu_seconds")}
     return out
 
 
@@ -288,6 +294,65 @@ def case_collection(years: int, runs: int, rounds: int) -> dict:
     res.update(years=years, runs=runs, span=span)
     shutil.rmtree(out, ignore_errors=True)
     return res
+
+
+def ensure_memory_data(years: int = 100, runs: int = 5) -> Path:
+    """One variable of the 1° collection's shape (a reference with its land fraction and
+    ``runs`` runs, ``years`` of monthly float32 tas), written fast: random weather on a
+    seasonal cycle.  Peak memory depends on the shapes and the code path, not the values;
+    the demo generator takes many minutes for a century."""
+    folder = HERE / "data" / f"memory-1deg-{years}y-{runs}runs"
+    if (folder / "done").exists():
+        return folder
+    import cftime
+    import numpy as np
+    import xarray as xr
+
+    print(f"generating {folder} ...", flush=True)
+    lat, lon = np.arange(-89.5, 90, 1.0), np.arange(-179.5, 180, 1.0)
+    months = 12 * years
+    times = [cftime.DatetimeNoLeap(2021 - years + i // 12, i % 12 + 1, 15) for i in range(months)]
+    rng = np.random.default_rng(14)
+    base = (300 - 40 * np.sin(np.deg2rad(lat))[:, None] ** 2 + 0 * lon[None, :]).astype("float32")
+    coords = {"lat": ("lat", lat, {"units": "degrees_north", "standard_name": "latitude"}),
+              "lon": ("lon", lon, {"units": "degrees_east", "standard_name": "longitude"})}
+    for k, name in enumerate(["obs", *(f"run-{i + 1}" for i in range(runs))]):
+        (folder / name).mkdir(parents=True, exist_ok=True)
+        data = np.empty((months, lat.size, lon.size), dtype="float32")
+        for t in range(months):
+            data[t] = base + 5 * np.cos(2 * np.pi * (t % 12) / 12) + rng.standard_normal(base.shape, dtype="float32") + 0.3 * k
+        ds = xr.Dataset({"tas": (("time", "lat", "lon"), data, {"units": "K", "standard_name": "air_temperature"})},
+                        coords={"time": ("time", times), **coords})
+        ds.time.encoding.update(units="days since 1900-01-01", calendar="noleap")
+        ds.to_netcdf(folder / name / f"tas_{name}.nc")
+        if name == "obs":
+            land = (100 * (rng.random(base.shape) > 0.7)).astype("float32")
+            xr.Dataset({"sftlf": (("lat", "lon"), land, {"units": "%", "standard_name": "land_area_fraction"})}, coords=coords).to_netcdf(folder / name / "sftlf_obs.nc")
+    (folder / "done").write_text("")
+    return folder
+
+
+def case_memory(years: int = 100, runs: int = 5) -> dict:
+    """Peak memory of one cold ``gridscore score`` of a century of 1° months: every run x 8 regions x 5 seasons, the whole span."""
+    data = ensure_memory_data(years, runs)
+    args = ["--reference", f"obs={data / 'obs' / '*.nc'}"]
+    for i in range(runs):
+        args += ["--model", f"run-{i + 1}={data / f'run-{i + 1}' / '*.nc'}"]
+    args += ["--variable", "tas", "--period", f"{2021 - years}-2020"]
+    for r in REGIONS:
+        args += ["--region", r]
+    for s in SEASONS:
+        args += ["--season", s]
+    cache = Path(tempfile.mkdtemp(prefix="gridscore-bench-cache-"))
+    out = Path(tempfile.mkdtemp(prefix="gridscore-bench-"))
+    before = load_average()
+    print(f"[memory] {years} y of 1° tas, 1 reference + {runs} runs, {len(REGIONS)} regions x {len(SEASONS)} seasons", flush=True)
+    try:
+        res = measure([gridscore(), "score", *args, "--output", str(out / "scores.csv")], env=_cache_env(cache))
+    finally:
+        shutil.rmtree(cache, ignore_errors=True)
+        shutil.rmtree(out, ignore_errors=True)
+    return {**res, "years": years, "runs": runs, "load": [(before, load_average())]}
 
 
 # ----------------------------------------------------------------------------- browser
@@ -442,39 +507,46 @@ def report(results: dict, info: dict) -> str:
         f"numpy {info['numpy']}, xarray {info['xarray']}, dask {info['dask']}.  Measured {time.strftime('%Y-%m-%d %H:%M UTC', time.gmtime())} "
         "with `python benchmarks/run.py`.",
         "",
-        "Whole processes (imports included), interleaved rounds, medians; each ratio is taken within a round. "
+        "Whole processes (imports included), interleaved rounds, medians; each ratio is taken within a round; "
+        "CPU: user + system seconds of the process (GNU time), which grow far less than wall time when the cores are shared. "
         "Load: the 1-minute load average before and after the rounds (2 cores: above 2 the machine was shared, "
         "and absolute times grow with it; the ratios much less).",
     ]
-    header = ["", "| step | time (s) | peak memory (MB) | ratio | target | verdict |", "|---|---:|---:|---:|---|---|"]
+    header = ["", "| step | time (s) | CPU (s) | peak memory (MB) | ratio | CPU ratio | target | verdict |", "|---|---:|---:|---:|---:|---:|---|---|"]
     for label, res in results.items():
-        if label == "browser":
+        if label in ("browser", "memory"):
             continue
-        r = res.get("ratios", {})
+        r, c = res.get("ratios", {}), res.get("cpu_ratios", {})
         lines += ["", f"### {label}", "", f"{res['rounds']} rounds; load {_loads(res)}.", *header]
         commands = len(res["warm"].get("each_last", [1]))
         warm_each = res["warm"]["seconds"] / commands
         rows = [
-            ("floor: read every value once (xarray load)", res["floor"], None, "", ""),
-            ("hand-tuned script (benchmarks/peer.py), vs floor", res["peer"], r.get("peer_vs_floor"), "", ""),
-            ("gridscore score, cold, vs floor", res["cold"], r.get("cold_vs_floor"), f"≤ {TARGETS['cold_vs_floor']}",
+            ("floor: read every value once (xarray load)", res["floor"], None, None, "", ""),
+            ("hand-tuned script (benchmarks/peer.py), vs floor", res["peer"], r.get("peer_vs_floor"), c.get("peer_vs_floor"), "", ""),
+            ("gridscore score, cold, vs floor", res["cold"], r.get("cold_vs_floor"), c.get("cold_vs_floor"), f"≤ {TARGETS['cold_vs_floor']}",
              _verdict(r.get("cold_vs_floor"), TARGETS["cold_vs_floor"])),
-            ("gridscore score, cold, vs hand-tuned", res["cold"], r.get("cold_vs_peer"), f"≤ {TARGETS['cold_vs_peer']}",
+            ("gridscore score, cold, vs hand-tuned", res["cold"], r.get("cold_vs_peer"), c.get("cold_vs_peer"), f"≤ {TARGETS['cold_vs_peer']}",
              _verdict(r.get("cold_vs_peer"), TARGETS["cold_vs_peer"])),
-            (f"gridscore score, warm ({commands} command{'s' if commands > 1 else ''}, {warm_each:.2f} s each)", res["warm"], None,
+            (f"gridscore score, warm ({commands} command{'s' if commands > 1 else ''}, {warm_each:.2f} s each)", res["warm"], None, None,
              f"≤ {TARGETS['warm_s']} s each", _verdict(warm_each, TARGETS["warm_s"])),
         ]
         if res.get("years", 0) >= 100:
             rows.append(("gridscore score, cold: peak memory of one command", {"seconds": None, "peak_mb": res["cold"]["peak_mb"]},
-                         None, f"≤ {TARGETS['peak_gb']:g} GB", _verdict(res["cold"]["peak_mb"] / 1000, TARGETS["peak_gb"])))
-        for what, m, ratio, target, verdict in rows:
-            lines.append(f"| {what} | {_f(m.get('seconds'))} | {_f(m.get('peak_mb'), 0)} | {_f(ratio)} | {target} | {verdict} |")
+                         None, None, f"≤ {TARGETS['peak_gb']:g} GB", _verdict(res["cold"]["peak_mb"] / 1000, TARGETS["peak_gb"])))
+        for what, m, ratio, cpu, target, verdict in rows:
+            lines.append(f"| {what} | {_f(m.get('seconds'))} | {_f(m.get('cpu_seconds'))} | {_f(m.get('peak_mb'), 0)} | {_f(ratio)} | {_f(cpu)} | {target} | {verdict} |")
         checks = res.get("peer_check", {})
         checks = {"tas": checks} if "equal" in checks else checks
         lines.append("")
         for v, c in checks.items():
             lines.append(f"- {v}: the hand-tuned numbers {'equal' if c['equal'] else 'DIFFER from'} gridscore's "
                          f"({c['compared']} values, largest difference {c['max_difference']:.1e} × max(1, |value|); tolerance {TOLERANCE:g}).")
+    if "memory" in results:
+        m = results["memory"]
+        lines += ["", f"### Memory: {m['years']} y of 1° monthly tas, 1 reference + {m['runs']} runs (synthetic values)", "",
+                  f"One cold `gridscore score`: every run × {len(REGIONS)} regions × {len(SEASONS)} seasons over the whole span; load {_loads(m)}.", "",
+                  "| step | time (s) | peak memory (MB) | target | verdict |", "|---|---:|---:|---|---|",
+                  f"| gridscore score, cold | {_f(m['seconds'])} | {_f(m['peak_mb'], 0)} | ≤ {TARGETS['peak_gb']:g} GB | {_verdict(m['peak_mb'] / 1000, TARGETS['peak_gb'])} |"]
     if "browser" in results:
         b = results["browser"]
         lines += ["", "### Dashboard on the bundled sample (headless chromium, fresh cache each round)", ""]
@@ -491,22 +563,26 @@ def report(results: dict, info: dict) -> str:
 
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
-    ap.add_argument("--only", choices=("request", "collections", "browser"), action="append", help="run only these cases (repeatable)")
+    ap.add_argument("--only", choices=("request", "memory", "collections", "browser"), action="append", help="run only these cases (repeatable)")
     ap.add_argument("--years", type=int, nargs="+", default=[30, 100], help="lengths of the 1° collections")
     ap.add_argument("--runs", type=int, default=5)
     ap.add_argument("--rounds", type=int, default=5, help="interleaved rounds per case (medians)")
+    ap.add_argument("--collection-rounds", type=int, help="rounds of the 1° collections (default: --rounds, half of it for 100 years)")
     ap.add_argument("--quick", action="store_true", help="2 rounds, a 10-year 2-run collection: check that the script works")
     args = ap.parse_args()
     if args.quick:
         args.years, args.runs, args.rounds = [10], 2, 2
-    cases = args.only or ["request", "collections", "browser"]
+    cases = args.only or ["request", "memory", "collections", "browser"]
     info = machine()
     results: dict = {}
     if "request" in cases:
         results["2°, 40 y, 4 sources, tas (issue 14 request)"] = case_request(args.rounds)
+    if "memory" in cases:
+        results["memory"] = case_memory()
     if "collections" in cases:
         for y in args.years:
-            res = case_collection(y, args.runs, max(1, args.rounds // 2) if y >= 100 else args.rounds)
+            rounds = args.collection_rounds or (max(1, args.rounds // 2) if y >= 100 else args.rounds)
+            res = case_collection(y, args.runs, rounds)
             results[f"{y} y × {args.runs} runs × {len(VARIABLES)} vars, 1°"] = res
     if "browser" in cases:
         results["browser"] = case_browser(args.rounds)
