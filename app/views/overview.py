@@ -338,7 +338,9 @@ class OverviewView(ResultView):
         table, by = data["table"], data["by"]
         runs = run_order(table)
         parts = _ordered_parts(table, by) if by in ("season", "region") else [""]
-        y, centre, _ = row_positions(runs, parts)
+        y, centre, ylim = row_positions(runs, parts)
+        # a row of text needs about 0.14 inch at 6 pt, the titles about an inch
+        height = 0.14 * (ylim[1] - ylim[0]) + 1.3
         if len(parts) == 1:
             ticks = [(centre[r], f"{i}. {r}") for i, r in enumerate(runs, 1)]
         else:
@@ -353,12 +355,13 @@ class OverviewView(ResultView):
             # a report figure stands alone: each variable's reference and period under its name when they differ
             title = f"{label}\n{first.loc[label, 'reference']}\n{first.loc[label, 'period']}" if several else label
             xlabel = "relative error" if index == 0 else ""
-            panels.append(panel.opts(title=plot_title(title), xlabel=xlabel or " ", ylabel=" ", backend="matplotlib"))
-        panels[0] = panels[0].opts(yaxis="left", yticks=ticks, fontsize={"title": 7, "xticks": 6, "yticks": 6 if len(parts) > 1 else 8},
+            panels.append(panel.opts(title=plot_title(title), xlabel=xlabel or " ", ylabel=" ", aspect="auto",
+                                     fontsize={"title": 7, "xticks": 6, "xlabel": 7}, backend="matplotlib"))
+        panels[0] = panels[0].opts(yaxis="left", yticks=ticks, fontsize={"title": 7, "xticks": 6, "xlabel": 7, "yticks": 6 if len(parts) > 1 else 8},
                                    backend="matplotlib")
         return hv.Layout(panels).cols(len(panels)).opts(
             title=plot_title(f"Relative RMSE error (Gleckler et al. 2008): {describe(table, request, short=True)}"),
-            fontsize={"title": 8}, shared_axes=False, sublabel_format="", hspace=0.1, fig_inches=(min(16.0, 2.2 + 0.95 * len(panels)), None), backend="matplotlib",
+            fontsize={"title": 8}, shared_axes=False, sublabel_format="", hspace=0.1, fig_inches=(min(16.0, 2.2 + 0.95 * len(panels)), height), backend="matplotlib",
         )
 
     def figure_name(self, request: Request) -> str:
