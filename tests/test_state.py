@@ -90,6 +90,7 @@ def test_url_round_trip_reproduces_the_view(results: Results) -> None:
     first.field = "model_trend"
     first.taylor = "absolute"
     first.sort = "-rmse"
+    first.overview_by = "region"
     first.tab = "taylor"
     search = query_string(first.query())
     second = settled(results, parse_query(search))
@@ -427,3 +428,10 @@ def test_a_link_to_a_variable_selects_the_runs_that_hold_it(results: Results) ->
     assert few  # a variable held by few runs shows all of them
     for variable in few:
         assert list(settled(results, {"variable": variable}).models) == results.models(variable)
+
+
+def test_an_unknown_overview_sub_view_falls_back_with_a_notice(results: Results) -> None:
+    selection = settled(results, {"overview_by": "cells"})
+    assert selection.request.overview_by == "variable"
+    assert any("cells" in n for n in selection.notices)
+    assert settled(results, {"overview_by": "season"}).request.overview_by == "season"
