@@ -299,8 +299,36 @@ def _watch_files(results: Results, selection: Selection) -> None:
 
 
 # ---------------------------------------------------------------------- the server
+def _drop_messages_of_closed_pages() -> None:
+    """Let Bokeh drop, quietly, a message whose page has gone before it was handled.
+
+    While the event loop is busy (pages being built, maps drawn), a browser's last messages
+    (a plot's new size, a widget value) can wait behind the work; when that page is closed
+    meanwhile, Bokeh detaches its connection and then handles the waiting message, failing
+    with ``assert self._session is not None`` and an error in the log (seen under 5 and 10
+    sessions in benchmarks/sessions.py: PATCH-DOC messages right after the page's websocket
+    closed).  There is no document left to apply such a message to; dropping it is what the
+    assertion should have done.  Messages of open pages are handled as before.
+    """
+    from bokeh.server.protocol_handler import ProtocolHandler
+
+    original = ProtocolHandler.handle
+    if getattr(original, "_gridscore_guard", False):
+        return
+
+    async def handle(self, message, connection):
+        if getattr(connection, "_session", True) is None:  # detached: the page's websocket closed
+            log.debug("dropped a %s message of a closed page", message.msgtype)
+            return None
+        return await original(self, message, connection)
+
+    handle._gridscore_guard = True  # type: ignore[attr-defined]
+    ProtocolHandler.handle = handle
+
+
 def _prepare(results: Results) -> None:
     load_extensions()
+    _drop_messages_of_closed_pages()
     coastline_segments()  # read the land fraction once, on this thread, before sessions start
     results.warm()
 

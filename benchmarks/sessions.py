@@ -298,7 +298,7 @@ def _table(rounds: list[Round], machine: str) -> str:
         big = max(by_n)
         value = statistics.median([o.first_maps if o.first_maps == o.first_maps else TIMEOUT_S for o in by_n[big].outcomes])
         value /= statistics.median(by_n[1].times())
-        ratio = (f"\nmedian({big}) / median(1) = {value:.2f} (target ≤ {TARGET_RATIO:.0f} for 10 sessions: "
+        ratio = (f"\n\nmedian({big}) / median(1) = {value:.2f} (target ≤ {TARGET_RATIO:.0f} for 10 sessions: "
                  f"{'met' if value <= TARGET_RATIO else 'missed'})")
     return f"{machine}\n\n" + "\n".join(lines) + ratio + "\n"
 

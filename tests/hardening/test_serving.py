@@ -261,3 +261,24 @@ def test_check_password_refuses_bad_mappings() -> None:
         check_password({}, plain=True)
     with pytest.raises(InputError):
         check_password({"ana": 5}, plain=True)  # type: ignore[dict-item]
+
+
+def test_a_message_of_a_closed_page_is_dropped_without_an_error(caplog) -> None:
+    """Bokeh detaches a connection when its websocket closes; a message of that page still
+    waiting behind a busy event loop used to fail with ``assert self._session is not None``."""
+    import asyncio
+    import logging
+
+    from bokeh.protocol import Protocol
+    from bokeh.server.connection import ServerConnection
+    from bokeh.server.protocol_handler import ProtocolHandler
+
+    from app.server import _drop_messages_of_closed_pages
+
+    closed = ServerConnection.__new__(ServerConnection)
+    closed._session = None  # what ServerConnection.detach_session leaves
+    message = Protocol().create("PULL-DOC-REQ")
+    _drop_messages_of_closed_pages()
+    with caplog.at_level(logging.ERROR, logger="bokeh"):
+        assert asyncio.run(ProtocolHandler().handle(message, closed)) is None
+    assert not [r for r in caplog.records if "error handling message" in r.getMessage()]
