@@ -1,7 +1,7 @@
 """Overview: every run's relative error for every variable, as ranked lollipops.
 
-One narrow panel per variable, one row per run, the runs ranked (best first) by their
-median relative error over everything shown.  A run's value is a dot on a horizontal
+One narrow panel per variable, one row per run, the runs ranked (best first) by the
+median of their relative errors over the values they have.  A run's value is a dot on a horizontal
 stem from the centre line, which is the median run: ``(E − median E) / median E``
 (Gleckler et al. 2008), where ``E`` is the run's RMSE against the variable's reference
 and the median is over the runs shown that hold the variable.  Left of the line (teal)
@@ -176,8 +176,8 @@ class OverviewView(ResultView):
     title = "Overview of relative errors"
     uses = ("reference", "region", "season", "period")
     explanation = (
-        "One panel per variable, one row per run; the runs are ranked, best first, by their median "
-        "relative error over every value shown. A dot's distance from the centre line is the run's RMSE "
+        "One panel per variable, one row per run; the runs are ranked, best first, by the median of "
+        "their relative errors over the values they have (a run holding few variables is ranked on those). A dot's distance from the centre line is the run's RMSE "
         "relative to the median RMSE of the runs shown that hold the variable (Gleckler et al. 2008): "
         "left of the line (teal) a smaller error than the typical run, right (orange) a larger one; "
         "−0.2 means 20 % smaller; a dark dot is the median run itself. “By season” and “By region” give "
