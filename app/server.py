@@ -7,6 +7,7 @@ query before anything is computed, and writes every value back into the URL.
 
 from __future__ import annotations
 
+import gc
 import ipaddress
 import json
 import logging
@@ -330,6 +331,11 @@ def _prepare(results: Results) -> None:
     load_extensions()
     _drop_messages_of_closed_pages()
     coastline_segments()  # read the land fraction once, on this thread, before sessions start
+    # Everything made so far (modules, the collection's listing) lives as long as the server:
+    # kept out of the cyclic garbage collector's passes.  Panel collects after every closed
+    # page, on the event loop; measured on the sample, a full pass took 0.26 CPU-s before and
+    # 0.025 after (403 000 objects set aside).
+    gc.freeze()
     results.warm()
 
 
