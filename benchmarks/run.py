@@ -66,6 +66,8 @@ REQUEST = {"regions": ["global", "tropics", "nh-extratropics", "sh-extratropics"
 #: Targets of issue 14 (ratios are of whole-process wall times).
 TARGETS = {"cold_vs_floor": 1.5, "cold_vs_peer": 1.0, "warm_s": 0.3, "peak_gb": 2.0, "first_maps_s": 4.0,
            "overview_s": 5.0, "cached_region_s": 0.3}
+#: Where benchmarks/sessions.py's part of results.md begins (kept when this script rewrites the file).
+SESSIONS_MARK = "<!-- sessions: begin -->"
 TOLERANCE = 1e-10  # peer and gridscore: |a - b| <= TOLERANCE * max(1, |b|)
 
 
@@ -587,6 +589,9 @@ def main() -> None:
     if "browser" in cases:
         results["browser"] = case_browser(args.rounds)
     md = report(results, info)
+    previous = (HERE / "results.md").read_text() if (HERE / "results.md").exists() else ""
+    if SESSIONS_MARK in previous:  # benchmarks/sessions.py keeps its own part of the file
+        md = md.rstrip("\n") + "\n\n" + previous[previous.index(SESSIONS_MARK):]
     (HERE / "results.md").write_text(md)
     (HERE / "results.json").write_text(json.dumps({"machine": info, "results": results}, indent=2, default=str))
     print(md)
