@@ -234,13 +234,14 @@ def test_the_energy_budget_lists_every_source_whatever_the_variable(browser, ser
         wait_for_view(page, "budget", what=".gs-budget-table .tabulator-row")
         rows = budget_rows(page)
         tables.append(rows)
-        # the sample: tessera-obs (reference) and four runs hold the four fields; halyard-rean
-        # (a reference) and tidewell-3 lack the radiation fields
-        assert [r[0] for r in rows] == ["tessera-obs", "halyard-rean", "larkspur-2", "pumice-ctl", "tidewell-3", "cobble-b"]
+        # the sample: tessera-obs (reference) and three runs hold the four fields; halyard-rean
+        # (a reference), tidewell-3 and the ensemble fennel's members lack the radiation fields
+        members = ["fennel-r1", "fennel-r2", "fennel-r3"]
+        assert [r[0] for r in rows] == ["tessera-obs", "halyard-rean", "larkspur-2", "pumice-ctl", "tidewell-3", "cobble-b", *members]
         by_name = {r[0]: r for r in rows}
         assert by_name["tessera-obs"][1] == "reference"
         reasons = page.locator(".gs-budget-reasons").text_content()
-        for name in ("halyard-rean", "tidewell-3"):
+        for name in ("halyard-rean", "tidewell-3", *members):
             assert f"{name}: no rsdt, rsut, rlut in its files" in reasons, reasons
             assert set(by_name[name][2:]) <= {"–", ""}, by_name[name]
         for name in ("tessera-obs", "larkspur-2", "pumice-ctl", "cobble-b"):
