@@ -193,7 +193,8 @@ async def _session(browser, url: str, runs: int, start: asyncio.Event) -> Outcom
         changed = time.monotonic()
         await page.locator(".gs-field input[value='0']").check(timeout=60_000)  # options in order: model_mean first
         try:
-            await _wait(page, minus=False, maps=runs + 1, deadline=time.monotonic() + 120)
+            # a slow answer is not a lost input: the page waits as long as a first drawing may take
+            await _wait(page, minus=False, maps=runs + 1, deadline=time.monotonic() + TIMEOUT_S)
             outcome.redrawn = time.monotonic() - changed
         except TimeoutError:
             pass

@@ -282,3 +282,17 @@ def test_a_message_of_a_closed_page_is_dropped_without_an_error(caplog) -> None:
     with caplog.at_level(logging.ERROR, logger="bokeh"):
         assert asyncio.run(ProtocolHandler().handle(message, closed)) is None
     assert not [r for r in caplog.records if "error handling message" in r.getMessage()]
+
+
+def test_a_second_close_of_a_page_is_ignored() -> None:
+    from bokeh.server.connection import ServerConnection
+    from bokeh.server.views.ws import WSHandler
+
+    from app.server import _drop_messages_of_closed_pages
+
+    _drop_messages_of_closed_pages()
+    closed = ServerConnection.__new__(ServerConnection)
+    closed._session = None  # detached by the first close
+    handler = WSHandler.__new__(WSHandler)
+    handler.connection = closed
+    assert handler.on_close() is None  # Bokeh's own would fail on the detached connection
