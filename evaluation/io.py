@@ -18,6 +18,7 @@ from __future__ import annotations
 
 import os
 import re
+import sys
 import threading
 import warnings
 from collections.abc import Iterable, Sequence
@@ -353,8 +354,25 @@ LOAD_LIMIT_BYTES = 1 << 30
 def fits_in_memory(da: xr.DataArray) -> bool:
     """Whether ``da`` may be read into memory whole: at most :data:`LOAD_LIMIT_BYTES`
     and at most a quarter of the memory the system has available now."""
+    if _on_a_cluster():
+        # the cluster's workers reduce the data chunk by chunk; reading a source whole
+        # would gather it on one worker (and into this process) past its memory limit
+        return False
     need = da.size * da.dtype.itemsize
     return need <= min(LOAD_LIMIT_BYTES, _available_bytes() / 4)
+
+
+def _on_a_cluster() -> bool:
+    """Whether a dask.distributed client is the default scheduler (no import otherwise)."""
+    if "distributed" not in sys.modules:
+        return False
+    from distributed import default_client
+
+    try:
+        default_client()
+    except ValueError:
+        return False
+    return True
 
 
 def _available_bytes() -> float:

@@ -193,7 +193,8 @@ def test_shared_link_reproduces_the_view(browser, served) -> None:
     wait_for_query(page, region="sh-extratropics", season="DJF", tab="scores")
     page.wait_for_timeout(300)
     link, shown = page.url, rows(page)
-    assert len(shown) == 2 * len(query(page)["models"].split(","))  # two tables: climatology, trends
+    # three tables (climatology, trends and variability, significance), one row per ticked run each
+    assert len(shown) == 3 * len(query(page)["models"].split(","))
 
     # a colleague opens the link in another browser (a new context shares nothing)
     second = open_dashboard(browser, link)
