@@ -379,6 +379,13 @@ def _display_frame(tidy: pd.DataFrame, *, missing: str) -> pd.DataFrame:
     shown = wide.astype(object)
     keys = _key_columns(tidy)
     groups = wide["variable"].map(str) if "variable" in wide.columns else pd.Series("", index=wide.index)
+    if "model" in wide.columns:
+        # an ensemble's spread (members' std) is far smaller than the values beside it: it gets
+        # decimals of its own, or a 0.008 K spread would read 0.0 in a column of 287.2 K means
+        from .ensembles import SPREAD_STATS
+
+        spread = wide["model"].map(str).str.endswith(SPREAD_STATS["std"])
+        groups = groups + spread.map({True: "\x00spread", False: ""})
     for column in wide.columns[len(keys) :]:
         texts = pd.Series(missing, index=wide.index, dtype=object)
         for _, rows in wide[column].groupby(groups, sort=False):

@@ -697,3 +697,23 @@ def test_report_numbers_one_precision_per_column_p_values_floored_excel_formats_
     tidy_sheet = book["scores"]
     formats = {tidy_sheet.cell(row=r, column=9).number_format for r in range(2, tidy_sheet.max_row + 1)}
     assert "General" not in formats
+
+
+def test_an_ensemble_spread_row_gets_decimals_of_its_own(tidy: pd.DataFrame, record: dict, tmp_path: Path) -> None:
+    # A members' standard deviation of 0.008 K beside means of 283 K must not read "0.0":
+    # four significant digits of its own magnitude (the rule of number_style, common practice
+    # for reporting a spread with the precision of the spread, not of the mean)
+    table = tidy[tidy["region"] == "global"].copy()
+    last = sorted(table["model"].unique())[-1]
+    table.loc[table["model"] == last, "model"] = "fennel (members' std)"
+    is_bias = table["metric"] == "bias"
+    is_spread = table["model"] == "fennel (members' std)"
+    table.loc[is_bias & ~is_spread, "value"] = 283.14
+    table.loc[is_bias & is_spread, "value"] = 0.008
+    export.write_table(table, tmp_path / "scores.md", provenance=record)
+    text = (tmp_path / "scores.md").read_text(encoding="utf-8")
+    lines = [line for line in text.partition("## Units")[0].splitlines() if line.startswith("|")]
+    header, _, *body = markdown_rows("\n".join(lines))
+    shown = [(html.unescape(cells[header.index("model")]), cells[header.index("bias")]) for cells in body]
+    assert {v for k, v in shown if k == "fennel (members' std)"} == {"0.008000"}
+    assert {v for k, v in shown if k != "fennel (members' std)"} == {"283.1"}
