@@ -209,7 +209,8 @@ def _mean(parts: list, dim: str, name: str):
 
 
 def spread_rows(table: pd.DataFrame, ensembles: Sequence[Ensemble]) -> pd.DataFrame:
-    """Rows of the members' min, max and sample standard deviation of every metric.
+    """Rows of the members' min, max and sample standard deviation of every metric
+    but the bootstrap intervals (:data:`evaluation.bootstrap.INTERVAL_METRICS`).
 
     Grouped by reference, variable, level, region, season, period and metric; a member
     without a value (NaN) is left out of its group, and a group with one member value has
@@ -218,10 +219,14 @@ def spread_rows(table: pd.DataFrame, ensembles: Sequence[Ensemble]) -> pd.DataFr
     import numpy as np
     import pandas as pd
 
+    from .bootstrap import INTERVAL_METRICS
+
     keys = ["reference", "variable", "level", "region", "season", "period", "metric"]
     out = []
     for ens in ensembles:
-        part = table[table["model"].isin(ens.members)]
+        # the members' min of an interval's end is no interval: such rows would be read as
+        # one (and a spread row marked "best"), so the interval metrics have no spread rows
+        part = table[table["model"].isin(ens.members) & ~table["metric"].isin(INTERVAL_METRICS)]
         if part.empty:
             continue
         grouped = part.groupby(keys, sort=False, dropna=False)
