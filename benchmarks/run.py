@@ -46,14 +46,14 @@ import json
 import os
 import platform
 import shutil
-import socket
 import statistics
 import subprocess
 import sys
 import tempfile
 import time
-import urllib.request
 from pathlib import Path
+
+from serving import free_port, wait_until_live
 
 HERE = Path(__file__).resolve().parent
 ROOT = HERE.parent
@@ -358,12 +358,6 @@ def case_memory(years: int = 100, runs: int = 5) -> dict:
 
 
 # ----------------------------------------------------------------------------- browser
-def _free_port() -> int:
-    with socket.socket() as s:
-        s.bind(("127.0.0.1", 0))
-        return int(s.getsockname()[1])
-
-
 def case_browser(rounds: int) -> dict:
     """Server start to first maps (fresh cache), the overview after start, a cached region change."""
     chromium = shutil.which("chromium")
@@ -379,22 +373,15 @@ def case_browser(rounds: int) -> dict:
         for i in range(rounds):
             before = load_average()
             cache = Path(tempfile.mkdtemp(prefix="gridscore-bench-dash-"))
-            port = _free_port()
+            port = free_port()
             env = {**os.environ, "GRIDSCORE_CACHE": str(cache)}
             t0 = time.perf_counter()
             server = subprocess.Popen([gridscore(), "serve", str(sample), "--port", str(port)], env=env,
                                       stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
             try:
                 url = f"http://127.0.0.1:{port}"
-                while True:
-                    try:
-                        with urllib.request.urlopen(f"{url}/liveness", timeout=1) as reply:
-                            if reply.status == 200:
-                                break
-                    except OSError:
-                        time.sleep(0.05)
-                    if time.perf_counter() - t0 > 120:
-                        raise RuntimeError("the server did not start within 120 s")
+                wait_until_live(port, server, deadline=time.monotonic() + 120, poll=0.05,
+                                why="the server did not start within 120 s")
                 listening = time.perf_counter() - t0
                 page = browser.new_page(viewport={"width": 1500, "height": 1000})
                 page.goto(url + "/?tab=maps", wait_until="domcontentloaded")

@@ -34,17 +34,16 @@ import asyncio
 import os
 import shutil
 import signal
-import socket
 import statistics
 import subprocess
 import sys
 import tempfile
 import time
-import urllib.request
 from dataclasses import dataclass, field
 from pathlib import Path
 
 import psutil
+from serving import free_port, wait_until_live
 
 HERE = Path(__file__).resolve().parent
 ROOT = HERE.parent
@@ -81,12 +80,6 @@ class Round:
         return [o.first_maps for o in self.outcomes if o.first_maps == o.first_maps]
 
 
-def _free_port() -> int:
-    with socket.socket() as sock:
-        sock.bind(("127.0.0.1", 0))
-        return int(sock.getsockname()[1])
-
-
 def _uptime() -> str:
     one, five, fifteen = os.getloadavg()
     return f"{one:.2f} {five:.2f} {fifteen:.2f}"
@@ -96,7 +89,7 @@ class Server:
     """``gridscore serve`` on a free port with a fresh cache folder; RSS sampled meanwhile."""
 
     def __init__(self, manifest: Path, scratch: Path) -> None:
-        self.port = _free_port()
+        self.port = free_port()
         cache = scratch / f"cache-{self.port}"
         env = {**os.environ, "GRIDSCORE_CACHE": str(cache)}
         self.log = open(scratch / f"server-{self.port}.log", "w")  # noqa: SIM115 (closed in stop)
@@ -107,17 +100,8 @@ class Server:
         self.url = f"http://localhost:{self.port}/"
         self.peak_rss = 0
         self._sampling = True
-        deadline = time.monotonic() + 120
-        while True:
-            try:
-                with urllib.request.urlopen(f"http://127.0.0.1:{self.port}/liveness", timeout=2) as reply:
-                    if reply.status == 200:
-                        break
-            except OSError:
-                pass
-            if self.process.poll() is not None or time.monotonic() > deadline:
-                raise RuntimeError(f"the server did not start; see {self.log.name}")
-            time.sleep(0.2)
+        wait_until_live(self.port, self.process, deadline=time.monotonic() + 120, poll=0.2,
+                        why=f"the server did not start; see {self.log.name}")
 
     def rss(self) -> int:
         try:
