@@ -8,6 +8,7 @@ in hPa; heights go up, depths go down.
 
 from __future__ import annotations
 
+from dataclasses import replace
 from typing import Any
 
 import holoviews as hv
@@ -20,7 +21,7 @@ from .base import ResultView, figure_pane, plot_title, text_html
 from .look import DIVERGING, SEQUENTIAL
 from .maps import colour_range
 
-__all__ = ["SectionView", "section_element", "vertical_axis"]
+__all__ = ["SectionView", "levels_description", "section_element", "vertical_axis"]
 
 #: Height of a pressure row on the drawing, H ln(1000 hPa / p), in km (H = 7 km, the
 #: usual log-pressure scale height; only the spacing of the rows depends on it).
@@ -95,6 +96,25 @@ def section_element(field: xr.DataArray, *, title: str, quantity: str, clim: tup
     ).opts(**common, clipping_colors={"NaN": (1.0, 1.0, 1.0, 0.0)}, fig_inches=(6, 3.4), backend="matplotlib")
 
 
+def levels_description(level: xr.DataArray) -> str:
+    """What a section's vertical axis holds: ``"4 levels, 1000 to 250 hPa (1000, 850, 500, 250 hPa)"``.
+
+    The levels in the order of the coordinate (bottom first for pressure and depth as the
+    reference stores them), in its units; the list is left out beyond 12 levels.
+    """
+    units = str(level.attrs.get("units", ""))
+    values = [float(v) for v in np.asarray(level.values, dtype="float64").ravel() if np.isfinite(v)]
+    if not values:
+        return "no levels"
+    unit = f" {units}" if units else ""
+    if len(values) == 1:
+        return f"1 level, {values[0]:g}{unit}"
+    text = f"{len(values)} levels, {values[0]:g} to {values[-1]:g}{unit}"
+    if len(values) <= 12:
+        text += f" ({', '.join(f'{v:g}' for v in values)}{unit})"
+    return text
+
+
 _CELL = ' style="padding:3px 14px 3px 0;text-align:left;border-bottom:1px solid #ddd"'
 _NUMBER = ' style="padding:3px 14px 3px 0;text-align:right;border-bottom:1px solid #ddd;font-variant-numeric:tabular-nums"'
 
@@ -116,6 +136,16 @@ class SectionView(ResultView):
 
     def key(self, request: Request) -> Any:
         return (request.variable, request.level, request.reference, request.models, request.season, request.period)
+
+    def context(self, request: Request) -> str:
+        """The "Showing" line: every level drawn, not the single level the other views use."""
+        line = super().context(replace(request, level=""))
+        if not request.level:
+            return line
+        shown = getattr(self, "_levels_shown", None)
+        levels = shown[1] if shown is not None and shown[0] == request else "every level of the reference"
+        variable, _, rest = line.partition(" · ")
+        return " · ".join(p for p in (f"{variable}, zonal mean on {levels}", rest) if p)
 
     async def load(self, request: Request) -> dict[str, Any]:
         results = self.results
@@ -158,6 +188,8 @@ class SectionView(ResultView):
         figure = self.figure(data, request)
         if figure is None:
             return pn.pane.HTML('<div class="gs-empty">No valid values in this section for the selected period and season.</div>')
+        # the drawn levels (the reference's), said in the "Showing" line (see context)
+        self._levels_shown = (request, levels_description(data[request.reference]["reference"]["level"]))
         runs = [name for name in data if name != request.reference]
         units = str(data[request.reference]["reference"].attrs.get("units", ""))
         rows = "".join(
