@@ -712,12 +712,42 @@ class Comparison:
         out.attrs.update(fdr_level=level, p_threshold=threshold, **self._attrs(f"{name} trend: significance", season))
         return out
 
+    def trend_difference_significance(self, name: str, season: str, *, level: float | None = None) -> xr.Dataset:
+        """Where a run's trend minus the reference's stands out from interannual variability.
+
+        Returns
+        -------
+        Dataset
+            ``difference`` (per year), ``t``, ``dof``, ``pvalue``, ``n_eff_a`` (run),
+            ``n_eff_b`` (reference) (:func:`evaluation.significance.trend_difference_test`)
+            on the cells of :meth:`trend_difference`, and ``significant``
+            (Benjamini–Hochberg at ``level``, default
+            :data:`evaluation.significance.FDR_LEVEL`, over every tested cell of the map);
+            attributes ``fdr_level`` and ``p_threshold``.
+        """
+        from .significance import FDR_LEVEL, fdr_significant, trend_difference_test
+
+        if self._prepared[self.reference.name].kind == "climatology":
+            raise InputError(
+                f"the reference '{self.reference.name}' is a climatology: it has no years, so no trend to compare with",
+                remedy="look at the run's own trend map, or choose a reference with years",
+            )
+        level = FDR_LEVEL if level is None else level
+        run_series, ref_series = self._aligned(name, season)
+        out = trend_difference_test(run_series, ref_series, dim="year").where(self._pair(name, season)[2])
+        significant, threshold = fdr_significant(out["pvalue"], level=level)
+        out["significant"] = significant
+        out.attrs.update(fdr_level=level, p_threshold=threshold,
+                         **self._attrs(f"{name} trend minus {self.reference.name} trend: significance", season))
+        return out
+
     def significance_mask(self, name: str, season: str, *, of: str = "difference") -> xr.DataArray:
         """The stippling of a map as a CF flag variable (:func:`evaluation.significance.significance_flags`).
 
         ``of`` is ``"difference"`` (the bias map: :meth:`difference_significance` over the
-        whole map) or ``"trend_map"`` (:meth:`trend_significance`).  Against a reference
-        without years nothing is tested.
+        whole map), ``"trend_map"`` (:meth:`trend_significance`) or ``"trend_difference"``
+        (:meth:`trend_difference_significance`).  Against a reference without years
+        nothing is tested (the trend difference is refused, as :meth:`trend_difference` is).
         """
         from .significance import FDR_LEVEL, significance_flags
 
@@ -731,6 +761,9 @@ class Comparison:
         elif of == "trend_map":
             ds = self.trend_significance(name, season)
             what, test, target = "trend", ds.attrs["test"], f"{self.variable}_trend"
+        elif of == "trend_difference":
+            ds = self.trend_difference_significance(name, season)
+            what, test, target = "trend difference", ds.attrs["test"], f"{self.variable}_trend_difference"
         else:
             raise ValueError(f"no significance for maps of kind {of!r}")
         out = significance_flags(ds["significant"], ds["pvalue"].notnull(), name=f"{target}_significance",

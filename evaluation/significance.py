@@ -9,6 +9,7 @@ J. Geophys. Res. 105, 7337-7356) do for trends.  Testing thousands of cells at o
 Meteor. Soc. 97, 2263-2273) recommends for fields; :func:`significant_area_fraction`
 summarises the result as one number.  :func:`trend_test` gives the per-cell p-values of
 trends (Santer et al. 2000), to which the same FDR control applies;
+:func:`trend_difference_test` those of a run's trend minus the reference's;
 :func:`significance_flags` writes a mask as a CF flag variable.
 """
 
@@ -29,6 +30,7 @@ __all__ = [
     "fdr_significant",
     "significance_flags",
     "significant_area_fraction",
+    "trend_difference_test",
     "trend_test",
 ]
 
@@ -218,7 +220,8 @@ def trend_test(da: xr.DataArray, *, dim: str = "year", adjust: bool = True) -> x
     Returns
     -------
     Dataset
-        ``slope`` (per unit of ``dim``), ``pvalue``, ``n_eff`` on the other dimensions.
+        ``slope`` (per unit of ``dim``), ``pvalue``, ``n_eff`` and ``stderr`` (the slope's
+        standard error ``s_e / sqrt(Σ(x - x̄)²)``) on the other dimensions.
 
     Notes
     -----
@@ -254,10 +257,70 @@ def trend_test(da: xr.DataArray, *, dim: str = "year", adjust: bool = True) -> x
             "slope": (other, np.where(ok, slope, np.nan)),
             "pvalue": (other, np.where(ok, pvalue, np.nan)),
             "n_eff": (other, np.where(np.isfinite(y).all(axis=0), n_eff, np.nan)),
+            "stderr": (other, np.where(ok, stderr, np.nan)),
         },
         coords=coords,
     )
     out.attrs = {"test": "least-squares trend, t-test" + (", Santer et al. (2000) effective sample size" if adjust else "")}
+    return out
+
+
+def trend_difference_test(a: xr.DataArray, b: xr.DataArray, *, dim: str = "year", adjust: bool = True) -> xr.Dataset:
+    """Whether the least-squares trend of ``a`` differs from that of ``b``, at every other index (cell).
+
+    Parameters
+    ----------
+    a, b
+        Yearly season means ``(dim, ...)`` of a run and of a reference on one grid (the
+        years need not be the same); the ``dim`` coordinate (numeric) is the abscissa.
+    adjust
+        Each slope's standard error with the Santer et al. (2000) lag-1 effective sample
+        size of its own residuals (:func:`trend_test`); ``False``: the classical ones.
+
+    Returns
+    -------
+    Dataset
+        ``difference`` (slope of a minus slope of b, per unit of ``dim``), ``t``, ``dof``,
+        ``pvalue`` (two-sided), ``n_eff_a`` and ``n_eff_b``.
+
+    Notes
+    -----
+    ``t = (b_a - b_b) / sqrt(s_a² + s_b²)`` with ``s`` the slopes' standard errors (the
+    ``d`` statistic of Santer et al. 2000 for two independent series), referred to
+    Student's t with the Welch–Satterthwaite degrees of freedom
+    ``(s_a² + s_b²)² / (s_a⁴ / (n'_a - 2) + s_b⁴ / (n'_b - 2))`` (Satterthwaite 1946,
+    Welch 1947), ``n'`` the effective sizes: it lies between the smaller ``n' - 2`` and
+    ``n'_a + n'_b - 4`` and does not overstate the degrees of freedom when one series is
+    much noisier than the other.  The two series are taken as independent (a run's
+    weather is not the observed weather); two series that share their weather (a
+    reanalysis against observations) make the test conservative.  A cell that
+    :func:`trend_test` cannot test in either series gets NaN; two perfect fits give 0
+    for different slopes and NaN for equal ones.
+    """
+    fa, fb = trend_test(a, dim=dim, adjust=adjust), trend_test(b, dim=dim, adjust=adjust)
+    va, vb = fa["stderr"].values ** 2, fb["stderr"].values ** 2
+    diff = fa["slope"].values - fb["slope"].values
+    with np.errstate(invalid="ignore", divide="ignore"):
+        variance = va + vb
+        dof = variance**2 / (va**2 / (fa["n_eff"].values - 2.0) + vb**2 / (fb["n_eff"].values - 2.0))
+        t = diff / np.sqrt(variance)
+        pvalue = np.where(variance > 0, 2.0 * special.stdtr(np.where(dof > 0, dof, 1.0), -np.abs(t)),
+                          np.where(diff != 0, 0.0, np.nan))
+    ok = np.isfinite(va) & np.isfinite(vb) & np.isfinite(diff)  # trend_test could fit both
+    other = list(fa["slope"].dims)
+    out = xr.Dataset(
+        {
+            "difference": (other, np.where(ok, diff, np.nan)),
+            "t": (other, np.where(ok & (variance > 0), t, np.nan)),
+            "dof": (other, np.where(ok & (variance > 0), dof, np.nan)),
+            "pvalue": (other, np.where(ok, pvalue, np.nan)),
+            "n_eff_a": fa["n_eff"].variable,
+            "n_eff_b": fb["n_eff"].variable,
+        },
+        coords=fa.coords,
+    )
+    out.attrs = {"test": "difference of least-squares trends, t-test with both slopes' standard errors"
+                 + (", Santer et al. (2000) effective sample sizes" if adjust else "") + ", Welch-Satterthwaite degrees of freedom"}
     return out
 
 

@@ -5,8 +5,8 @@ coastlines from the bundled land fraction, a colour bar, a sequential palette fo
 and a diverging one centred on zero for differences and trends.  Each field can be
 downloaded as CF NetCDF; the box-select tool on a map sets a box region.
 
-Bias maps (run minus reference) and trend maps are stippled where the value stands out
-from interannual variability under false-discovery-rate control
+Bias maps (run minus reference), trend maps and trend-difference maps are stippled where
+the value stands out from interannual variability under false-discovery-rate control
 (:meth:`evaluation.scoring.Comparison.significance_mask`); the download carries the
 stippling as a CF flag variable beside the field.
 """
@@ -203,12 +203,13 @@ def region_outline(region: str) -> hv.Overlay:
     return hv.Overlay(layers)
 
 
-#: The maps that are stippled: bias maps and trend maps.
-_STIPPLED = ("difference", "trend_map")
+#: The maps that are stippled: bias maps, trend maps and trend-difference maps.
+_STIPPLED = ("difference", "trend_map", "trend_difference")
 #: How the dots are found, said under the maps.
 STIPPLE_RULE = (
     "a two-sided t-test at every cell on the yearly season means (bias maps: run against reference, "
-    "two-sample; trend maps: least-squares trend), with sample sizes reduced for lag-1 autocorrelation "
+    "two-sample; trend maps: least-squares trend; trend-difference maps: run trend minus reference trend "
+    "over both slopes' standard errors), with sample sizes reduced for lag-1 autocorrelation "
     f"(Santer et al. 2000), and the Benjamini-Hochberg false discovery rate held at {FDR_LEVEL * 100:g} % over all tested "
     "cells of the map (Wilks 2016). Undotted cells are not shown to agree: their difference or trend is "
     "within interannual variability. The NetCDF downloads carry the dots as a flag variable."
@@ -249,7 +250,7 @@ class MapsView(ResultView):
         "Means use one shared colour scale; differences and trends are centred on zero "
         "(blue: below the reference or decreasing, red: above or increasing). "
         "Hover for values; the dashed outline is the selected region; drag with the box-select tool "
-        "to use a box as the region. On run-minus-reference and trend maps, dots mark cells that stand out from "
+        "to use a box as the region. On run-minus-reference, trend and trend-difference maps, dots mark cells that stand out from "
         "interannual variability (rule below the maps)."
     )
 

@@ -553,9 +553,10 @@ class Results:
             "difference": cmp.difference,
             "trend_map": cmp.trend_map,
             "trend_difference": cmp.trend_difference,
-            # the stippling of the bias and trend maps (CF flag variables)
+            # the stippling of the bias, trend and trend-difference maps (CF flag variables)
             "difference_significance": lambda n, s: cmp.significance_mask(n, s, of="difference"),
             "trend_map_significance": lambda n, s: cmp.significance_mask(n, s, of="trend_map"),
+            "trend_difference_significance": lambda n, s: cmp.significance_mask(n, s, of="trend_difference"),
         }[kind]
         return method(name, season).load()
 

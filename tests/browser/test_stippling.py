@@ -57,13 +57,7 @@ def test_maps_are_stippled_with_the_legend(browser, served_sample, screenshots, 
     session.close()
 
 
-def test_trend_difference_maps_carry_no_dots(browser, served_sample) -> None:
-    session = open_dashboard(browser, served_sample + "/?field=trend_difference")
-    page = session.page
-    wait_for_view(page, "maps", timeout_ms=300_000)  # the first view reduces the sample cold
-    page.wait_for_timeout(1000)
-    assert not [kind for kind, _ in page.evaluate(_GLYPHS_JS) if kind == "Scatter"]
-    session.close()
+# trend-difference maps carry dots too: tests/browser/test_trend_difference_dots.py
 
 
 def test_score_page_states_the_best_rule(browser, served_sample) -> None:
