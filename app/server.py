@@ -16,7 +16,7 @@ import secrets
 import socket
 import sys
 import time
-from collections.abc import Sequence
+from collections.abc import Awaitable, Callable, Sequence
 from pathlib import Path
 from typing import Any
 
@@ -70,8 +70,9 @@ def load_results(path: str | os.PathLike[str] | None = None) -> Results:
     """Open the collection at ``path`` (manifest or folder) for serving."""
     from evaluation.catalog import Collection
 
-    collection = Collection.from_path(default_collection_path() if path is None else path)
-    return Results(collection)
+    origin = default_collection_path() if path is None else path
+    # read again at every look at the files: a new run folder or manifest source is offered
+    return Results(Collection.from_path(origin), origin=origin)
 
 
 # ---------------------------------------------------------------------- access control
@@ -219,11 +220,19 @@ def build_session(results: Results) -> pn.template.BaseTemplate:
 
     gate_page()
     _serve_own_stylesheets()
-    results.revalidate()  # a new session or a reload never sees results older than the files
+    # No look at the files here, on the event loop: the views look (off the loop) before they
+    # draw, and this session's first look (below) rebuilds its menus if the files changed.
     try:
         selection = Selection(results, tabs=available_tabs(results))
     except InputError as error:  # nothing to compare: say so on the page, not only in the log
-        return _notice_page(error.message)
+        # a page with nothing to compare has no views that would look: look here, so that a
+        # collection that gained a variable is served on the next reload
+        if not results.revalidate():
+            return _notice_page(error.message)
+        try:
+            selection = Selection(results, tabs=available_tabs(results))
+        except InputError as error:
+            return _notice_page(error.message)
     location = pn.state.location
     if location is not None and location.search:
         selection.apply_query(parse_query(location.search))
@@ -267,7 +276,7 @@ def build_session(results: Results) -> pn.template.BaseTemplate:
     # Through the page gate: a URL written while the page loads could be dropped, and
     # writing the same value again later would then change nothing.
     selection.param.watch(lambda *events: on_document(doc, write_url), ["request", "tab"])
-    _watch_files(results, selection)
+    _watch_files(results, selection, settle)
     if known is None:
         pn.state.execute(settle)
     else:
@@ -275,27 +284,40 @@ def build_session(results: Results) -> pn.template.BaseTemplate:
     return page
 
 
-def _watch_files(results: Results, selection: Selection) -> None:
-    """Redraw this open page when its input files change, and say so.
+def _watch_files(results: Results, selection: Selection, settle: Callable[[], Awaitable[None]]) -> None:
+    """Follow this open page's files: menus, years and numbers, with a notice.
 
-    Every :data:`WATCH_SECONDS` the session asks for the shared look at the files
-    (:meth:`Results.fresh`, off the event loop).  A new generation of the files re-issues
-    the request: the view on display is drawn again from the new files (hidden ones when
-    they are shown), and a notice tells when.
+    At once and then every :data:`WATCH_SECONDS` the session asks for the shared look at the
+    files (:meth:`Results.fresh`, off the event loop).  A new generation of the files rebuilds
+    the menus (:meth:`Selection.refresh_options`: a new run folder is offered, a chosen item
+    that disappeared falls back and is named in the notice), checks the period against the
+    new years (``settle``) and re-issues the request: the view on display is drawn again from
+    the new files (hidden ones when they are shown), and a notice tells when.  The first look
+    (the page was built from the listing before it) says nothing unless a choice was lost.
     """
     seen = results.generation
 
-    async def look() -> None:
+    async def look(first: bool = False) -> None:
         nonlocal seen
         files = await results.fresh()
         if files == seen:
             return
         seen = files
-        when = time.strftime("%H:%M", time.localtime(results.changed_at or time.time()))
-        selection.notify(f"Files changed; numbers updated at {when}.")
-        if selection.request is not None:
-            selection.param.trigger("request")  # parameter changes only; the page follows through on_document
+        lost = selection.refresh_options()  # parameter changes only; the page follows through on_document
+        if not first:
+            when = time.strftime("%H:%M", time.localtime(results.changed_at or time.time()))
+            selection.notify(f"Files changed; numbers updated at {when}.")
+        for text in lost:
+            selection.notify(text)
+        before = selection.request
+        await settle()  # the years may have changed: the period is checked again and published
+        if before is not None and selection.request is before:
+            selection.param.trigger("request")
 
+    async def first_look() -> None:
+        await look(first=True)
+
+    pn.state.execute(first_look)
     pn.state.add_periodic_callback(look, period=int(WATCH_SECONDS * 1000))
 
 

@@ -22,7 +22,7 @@ This module does not import Panel: the state can be built and tested without a s
 
 from __future__ import annotations
 
-from collections.abc import Mapping, Sequence
+from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass
 from typing import Protocol
 from urllib.parse import quote, unquote, unquote_plus
@@ -107,6 +107,31 @@ def parse_sort(text: str) -> tuple[str, bool] | None:
 #: run and variable for the sidebar's region and season; ``season``: every season for the
 #: sidebar's region; ``region``: every predefined region for the sidebar's season.
 OVERVIEW_BY: dict[str, str] = {"variable": "By variable", "season": "By season", "region": "By region"}
+
+
+def _one_of(what: str, allowed: Mapping[str, str]) -> Callable[[str], str]:
+    """A reader of a URL value that must be one of ``allowed``'s keys."""
+    def read(value: str) -> str:
+        if value not in allowed:
+            raise InputError(f"{what} '{_echo(value)}' is not known ({', '.join(allowed)})", remedy=f"use one of {', '.join(allowed)}")
+        return value
+
+    return read
+
+
+def _sort_text(value: str) -> str:
+    parsed = parse_sort(value)
+    return "" if parsed is None else ("-" if parsed[1] else "") + parsed[0]
+
+
+#: URL names read by one rule: name -> (reader giving the value or raising InputError, what the
+#: notice says is shown instead; empty: the parameter's default).  A refused value falls back
+#: to the parameter's default.
+_URL_READERS: dict[str, tuple[Callable[[str], str], str]] = {
+    "overview_by": (_one_of("overview sub-view", OVERVIEW_BY), ""),
+    "taylor": (_one_of("Taylor scale", TAYLOR_SCALES), ""),
+    "sort": (_sort_text, "showing the runs in the collection's order"),
+}
 
 #: Global spacings the common-grid control offers besides the sources' own grids.
 TARGET_SPACINGS: tuple[str, ...] = ("1x1", "2.5x2.5", "5x5")
@@ -271,6 +296,7 @@ class Selection(param.Parameterized):
     default_period = param.ClassSelector(class_=Period, default=None, allow_None=True)
     request = param.ClassSelector(class_=Request, default=None, allow_None=True, doc="Validated selection.")
     notices = param.List(default=[], item_type=str, doc="Messages for the person (plain text).")
+    choices = param.Integer(default=0, doc="Counts the changes of the offered choices (refresh_options).")
 
     def __init__(self, options: Options, *, tabs: Sequence[str] = tuple(TABS)) -> None:
         super().__init__()
@@ -340,6 +366,58 @@ class Selection(param.Parameterized):
             "sort": self.param.sort.default,
             "tab": self.param.tab.default,
         }
+
+    def refresh_options(self) -> list[str]:
+        """Offer what the collection holds now (after its files changed), keeping every choice
+        that still exists.
+
+        Variables, references, runs, levels and common grids are read again from the options.
+        A chosen item that is gone falls back to the default (runs: the ticked runs that
+        remain, else the default runs) and is named in the returned sentences (plain text,
+        for a notice); new items are offered without being chosen.  The period is not checked
+        here: the caller settles it against the new years.  Parameter changes only, without
+        events; :attr:`choices` is bumped for the controls.
+        """
+        variables = self._options.variables()
+        if not variables:
+            return ["No variable is held by both a model run and a reference any more; the previous choices are kept."]
+        lost: list[str] = []
+        grids = list(dict.fromkeys(getattr(self._options, "target_grids", lambda: ["reference"])()))
+        with param.parameterized.discard_events(self):
+            self.param.variable.objects = variables
+            self.param.variable.default = first_variable(self._options, variables)
+            if self.variable not in variables:
+                lost.append(f"variable {_echo(self.variable)} (showing {self.param.variable.default})")
+                self.variable = self.param.variable.default
+            references = self._options.references(self.variable)
+            models = self._options.models(self.variable)
+            self.param.reference.objects = references
+            self.param.reference.default = references[0]
+            if self.reference not in references:
+                lost.append(f"reference {_echo(self.reference)} (showing {references[0]})")
+                self.reference = references[0]
+            gone = [m for m in self.models or [] if m not in models]
+            kept = [m for m in models if m in (self.models or [])]
+            self.param.models.objects = models
+            self.param.models.default = models[:DEFAULT_RUNS]
+            self.models = kept or list(self.param.models.default)
+            if gone:
+                lost.append(f"run{'s' if len(gone) > 1 else ''} {', '.join(_echo(m) for m in gone)}"
+                            + ("" if kept else f" (showing {', '.join(self.models)})"))
+            levels = self._options.levels(self.variable) or [""]
+            self.param.level.objects = levels
+            self.param.level.default = default_level(levels)
+            if self.level not in levels:
+                if self.level:
+                    lost.append(f"level {self.level} (showing {self.param.level.default or 'the single level'})")
+                self.level = self.param.level.default
+            self.param.target_grid.objects = grids
+            self.param.target_grid.default = grids[0]
+            if self.target_grid not in grids:
+                lost.append(f"common grid {_echo(self.target_grid)} (showing {grids[0]})")
+                self.target_grid = grids[0]
+        self.choices += 1
+        return [f"No longer in the collection: {'; '.join(lost)}."] if lost else []
 
     # ------------------------------------------------------------------ notices
     def notify(self, text: str) -> None:
@@ -441,30 +519,16 @@ class Selection(param.Parameterized):
                     offered = ", ".join(self.param.target_grid.objects)
                     self.notify(f"Common grid '{_echo(value)}' is not offered ({_echo(offered)}); showing {self.param.target_grid.default}.")
                     self.target_grid = self.param.target_grid.default
-        if "overview_by" in query:
-            value = query["overview_by"].strip()
-            with param.parameterized.discard_events(self):
-                if value in OVERVIEW_BY:
-                    self.overview_by = value
-                else:
-                    self.notify(f"Overview sub-view '{_echo(value)}' is not known ({', '.join(OVERVIEW_BY)}); showing {self.param.overview_by.default}.")
-                    self.overview_by = self.param.overview_by.default
-        if "taylor" in query:
-            value = query["taylor"].strip()
-            with param.parameterized.discard_events(self):
-                if value in TAYLOR_SCALES:
-                    self.taylor = value
-                else:
-                    self.notify(f"Taylor scale '{_echo(value)}' is not known ({', '.join(TAYLOR_SCALES)}); showing {self.param.taylor.default}.")
-                    self.taylor = self.param.taylor.default
-        if "sort" in query:
+        for name, (read, fallback) in _URL_READERS.items():
+            if name not in query:
+                continue
             try:
-                parsed = parse_sort(query["sort"])
+                value = read(query[name].strip())
             except InputError as error:
-                self.notify(f"{_sentence(error.problem)}; showing the runs in the collection's order.")
-                parsed = None
+                value = self.param[name].default
+                self.notify(f"{_sentence(error.problem)}; {fallback or f'showing {value}'}.")
             with param.parameterized.discard_events(self):
-                self.sort = "" if parsed is None else ("-" if parsed[1] else "") + parsed[0]
+                setattr(self, name, value)
         if "tab" in query:
             value = query["tab"].strip()
             if value in self.param.tab.objects:

@@ -131,6 +131,8 @@ class Controls(Viewer):
             lambda *events: on_document(doc, self._show),
             ["variable", "level", "reference", "models", "region", "season", "period", "field", "target_grid", "span"],
         )
+        # the files changed: the menus offer what the collection holds now
+        sel.param.watch(lambda *events: on_document(doc, self._choices_changed), "choices")
         self._show()
 
         self._layout = pn.Column(
@@ -197,6 +199,13 @@ class Controls(Viewer):
             self.selection.period = str(self.selection.default_period)
 
     # ------------------------------------------------------------------ selection -> widgets
+    def _choices_changed(self) -> None:
+        sel, res = self.selection, self.results
+        # options and value at once: a value missing from the new options is never picked for the person
+        self.variable.param.update(options={res.variable_info(v).label: v for v in sel.param.variable.objects}, value=sel.variable)
+        self.target_grid.param.update(options=self._grid_options(), value=sel.target_grid)
+        self._show()
+
     def _region_options(self) -> dict[str, str]:
         options = {region_label(r): r.id for r in REGIONS.values()}
         region = self.selection.region

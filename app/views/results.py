@@ -180,8 +180,13 @@ class Results:
         Remapping method passed to every comparison.
     """
 
-    def __init__(self, collection: Any, *, max_items: int = 512, max_comparisons: int = 24, regrid: str = "conservative") -> None:
+    def __init__(self, collection: Any, *, max_items: int = 512, max_comparisons: int = 24, regrid: str = "conservative",
+                 origin: Any = None) -> None:
         self.collection = collection
+        #: the manifest or folder the collection was read from: read again at every look at the
+        #: files, so that a new run folder, a source added to the manifest or one removed is
+        #: offered (None: the collection as given, for tests)
+        self.origin = origin
         self.regrid = regrid
         #: the common grid of every comparison: the manifest's target_grid (default: each reference's own)
         self.target_grid = str(getattr(collection, "target_grid", "reference"))
@@ -322,10 +327,24 @@ class Results:
             return function(*args)
 
     # ------------------------------------------------------------------ freshness
+    def _current_collection(self) -> Any:
+        """The collection as its manifest or folder says now; the one in use when it cannot be
+        read (a manifest being written, a new folder without files yet: read at a later look)."""
+        if self.origin is None:
+            return self.collection
+        from evaluation.catalog import Collection
+
+        try:
+            return Collection.from_path(self.origin)
+        except (InputError, OSError):
+            return self.collection
+
     def _inputs_stamp(self) -> tuple:
-        """The identity of every input file (one stat each; see ``io.file_identity``)."""
-        stamp = []
-        for src in self.collection.sources:
+        """The collection and the identity of every input file (one stat each; see
+        ``io.file_identity``); a new generation takes the collection of its stamp."""
+        collection = self._current_collection()
+        stamp: list = [collection]
+        for src in collection.sources:
             try:
                 stamp.append((src.name, tuple(io.file_identity(io.expand_paths(src.paths, source=src.name)))))
             except (InputError, OSError) as error:
@@ -360,6 +379,9 @@ class Results:
         if not self._outdated(stamp):  # another caller made it meanwhile
             return False
         self._stamp, self._checked, self._failed = stamp, time.monotonic(), False
+        if stamp and stamp[0] is not self.collection and stamp[0] != self.collection:
+            self.collection = stamp[0]
+            self.target_grid = str(getattr(stamp[0], "target_grid", "reference"))
         # a fresh product cache: a computation still running for the old files stores its
         # result in the old one, which nobody asks any more
         self.products = BoundedCache(max_items=self.products.max_items)

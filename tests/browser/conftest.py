@@ -14,15 +14,15 @@ from __future__ import annotations
 import contextlib
 import os
 import shutil
-import socket
 import time
-import urllib.request
 from collections.abc import Iterator
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
 import pytest
+
+from app.liveness import free_port, wait_until_live
 
 CHROMIUM_ARGS = [
     "--headless",
@@ -80,12 +80,6 @@ def pytest_terminal_summary(terminalreporter: Any) -> None:
         terminalreporter.write_line(f"dashboard screenshots: {SCREENSHOTS}")
 
 
-def free_port() -> int:
-    with socket.socket(socket.AF_INET, socket.SOCK_STREAM) as sock:
-        sock.bind(("127.0.0.1", 0))
-        return int(sock.getsockname()[1])
-
-
 @contextlib.contextmanager
 def serving(results: Any) -> Iterator[str]:
     """Serve ``results`` on a free loopback port in a thread; yields the base URL.
@@ -101,17 +95,7 @@ def serving(results: Any) -> Iterator[str]:
         check_unused_sessions_milliseconds=250, unused_session_lifetime_milliseconds=500,
     )
     url = f"http://127.0.0.1:{port}"
-    deadline = time.monotonic() + 30
-    while True:
-        try:
-            with urllib.request.urlopen(f"{url}/liveness", timeout=2) as reply:
-                if reply.status == 200:
-                    break
-        except OSError:
-            pass
-        if time.monotonic() > deadline:
-            raise RuntimeError(f"{url}/liveness did not answer within 30 s")
-        time.sleep(0.1)
+    wait_until_live(port, deadline=time.monotonic() + 30, poll=0.1, why=f"{url}/liveness did not answer within 30 s")
     try:
         yield url
     finally:

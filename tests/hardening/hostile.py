@@ -24,11 +24,12 @@ FORMULA = "=HYPERLINK(\"http://example.invalid\",\"x\")"
 ATTRIBUTE_IMG = "<img src=y onerror=\"window.__xss='attr'\">"
 
 
-def write_run(folder: Path, *, offset: float, variable: str = "tas", attrs: dict | None = None) -> Path:
-    """Three years of monthly data on a 10-degree grid in ``folder/data.nc``."""
+def write_run(folder: Path, *, offset: float, variable: str = "tas", attrs: dict | None = None,
+              years: int = 3, start_year: int = 2001, name: str = "data.nc") -> Path:
+    """``years`` years (three from 2001) of monthly data on a 10-degree grid in ``folder/name``."""
     folder.mkdir(parents=True, exist_ok=True)
     return write_cf(
-        folder / "data.nc", variable=variable, dlat=10.0, years=3, start_year=2001, offset=offset,
+        folder / name, variable=variable, dlat=10.0, years=years, start_year=start_year, offset=offset,
         global_attrs=attrs or {},
     )
 

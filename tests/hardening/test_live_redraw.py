@@ -13,36 +13,33 @@ import time
 from pathlib import Path
 
 import pytest
-from browser.conftest import open_dashboard, serving, wait_for_view
+from browser.conftest import serving
 
 from app.server import WATCH_SECONDS
 from app.views.results import Results
 from evaluation.catalog import Collection
 
 from .hostile import write_run
-from .test_running_server import _wait_for_row
+from .live import offset_collection, open_scores, wait_for_row
 
 pytestmark = pytest.mark.browser
 
 
 def test_an_open_page_redraws_when_a_run_file_is_replaced(browser, tmp_path: Path) -> None:
-    root = tmp_path / "c"
-    write_run(root / "references" / "ref", offset=0.0)
-    target = write_run(root / "runs" / "a", offset=1.0)
+    root = offset_collection(tmp_path / "c", a=1.0)
+    target = root / "runs" / "a" / "data.nc"
     # written before the server starts: netCDF-C is not thread-safe, the server reads meanwhile
     warmer = write_run(tmp_path / "new", offset=6.0)
     results = Results(Collection.from_path(root))
     with serving(results) as url:
-        session = open_dashboard(browser, url + "/?tab=scores")
+        session = open_scores(browser, url, row="1.000")
         page = session.page
-        wait_for_view(page, "scores", what=".tabulator-row")
-        _wait_for_row(page, "1.000")
         address = page.url
 
         os.replace(warmer, target)  # a new file renamed over the old one (atomic)
         replaced = time.monotonic()
         # the page's shown bias follows, without a reload, within the watch period plus a computation
-        _wait_for_row(page, "6.000", timeout_s=WATCH_SECONDS + 60)
+        wait_for_row(page, "6.000", timeout_s=WATCH_SECONDS + 60)
         took = time.monotonic() - replaced
         notice = page.locator(".gs-notice", has_text="Files changed; numbers updated at")
         assert notice.count() == 1, page.locator(".gs-notice").all_text_contents()
