@@ -142,6 +142,8 @@ def _listing(path: str) -> dict[str, dict[str, str]]:
                         "long_name": str(var.attrs.get("long_name", "")),
                         "has_time": str(any(find_axis(ds, "time") == d for d in var.dims)),
                         "cells": str(cells),
+                        # bytes of the values as read (packed integers unpacked to float64)
+                        "bytes": str(int(var.size) * (8 if {"scale_factor", "add_offset"} & set(var.attrs) else var.dtype.itemsize)),
                         **_level_listing(ds, var, (*horizontal, find_axis(ds, "time"))),
                     }
     except InputError:
@@ -250,6 +252,7 @@ def open_source(
     variables: Sequence[str] | None = None,
     source: str | None = None,
     chunks: dict[str, int] | None = None,
+    without_dask: bool = False,
 ) -> xr.Dataset:
     """Open one source lazily and normalise it.
 
@@ -267,6 +270,13 @@ def open_source(
         Dask chunks; default whole years of months, as many as fit in about
         ``$GRIDSCORE_CHUNK_MB`` (64) megabytes of float64 per chunk, so that memory is
         bounded by chunk size × worker threads whatever the length of the run.
+    without_dask
+        When the source is one file of monthly (or coarser) steps whose values fit in
+        memory (:func:`fits_in_memory`'s rule) and no dask.distributed client is in use,
+        open it without dask: the values stay in the file, read by xarray's lazy
+        indexing when they are first used, and neither dask's import (about 0.5 s) nor a
+        task graph is paid.  Otherwise (several files, daily data, a larger source) the
+        usual dask chunks.
 
     Raises
     ------
@@ -293,9 +303,13 @@ def open_source(
         files_to_open = files
     timed = [p for p in files_to_open if any(m["has_time"] == "True" for m in _listing(p).values())]
     untimed = [p for p in files_to_open if p not in timed]
+    steps_per_month = _steps_per_month(timed[0]) if timed and chunks is None else 1.0
+    plain = without_dask and chunks is None and _plain_read(timed, steps_per_month)
     if chunks is None:
         cells = max([int(m.get("cells", 0)) for p in files_to_open for m in _listing(p).values()] + [1])
-        chunks = {"time": _time_chunk(cells, _steps_per_month(timed[0]) if timed else 1.0)}
+        chunks = {"time": _time_chunk(cells, steps_per_month)}
+    if plain:
+        chunks = None  # xarray's lazily indexed file arrays
     # times are decoded per file by evaluation.timecoding (calendar spellings, reference
     # dates, months since, separate time origins, bounds midpoints), not by xarray
     raw = {"decode_times": False, "decode_timedelta": False}
@@ -321,7 +335,7 @@ def open_source(
                         )
                     )
             for p in untimed:
-                parts.append(timecoding.decode(xr.open_dataset(p, chunks={}, **raw), file=p))
+                parts.append(timecoding.decode(xr.open_dataset(p, chunks=None if plain else {}, **raw), file=p))
     except InputError:
         raise
     except Exception as exc:
@@ -330,6 +344,18 @@ def open_source(
     ds.attrs.setdefault("gridscore_files", "\n".join(files_to_open))
     out = normalise(ds, source=source or (files_to_open[0] if len(files_to_open) == 1 else None), files=files_to_open)
     return timecoding.canonical(out)
+
+
+def _plain_read(timed: Sequence[str], steps_per_month: float) -> bool:
+    """Whether :func:`open_source` may open ``timed`` without dask (see its ``without_dask``).
+
+    One file only: several files would be joined along time by copying them into memory
+    at once, for every source of a comparison before the first is reduced.
+    """
+    if len(timed) != 1 or steps_per_month > 1.5 or _on_a_cluster():
+        return False
+    need = sum(int(m.get("bytes", 0)) for m in _listing(timed[0]).values() if m.get("has_time") == "True")
+    return 0 < need <= min(LOAD_LIMIT_BYTES, _available_bytes() / 4)
 
 
 def _steps_per_month(path: str) -> float:

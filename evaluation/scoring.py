@@ -19,7 +19,6 @@ import threading
 from collections.abc import Iterable, Sequence
 from dataclasses import dataclass, field
 
-import dask
 import numpy as np
 import pandas as pd
 import xarray as xr
@@ -220,7 +219,8 @@ class Comparison:
     def _open(self, src: Source) -> xr.DataArray:
         stored_as = src.name_in_files(self.variable)  # e.g. 'TS' for 'tas' (Source.variables)
         inputs = {stored: wanted for wanted, stored in src.names_in_files(self.variable).items() if wanted != self.variable}
-        ds = io.open_source(src.paths, variables=[stored_as, *inputs], source=src.name)
+        # a source that fits in memory is opened without dask and read whole when first reduced
+        ds = io.open_source(src.paths, variables=[stored_as, *inputs], source=src.name, without_dask=True)
         self._grids[src.name] = grid_of(ds)
         ds = ds.rename({k: v for k, v in inputs.items() if k in ds.data_vars and v not in ds.data_vars})  # derived inputs
         da = io.get_variable(ds, stored_as, source=src.name)
@@ -429,9 +429,11 @@ class Comparison:
             for source in dict.fromkeys(t[0] for t in todo):
                 batch = [t for t in todo if t[0] == source]
                 monthly = self._monthly_in_memory(source, cycle=any(s == "_cycle" for _, s in batch))
-                computed = dask.compute(*[
-                    monthly_climatology(monthly, self.period) if s == "_cycle" else season_means(monthly, s, self.period) for _, s in batch
-                ])
+                computed = [monthly_climatology(monthly, self.period) if s == "_cycle" else season_means(monthly, s, self.period) for _, s in batch]
+                if monthly.chunks is not None:  # too large for memory: one dask pass over the chunks
+                    import dask
+
+                    computed = dask.compute(*computed)
                 del monthly
                 for (name, s), value in zip(batch, computed, strict=True):
                     if self._cache is not None:
@@ -479,13 +481,14 @@ class Comparison:
         its first year needs); every year for a seasonal cycle or non-monthly steps.
         """
         da = self._prepared[name].monthly
-        if da.chunks is None:
-            return da
         if self._prepared[name].kind == "monthly" and not cycle and da.sizes["time"]:
             years = np.fromiter((t.year for t in da["time"].values), dtype=int, count=da.sizes["time"])
             inside = np.flatnonzero((years >= self.period.start - 1) & (years <= self.period.end))
             if inside.size:
                 da = da.isel(time=slice(int(inside[0]), int(inside[-1]) + 1))
+        if da.chunks is None:
+            # in memory already, or opened without dask (io.open_source): read now, once
+            return da.compute()
         # a copy (the lazy data stay lazy); graph not optimised: a few tasks per file, named as read
         return da.compute(optimize_graph=False) if io.fits_in_memory(da) else da
 
@@ -934,6 +937,7 @@ class Comparison:
                 scored.remove(m)
                 continue
             significant, tested = self._significant_cells(ms_all, rs_all, mask, against)
+            difference = ms_all - rs_all if moments is not None else None  # once for every region
             for region in regions:
                 w = area * fraction[region] * mask
                 stats = pattern_stats(clim_m, clim_r, w, where=f"{m.name}, {region}, {season}")
@@ -954,9 +958,9 @@ class Comparison:
                 tested_w = w * tested
                 stats["bias_signif_area"] = float((tested_w * significant).sum() / tested_w.sum()) if tested_w.sum() > 0 else float("nan")
                 if moments is not None:
-                    moments.setdefault(region, {})[m.name] = error_moments(ms_all - rs_all, w, years)
+                    moments.setdefault(region, {})[m.name] = error_moments(difference, w, years)
                 values[region][m.name] = stats
-            del ms_all, rs_all
+            del ms_all, rs_all, difference
         return values
 
     def _significant_cells(self, ms_all: np.ndarray, rs_all: np.ndarray, mask: np.ndarray, against: str) -> tuple[np.ndarray, np.ndarray]:
