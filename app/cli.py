@@ -42,6 +42,12 @@ def _source_arg(text: str, *, role: str, default_name: str | None = None):
     name, path = name.strip(), path.strip()
     if not name or not path:
         raise InputError(f"'{text}' is not NAME=PATH", remedy="write --model NAME=PATH, e.g. --model run-a='runs/a/*.nc'")
+    from evaluation.names import name_problem
+
+    problem = name_problem(name)
+    if problem:
+        raise InputError(f"the name '{name}' of --{'model' if role == 'model' else 'reference'} {text[:60]!r} {problem}",
+                         remedy=f"give the source another name: --{'model' if role == 'model' else 'reference'} NAME=PATH")
     # comma-separated files, unless the whole text names files (a folder 'b,c')
     paths = tuple(p for p in path.split(",") if p) if "," in path and not _names_files(path) else (path,)
     return Source(name=name, role=role, paths=paths)
@@ -50,7 +56,7 @@ def _source_arg(text: str, *, role: str, default_name: str | None = None):
 def _names_files(text: str) -> bool:
     """Whether ``text`` as a whole is an existing file or a glob matching one."""
     text = os.path.expanduser(text.strip())
-    return bool(glob.glob(text)) if glob.has_magic(text) else os.path.isfile(text)
+    return os.path.isfile(text) or (glob.has_magic(text) and bool(glob.glob(text)))
 
 
 def _with_names_in_files(sources: list, pairs: Sequence[str], *, variable: str) -> list:

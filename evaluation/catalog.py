@@ -51,6 +51,7 @@ from . import io
 from .ensembles import Ensemble, check_ensembles
 from .errors import InputError
 from .grids.target import parse_target_grid
+from .names import name_problem, printable
 from .scoring import Source
 
 __all__ = ["Collection", "MANIFEST_NAME", "ROLES", "Source"]
@@ -190,6 +191,10 @@ class Collection:
                 continue
             for child in sorted(p for p in parent.iterdir() if p.is_dir()):
                 # a folder name is not a pattern: '[' or '*' in it must match itself
+                problem = name_problem(child.name)
+                if problem:
+                    raise InputError(f"the folder name, used as the source's name, {problem}", file=printable(child),
+                                     remedy="rename the folder")
                 pattern = os.path.join(glob.escape(str(child)), "*.nc")
                 io.expand_paths(pattern, source=child.name)  # refuses a folder without files
                 sources.append(Source(name=child.name, role=role, paths=(pattern,)))
@@ -310,9 +315,10 @@ def _source_from_table(entry: dict, index: int, root: Path, manifest: Path) -> S
     if "name" not in entry:
         raise InputError(f"{label} has no name", file=manifest, remedy='add name = "..."')
     name = _text(entry, "name", manifest, default="", context=label).strip()
-    if not name or _CONTROL.search(name):
+    problem = name_problem(name)
+    if problem:
         raise InputError(
-            f"{label} has an empty name or one with control characters",
+            f"the name of {label} {problem}",
             file=manifest,
             remedy="give each source a short printable name",
         )

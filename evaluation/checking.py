@@ -16,7 +16,6 @@ from __future__ import annotations
 import calendar
 import json
 import os
-import re
 from collections.abc import Sequence
 from dataclasses import asdict, dataclass, field
 
@@ -24,6 +23,7 @@ import xarray as xr
 
 from . import grids, io, timecoding
 from .errors import InputError
+from .names import printable
 from .timeaxis import complete_years
 from .units import canonical, check_standard_units, parse_units
 
@@ -31,12 +31,10 @@ __all__ = ["FileReport", "check_file", "check_paths", "to_json", "plain"]
 
 # Fixed fields that sit beside a source's time series and are read from there; a file
 # holding only these is usable although it has no time axis.
-_CONTROL = re.compile(r"[\x00-\x1f\x7f-\x9f\u2028\u2029]")
-
-
 def plain(text: object) -> str:
-    """``text`` as one printable line: control characters (escape sequences, newlines) escaped."""
-    return _CONTROL.sub(lambda m: m.group(0).encode("unicode_escape").decode("ascii"), str(text))
+    """``text`` as one printable line: control and direction characters (escape sequences,
+    newlines, U+202E) escaped."""
+    return printable(text)
 
 
 @dataclass

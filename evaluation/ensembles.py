@@ -25,12 +25,12 @@ in the mean.
 
 from __future__ import annotations
 
-import re
 from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any
 
 from .errors import InputError
+from .names import name_problem, printable
 
 if TYPE_CHECKING:  # pragma: no cover
     import pandas as pd
@@ -54,7 +54,6 @@ __all__ = [
 MEAN_SUFFIX = " (ensemble mean)"
 #: statistic -> the suffix of the rows holding it
 SPREAD_STATS = {"min": " (members' min)", "max": " (members' max)", "std": " (members' std)"}
-_CONTROL = re.compile(r"[\x00-\x1f\x7f]")
 
 
 @dataclass(frozen=True)
@@ -100,8 +99,9 @@ def check_ensembles(ensembles: Iterable[Ensemble], models: Sequence[str], *, oth
     seen_names: set[str] = set()
     member_of: dict[str, str] = {}
     for ens in result:
-        if not ens.name or _CONTROL.search(ens.name):
-            raise InputError("an ensemble has an empty name or one with control characters", file=where, remedy="give each ensemble a short printable name")
+        problem = name_problem(ens.name)
+        if problem:
+            raise InputError(f"the name of ensemble '{printable(ens.name)}' {problem}", file=where, remedy="give each ensemble a short printable name")
         if ens.name in taken or ens.name in seen_names:
             raise InputError(f"the ensemble name '{ens.name}' is already the name of a source or another ensemble", file=where,
                              remedy="give the ensemble a name of its own")

@@ -45,11 +45,14 @@ class InputError(ValueError):
 
     @property
     def message(self) -> str:
-        """The whole message on one line: ``file: problem; remedy``."""
+        """The whole message on one line: ``file: problem; remedy`` (control and direction
+        characters from file names or attributes escaped: ``evaluation.names.printable``)."""
+        from .names import printable
+
         text = self.problem if self.file is None else f"{self.file}: {self.problem}"
         if self.remedy:
             text += f" — {self.remedy}"
-        return " ".join(text.split())
+        return printable(" ".join(text.split()))
 
     def __str__(self) -> str:
         return self.message

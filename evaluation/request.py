@@ -211,7 +211,7 @@ def expand_paths(paths: str | os.PathLike[str] | Iterable[str | os.PathLike[str]
     found: list[str] = []
     for item in items:
         text = os.path.expanduser(str(item))
-        if glob.has_magic(text):
+        if glob.has_magic(text) and not os.path.isfile(text):  # a file named 'a[1].nc' is itself
             matches = sorted(glob.glob(text))
             if not matches:
                 raise InputError("the pattern matches no file", file=text, remedy="check the folder and the quoting of the glob")
@@ -226,6 +226,12 @@ def expand_paths(paths: str | os.PathLike[str] | Iterable[str | os.PathLike[str]
             raise InputError("is a folder, not a file", file=text, remedy=f"give a glob such as '{os.path.join(text, '*.nc')}'")
         else:
             raise InputError("file not found", file=text, remedy="check the path")
+    if os.sep == "/":
+        odd = next((f for f in found if "\\" in f), None)
+        if odd is not None:
+            # netCDF-C turns a backslash in a path into a folder separator, then reports an HDF error
+            raise InputError("the path holds a backslash, which the NetCDF library reads as a folder separator, so the file cannot be opened",
+                             file=odd, remedy="rename the file (or its folder) without '\\'")
     return sorted({os.path.abspath(f) for f in found})
 
 
