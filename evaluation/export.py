@@ -538,8 +538,11 @@ def _latex_bytes(table: pd.DataFrame, record: Mapping[str, Any] | None) -> bytes
             + "\\par\\medskip\n".join(group) + "\\end{table}\n"
         )
     # "<" and ">" print as other glyphs in LaTeX's default font encoding ("< 0.001")
-    tabular = tabular.replace("<", r"\textless{}").replace(">", r"\textgreater{}")
+    tabular = _latex_unicode(tabular.replace("<", r"\textless{}").replace(">", r"\textgreater{}"))
     comment = [f"% {' '.join(_title(record).split())}", "% needs \\usepackage{booktabs}"]
+    if "\\gsglyph{" in tabular:
+        comment += ["% names hold characters pdflatex cannot set: it prints their code points ([U+03A9]);",
+                    "% xelatex or lualatex, with a font that has them, print the characters", _LATEX_GLYPH]
     units = _units_table(table)
     for _, row in units.iterrows():
         pairs = ", ".join(f"{m} {u}" for m, u in row.iloc[1:].items() if u)
@@ -593,6 +596,23 @@ _LATEX_SPECIAL = {
     "\\": r"\textbackslash{}", "&": r"\&", "%": r"\%", "$": r"\$", "#": r"\#", "_": r"\_",
     "{": r"\{", "}": r"\}", "~": r"\textasciitilde{}", "^": r"\textasciicircum{}",
 }
+
+
+#: Characters that pdflatex sets in a standard document (``\\usepackage[T1]{fontenc}`` or the
+#: default encoding, with the text companion symbols every LaTeX since 2020 loads): Latin-1,
+#: Latin Extended-A, dashes, quotes and the ellipsis (LaTeX's utf8 input definitions; common
+#: practice).  Any other character (Greek, CJK, emoji) stops pdflatex with "Unicode character
+#: not set up for use with LaTeX".
+_LATEX_SETS = frozenset("\u2013\u2014\u2018\u2019\u201c\u201d\u2026")
+#: Writes such a character: itself under xelatex and lualatex, its code point under pdflatex
+#: (which then never sees the character: the argument is dropped unexpanded).
+_LATEX_GLYPH = (r"\ifdefined\gsglyph\else\DeclareRobustCommand{\gsglyph}[2]"
+                r"{\ifdefined\XeTeXrevision#2\else\ifdefined\directlua#2\else[U+#1]\fi\fi}\fi")
+
+
+def _latex_unicode(text: str) -> str:
+    """``text`` with every character pdflatex cannot set written as ``\\gsglyph{HEX}{c}``."""
+    return "".join(c if ord(c) < 0x180 or c in _LATEX_SETS else f"\\gsglyph{{{ord(c):04X}}}{{{c}}}" for c in text)
 
 
 def _latex_text(text: str) -> str:

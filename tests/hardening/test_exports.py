@@ -84,3 +84,20 @@ def test_latex_names_are_escaped(name: str) -> None:
 def test_html_escapes_names() -> None:
     text = table_bytes(_tidy(NAMES), "html", provenance={"variable": MANIFEST_SCRIPT}).decode()
     assert "<script>alert" not in text and "<img src=x" not in text
+
+
+# Names pdflatex cannot set (Greek, CJK, emoji) and an ensemble's rows with hostile names: the
+# judge is pdflatex itself (tests/test_latex_compiles.py: a standard document, no error).
+UNICODE_NAMES = ["\u03a9-run", "\u6a21\u578b-A", "run \U0001f600", f"{FOLDER_IMG} (ensemble mean)", "e {x} (members' min)",
+                 "\\input{/etc/hostname} #1 ~ ^ % & $ _", "=cmd (members' std)", "x" * 120]
+
+
+def test_latex_with_names_pdflatex_cannot_set_compiles(tmp_path) -> None:
+    from test_latex_compiles import PDFLATEX, compile_table, tidy_table
+
+    table = tidy_table(UNICODE_NAMES, ["ref {r}"])
+    text = table_bytes(table, "tex", provenance=None).decode()
+    assert "\\gsglyph{03A9}{\u03a9}" in text and "\\gsglyph{1F600}{\U0001f600}" in text
+    if PDFLATEX is None:
+        pytest.skip("no pdflatex (Debian: apt-get install texlive-latex-base texlive-latex-recommended)")
+    compile_table(table, tmp_path)  # asserts pdflatex ends without an error and writes the PDF
