@@ -51,7 +51,7 @@ from . import io
 from .ensembles import Ensemble, check_ensembles
 from .errors import InputError
 from .grids.target import parse_target_grid
-from .names import name_problem, printable
+from .names import UNSAFE, name_problem, printable
 from .scoring import Source
 
 __all__ = ["Collection", "MANIFEST_NAME", "ROLES", "Source"]
@@ -414,7 +414,22 @@ def _names_in_files(entry: dict, label: str, manifest: Path) -> dict[str, str]:
             file=manifest,
             remedy='write variables = { tas = "TS" } (the compared variable = the name in this source\'s files)',
         )
-    return {k.strip(): v.strip() for k, v in table.items()}
+    wanted = {k.strip(): v.strip() for k, v in table.items()}
+    for name in wanted:
+        # the compared variable's name names the variable of the dashboard's NetCDF downloads
+        if not _NETCDF_NAME.fullmatch(name) or UNSAFE.search(name):
+            raise InputError(
+                f"{label} compares a variable named {name!r}, which a NetCDF file cannot hold",
+                file=manifest,
+                remedy="name the compared variable with letters, digits and '_' (CF conventions 2.3), e.g. variables = { tas = \"TS\" }",
+            )
+    return wanted
+
+
+#: A name a NetCDF file can hold (netCDF-C: no '/', no control characters, not starting with
+#: a sign or a space); the characters HTML, LaTeX and formulas treat specially are left out
+#: too, as CF conventions 2.3 recommend letters, digits and underscores.
+_NETCDF_NAME = re.compile(r"[A-Za-z0-9_\u0080-\U0010ffff][A-Za-z0-9_.@+\-\u0080-\U0010ffff]*")
 
 
 def _absolute(pattern: str, root: Path) -> str:

@@ -131,3 +131,20 @@ def test_hostile_folder_and_manifest_names_are_refused_for_serving(capsys, tmp_p
                         + entry.format("n", "model").replace('paths', 'ensemble = "e (ensemble mean)"\npaths'), encoding="utf-8")
     outcome = run(capsys, "serve", str(manifest), "--port", "0")
     assert outcome.one_line_refusal() and "ensemble mean" in outcome.err
+
+
+@pytest.mark.parametrize("name", ["a/b", "<svg onload=alert(1)>", "{x}", "=cmd", "t\u202eas", "two words"])
+def test_a_manifest_variable_name_a_netcdf_file_cannot_hold_is_refused(capsys, tmp_path: Path, name: str) -> None:
+    # the dashboard's map downloads name their variable after it; netCDF-C refuses '/' and
+    # odd first characters (NetCDF users guide, "Naming conventions"), CF 2.3 recommends
+    # letters, digits and '_'
+    for folder in ("ref", "a"):
+        (tmp_path / folder).mkdir()
+        write_cf(tmp_path / folder / "d.nc", variable="TS", standard_name=None, **GRID)
+    entry = '[[source]]\nname = "{}"\nrole = "{}"\npaths = ["{}/*.nc"]\nvariables = {{ {} = "TS" }}\n'
+    key = json.dumps(name)  # a TOML basic string (JSON's escapes are TOML's)
+    (tmp_path / "manifest.toml").write_text(entry.format("ref", "reference", "ref", key) + entry.format("a", "model", "a", key),
+                                            encoding="utf-8")
+    outcome = run(capsys, "serve", str(tmp_path / "manifest.toml"), "--port", "0")
+    assert outcome.one_line_refusal() and "NetCDF file cannot hold" in outcome.err, outcome
+    assert not UNSAFE.search(outcome.err.rstrip("\n"))
