@@ -33,6 +33,7 @@ import re
 import tempfile
 import threading
 from collections.abc import Iterator
+from concurrent.futures import Future, ThreadPoolExecutor
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
@@ -79,6 +80,21 @@ def cache_limit_bytes() -> float:
             remedy="set it to a number such as 2000, or unset it",
         )
     return value * 1e6
+
+
+# Entries written while the computation goes on (Cache.put_later): one writer thread for
+# every cache of the process, and the writes not yet done, by entry file.  The thread is
+# not a daemon: the interpreter waits for it at exit, so a command's entries are complete.
+_WRITER: list[ThreadPoolExecutor] = []
+_PENDING: dict[Path, Future] = {}
+_PENDING_LOCK = threading.Lock()
+
+
+def _writer() -> ThreadPoolExecutor:
+    with _PENDING_LOCK:
+        if not _WRITER:
+            _WRITER.append(ThreadPoolExecutor(max_workers=1, thread_name_prefix="gridscore-cache-writer"))
+        return _WRITER[0]
 
 
 def _digest(path: Path) -> str:
@@ -177,8 +193,22 @@ class Cache:
             json.dump(index, fh, sort_keys=True)
         os.replace(tmp, self.path / INDEX)
 
+    def flush(self) -> None:
+        """Wait until every entry of this cache given to :meth:`put_later` is written."""
+        with _PENDING_LOCK:
+            waiting = [f for path, f in _PENDING.items() if path.parent == self.path]
+        for future in waiting:
+            future.exception()  # waits; a failed write only costs speed (as in _store)
+
+    def _wait_for(self, name: str) -> None:
+        with _PENDING_LOCK:
+            future = _PENDING.get(self.path / name)
+        if future is not None:
+            future.exception()
+
     def _verified(self, name: str) -> Path | None:
         """The entry's file when the index lists it and its content matches the recorded hash."""
+        self._wait_for(name)
         record = self._read_index().get(name)
         f = self.path / name
         if record is None or not f.is_file():
@@ -270,6 +300,31 @@ class Cache:
 
         self._store(self._name(key, _SUFFIX), write)
 
+    def put_later(self, key: str, da: xr.DataArray) -> None:
+        """:meth:`put` in the background: the caller goes on computing while the entry is
+        written (on 2 cores the writing overlaps the scoring).  :meth:`get` of the same key
+        waits for it; the process waits for every write at exit.  ``da`` must not be changed
+        afterwards (it is written as it is when the writer reaches it)."""
+        path = self.path / self._name(key, _SUFFIX)
+        box: dict[str, Future] = {}
+
+        def run() -> None:
+            try:
+                self.put(key, da)
+            finally:
+                with _PENDING_LOCK:
+                    if _PENDING.get(path) is box.get("future"):
+                        _PENDING.pop(path, None)
+
+        self._wait_for(path.name)  # one write of an entry at a time
+        future = _writer().submit(run)
+        with _PENDING_LOCK:
+            box["future"] = future
+            for done in [p for p, f in _PENDING.items() if f.done()]:
+                del _PENDING[done]
+            if not future.done():
+                _PENDING[path] = future
+
     def get_json(self, key: str) -> Any | None:
         """A stored JSON document (e.g. a whole score table), or ``None``."""
         f = self._verified(self._name(key, ".json"))
@@ -292,6 +347,7 @@ class Cache:
 
     def entries(self) -> list[Path]:
         """The entry files the index lists (and that exist)."""
+        self.flush()
         if not self.path.is_dir():
             return []
         return [self.path / n for n in self._read_index() if (self.path / n).is_file()]
@@ -333,6 +389,7 @@ class Cache:
 
     def clear(self) -> int:
         """Remove every entry of the cache (and its unfinished temporary files); nothing else."""
+        self.flush()
         self._check_owned()
         if not self.path.is_dir():
             return 0

@@ -437,7 +437,10 @@ class Comparison:
                 del monthly
                 for (name, s), value in zip(batch, computed, strict=True):
                     if self._cache is not None:
-                        self._cache.put(self._cache_key(name, s), value)
+                        if keep:  # held in memory anyway: written while the scoring goes on
+                            self._cache.put_later(self._cache_key(name, s), value)
+                        else:  # in the cache only: written now, so that memory stays bounded
+                            self._cache.put(self._cache_key(name, s), value)
                         if not keep and s != "_cycle" and value.sizes.get("year", 0):
                             continue  # in the cache only (an entry that could not be written is recomputed)
                     done.append((name, s, value))

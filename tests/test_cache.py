@@ -46,7 +46,7 @@ def _scores(ref, run, cache):
     return cmp.scores(regions=["global", "tropics"], seasons=["ANN", "DJF"])
 
 
-def test_second_request_is_served_from_the_cache(sources, tmp_path):
+def test_second_request_is_served_from_the_cache(sources, tmp_path, monkeypatch):
     ref, run = sources
     cache = Cache(tmp_path / "cache")
     first = _scores(ref, run, cache)
@@ -58,6 +58,17 @@ def test_second_request_is_served_from_the_cache(sources, tmp_path):
     def no_compute(*args, **kwargs):
         raise AssertionError("a cache hit must not compute from the data")
 
+    # nor read the values from the files (sources that fit in memory are read without dask)
+    from xarray.backends.netCDF4_ import NetCDF4ArrayWrapper
+
+    original = NetCDF4ArrayWrapper._getitem
+
+    def no_read(wrapper, key):
+        if wrapper.variable_name == "tas":
+            raise AssertionError("a cache hit must not read the data")
+        return original(wrapper, key)
+
+    monkeypatch.setattr(NetCDF4ArrayWrapper, "_getitem", no_read)
     with dask.config.set(scheduler=no_compute):
         second = _scores(ref, run, cache)
     pd.testing.assert_frame_equal(first, second)
@@ -106,6 +117,19 @@ def test_least_recently_used_entry_goes_first(tmp_path):
     cache.evict()
     left = sorted(p.stem for p in cache.entries())
     assert left == ["gs-a", "gs-c"]
+
+
+def test_an_entry_written_in_the_background_is_served_at_once(tmp_path):
+    cache = Cache(tmp_path / "c")
+    values = np.random.default_rng(3).normal(size=(30, 90, 180))  # about 3.9 MB: the write takes a while
+    da = xr.DataArray(values, dims=("year", "lat", "lon"), coords={"year": np.arange(1981, 2011)}, name="v")
+    cache.put_later("k", da)
+    back = cache.get("k")  # waits for the write of its own key
+    assert back is not None
+    np.testing.assert_array_equal(back.values, values)  # the values written, bit for bit (numpy)
+    np.testing.assert_array_equal(back["year"].values, np.arange(1981, 2011))
+    cache.put_later("k2", da.isel(year=slice(0, 2)))
+    assert len(cache.entries()) == 2  # entries() waits for every pending write
 
 
 def test_clear_empties_the_folder(sources, tmp_path):
