@@ -65,6 +65,11 @@ def build(selection: Selection, results: Results) -> pn.template.BaseTemplate:
         header_color="#f8fafc",
         sidebar_width=340,
         collapsed_sidebar=False,
+        # No header spinner: the template's default is one indicator object shared by every
+        # session and set on every event of any session (Panel's global busy state), so each
+        # event patched every open page, and it spun, repainting, while anyone was waiting.
+        # Each view shows its own still "Computing…" while it waits (look.STILL_LOADING).
+        busy_indicator=None,
     )
     template.sidebar.append(Controls(selection=selection, results=results))
     template.sidebar.append(About(results=results))

@@ -26,6 +26,7 @@ from evaluation.errors import InputError
 from evaluation.regions import region_label
 
 from ..state import Request, Selection
+from .look import STILL_LOADING
 from .results import Results
 
 __all__ = [
@@ -179,7 +180,8 @@ class ResultView(Viewer):
         self._generation = 0
         self._drawn: Hashable | None = None
         self._last: tuple[Any, Request] | None = None
-        self._body = pn.Column(sizing_mode="stretch_width", min_height=320, css_classes=[f"gs-view-{self.tab}"])
+        self._body = pn.Column(sizing_mode="stretch_width", min_height=320, css_classes=[f"gs-view-{self.tab}"],
+                               stylesheets=[STILL_LOADING])
         self._doc = pn.state.curdoc
         self._context = pn.pane.HTML("", margin=(0, 10, 4, 10), sizing_mode="stretch_width")
         self._figure_buttons = pn.Row(*self._figure_downloads(), width=160, height=44, visible=False)

@@ -31,6 +31,7 @@ __all__ = [
     "DIVERGING",
     "REFERENCE_COLOUR",
     "RUN_COLOURS",
+    "STILL_LOADING",
     "STYLESHEET",
     "load_extensions",
     "run_colour",
@@ -88,6 +89,26 @@ body {{ background: var(--gs-paper); }}
 """
 
 
+#: A view's loading state, drawn still: a pale veil and the word "Computing…".  Panel's
+#: spinner is an SVG whose rotation never stops; in a browser that paints in software (a
+#: headless one, a remote desktop, a machine without graphics acceleration) it repainted
+#: the view at every frame and cost 0.3 CPU-s per second per waiting page, measured in
+#: headless Chromium: ten pages waiting for a busy server used more CPU than the server.
+#: Set on the element that gets ``loading=True`` (the rules live in its shadow root).
+STILL_LOADING = """
+:host(.pn-loading):before, :host(.pn-loading.pn-arc):before, :host(.pn-loading.pn-arcs):before,
+:host(.pn-loading.pn-bar):before, :host(.pn-loading.pn-dots):before, :host(.pn-loading.pn-petal):before {
+  -webkit-mask-image: none !important; mask-image: none !important;
+  background-color: transparent !important;
+  content: "Computing…" !important;
+  width: auto !important; height: auto !important;
+  top: 60px !important; transform: translate(-50%, 0) !important;
+  color: #374151; font-size: 14px; letter-spacing: 0.02em;
+  padding: 6px 14px; border-radius: 6px; background: #ffffff !important; border: 1px solid #e4e0d6;
+}
+"""
+
+
 def run_colour(index: int) -> str:
     """The line colour of the ``index``-th selected run (cycles after seven)."""
     return RUN_COLOURS[index % len(RUN_COLOURS)]
@@ -103,3 +124,8 @@ def load_extensions() -> None:
     pn.extension("tabulator", raw_css=[STYLESHEET], notifications=True, sizing_mode="stretch_width")
     hv.extension("bokeh", "matplotlib", logo=False)
     hv.Store.set_current_backend("bokeh")
+    # Plots on a plain canvas, not WebGL (HoloViews' default): our glyphs are a few thousand
+    # at most (images are not drawn by WebGL anyway), and where WebGL runs in software
+    # (headless, remote desktops, no graphics driver) copying its pixels onto the page cost
+    # 1.5 of the 3.4 CPU-s Chromium spent opening the maps (CDP profile: Bokeh's blit_webgl).
+    hv.renderer("bokeh").webgl = False
