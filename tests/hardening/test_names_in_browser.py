@@ -15,7 +15,7 @@ from urllib.parse import quote
 import pytest
 from browser.conftest import open_dashboard, serving, wait_for_view
 
-from app.state import TABS
+from app.state import QUERY_NAMES, TABS
 from app.views.results import Results
 from evaluation.catalog import Collection
 
@@ -118,13 +118,16 @@ def test_manifest_names_and_attributes_are_text_on_every_tab(browser, manifest_a
 
 def test_hostile_link_values_are_text(browser, manifest_app) -> None:
     hostile = "<img src=x onerror=alert(80)>"
-    query = "&".join(f"{name}={quote(hostile)}" for name in ("variable", "reference", "models", "region", "season", "period", "tab"))
+    query = "&".join(f"{name}={quote(hostile)}" for name in QUERY_NAMES)  # every key, taylor, sort and overview_by too
     session = open_dashboard(browser, f"{manifest_app}/?{query}&{quote(hostile)}=1")
     dialogs = _watch(session)
     page = session.page
     wait_for_view(page, "maps")
     _nothing_ran(page, dialogs)
-    # the notices repeat the link's values literally
+    # the notices repeat the link's values literally, one for each key but the level (the
+    # sample's tas has none: said without the value) and models (the default runs, said once)
     assert page.locator(".gs-notice").get_by_text(hostile, exact=False).count() >= 1
+    for what in ("Taylor scale", "Overview sub-view", "Unknown sort column", "Map field", "Common grid"):
+        assert page.locator(".gs-notice", has_text=what).count() == 1, (what, page.locator(".gs-notice").all_text_contents())
     assert session.errors() == []
     session.close()
