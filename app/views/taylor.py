@@ -452,7 +452,8 @@ class TaylorView(ResultView):
         # the points, and their names placed around them
         layers += self._sources(points, ref_std, data, request, legend=False)
         members = set(data.get("members", []))
-        named = [(ref_std, 0.0, request.reference)] + [(float(r.x), float(r.y), str(r.model)) for r in points.itertuples() if r.model not in members]
+        named = [(ref_std, 0.0, _short(request.reference))] + [(float(r.x), float(r.y), _short(str(r.model)))
+                                                               for r in points.itertuples() if r.model not in members]
         markers = [((float(x) - x0) * scale, (float(y) - y0) * scale) for x, y in zip(np.r_[points["x"], ref_std], np.r_[points["y"], 0.0], strict=True)]
         names = place_labels([((x - x0) * scale, (y - y0) * scale, text) for x, y, text in named], obstacles=boxes, markers=markers,
                              frame=(width, height))
@@ -498,6 +499,12 @@ def _labels(items: list[tuple[float, float, str]], *, colour: str, angle: float 
                                                        text_baseline=baseline, backend="bokeh")
     return labels.opts(color=colour, size=9, rotation=angle, horizontalalignment=align,
                        verticalalignment={"middle": "center"}.get(baseline, baseline), backend="matplotlib")
+
+
+def _short(name: str, most: int = 28) -> str:
+    """A name as the close-up writes it: long ones cut with an ellipsis (the legend and the
+    hover of the whole diagram give them in full)."""
+    return name if len(name) <= most else name[: most - 1] + "…"
 
 
 def _close_up_correlations(t_hi: float, most: int = 6) -> list[float]:
