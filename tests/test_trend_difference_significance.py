@@ -110,6 +110,32 @@ def test_adjusted_test_reduces_each_sample_to_its_santer_size() -> None:
     assert np.nanmedian(got["n_eff_a"].values) < 0.6 * n
 
 
+def ar1(rng: np.random.Generator, phi: float, n: int, cells: int) -> np.ndarray:
+    """AR(1) noise x_t = phi x_{t-1} + e_t of unit innovations, (n, cells), after a spin-up of 50 steps."""
+    x = np.zeros((n + 50, cells))
+    e = rng.standard_normal((n + 50, cells))
+    for t in range(1, n + 50):
+        x[t] = phi * x[t - 1] + e[t]
+    return x[50:]
+
+
+def test_false_positive_rate_by_simulation() -> None:
+    # 4000 cells, 30 years, equal true trends (seed fixed); one series three times as noisy as the
+    # other (Welch-Satterthwaite must cope).  White noise: the unadjusted test rejects about 5 % at
+    # p < 0.05 (binomial SE 0.35 %), the adjusted one a little less (a sampled r1 > 0 shrinks n_e
+    # even without persistence).  AR(1) with phi = 0.5: the unadjusted test rejects far too often
+    # (measured 25 %), the adjusted one comes close to 5 % (measured 8-9 %: with 30 years the
+    # lag-1 estimate is biased low; Zwiers and von Storch 1995, J. Climate 8, 336-351).
+    rng = np.random.default_rng(21)
+    years = np.arange(1991.0, 2021.0)
+    for phi, plain_range, adjusted_range in ((0.0, (0.035, 0.065), (0.025, 0.06)), (0.5, (0.18, 0.35), (0.055, 0.11))):
+        a, b = series(3.0 * ar1(rng, phi, 30, 4000), years), series(ar1(rng, phi, 30, 4000), years)
+        plain = float((trend_difference_test(a, b, adjust=False)["pvalue"].values < 0.05).mean())
+        adjusted = float((trend_difference_test(a, b)["pvalue"].values < 0.05).mean())
+        assert plain_range[0] <= plain <= plain_range[1], (phi, plain)
+        assert adjusted_range[0] <= adjusted <= adjusted_range[1], (phi, adjusted)
+
+
 def test_untestable_cells_are_nan() -> None:
     years = np.arange(2001.0, 2011.0)
     a = np.tile(np.linspace(0, 1, 10)[:, None], (1, 4))
