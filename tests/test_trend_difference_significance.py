@@ -228,6 +228,13 @@ def test_the_map_and_its_dots_agree_and_reach_the_download(comparison, tmp_path)
     assert back[str(flags.name)].attrs["flag_meanings"] == "not_tested not_significant significant"
     assert "Welch-Satterthwaite" in back[str(flags.name)].attrs["comment"]
     np.testing.assert_array_equal(np.asarray(back[str(flags.name)].values).squeeze(), flags.values)
+    back.close()
+    # gridscore check reads the download: the field can be scored, the flags named as a mask
+    from evaluation.checking import check_file
+
+    report = check_file(str(tmp_path / "field.nc"))
+    assert report.can_score, report.problems
+    assert any(str(flags.name) in note for note in report.notes)
 
 
 def test_a_reference_without_years_is_refused(tmp_path) -> None:
