@@ -1120,6 +1120,8 @@ class Comparison:
 
         return {
             "cell_test": "two-sided t-test of yearly season means with Santer et al. (2000) effective sample sizes",
+            "trend_difference_test": "run trend minus reference trend over both slopes' standard errors, each with its Santer et al. "
+                                     "(2000) effective sample size, Welch-Satterthwaite degrees of freedom",
             "fdr": f"Benjamini-Hochberg over the tested cells of the map, level {FDR_LEVEL:g} (Wilks 2016)",
             "bootstrap": f"moving-block bootstrap over years (Kuensch 1989), block length of Wilks (1997), {RESAMPLES} draws, "
                          f"seed {SEED}, {CONFIDENCE:.0%} expanded percentile interval (Hesterberg 2015)",
