@@ -114,7 +114,7 @@ def close_up_window(x: np.ndarray, y: np.ndarray, *, top: float, width: float = 
 
     Notes
     -----
-    The box around the points is padded by 18 % of its longer side; its height is kept
+    The box around the points (at least 1 % of ``top`` across) is padded by 18 % of its longer side; its height is kept
     between 0.55 and 1 times its width (the frame's shape; both axes keep one scale), and
     a strip of 26 pixels below the ``R = 1`` axis (``y = 0``) holds the standard-deviation
     labels.  None when the padded box is longer than :data:`CLOSE_UP_SHARE` of ``top``.
@@ -125,7 +125,10 @@ def close_up_window(x: np.ndarray, y: np.ndarray, *, top: float, width: float = 
         return None
     x, y = x[keep], y[keep]
     x0, x1, y1 = float(x.min()), float(x.max()), float(max(y.max(), 0.0))
-    span = max(x1 - x0, y1, 1e-6 * top)
+    span = max(x1 - x0, y1, 0.01 * top)  # runs identical to the reference: no close-up finer than 1 % of the diagram
+    if x1 - x0 < span:
+        middle = (x0 + x1) / 2.0
+        x0, x1 = middle - span / 2.0, middle + span / 2.0
     pad = 0.18 * span
     x0, x1, y1 = x0 - pad, x1 + pad, y1 + pad
     if max(x1 - x0, y1) >= CLOSE_UP_SHARE * top:
