@@ -18,6 +18,12 @@ server is busy) and the script checks that the input took effect: the URL carrie
 (their download buttons are titled "<source> mean"), still of JJA.  A page whose URL or
 drawn maps miss either input counts as an input lost.
 
+Two waits on the server are timed for each page, to tell a busy server from busy
+browsers (all share the machine's cores): **page served**, from navigation to the
+page's HTML (the server builds the session's document meanwhile), and **document
+sent**, from the page's websocket opening to the arrival of Bokeh's ``PULL-DOC-REPLY``
+(the document the page then renders).
+
 The server's resident memory (the process and its children, psutil) is sampled every
 0.2 s, and the CPU seconds of the server and of the browsers in each round are recorded; the load average of the machine (``uptime``) is recorded beside the times, since
 the browsers share the machine's cores with the server.
@@ -64,6 +70,8 @@ class Outcome:
     first_maps: float = float("nan")  # seconds from navigation to first maps drawn
     redrawn: float = float("nan")  # seconds from the field change to the difference maps
     input_kept: bool | None = None  # None: the page never drew its first maps, so the inputs were not checked
+    page_served: float = float("nan")  # seconds from navigation to the page's HTML (the session built)
+    document_sent: float = float("nan")  # seconds from the websocket opening to the document's arrival
     error: str = ""
 
 
@@ -178,15 +186,35 @@ async def _wait(page, *, minus: bool, maps: int, deadline: float, season: str = 
         raise TimeoutError("maps not drawn in time") from None
 
 
+def _time_document(page, outcome: Outcome) -> None:
+    """Record in ``outcome`` the seconds from the page's websocket opening to its document."""
+    opened: list[float] = []
+
+    def websocket(ws) -> None:
+        opened.append(time.monotonic())
+
+        def frame(payload: str | bytes) -> None:
+            reply = "PULL-DOC-REPLY" in payload if isinstance(payload, str) else b"PULL-DOC-REPLY" in payload
+            if reply and outcome.document_sent != outcome.document_sent:
+                outcome.document_sent = time.monotonic() - opened[0]
+
+        ws.on("framereceived", frame)
+
+    page.on("websocket", websocket)
+
+
 async def _session(browser, url: str, runs: int, start: asyncio.Event) -> Outcome:
     outcome = Outcome()
     context = await browser.new_context(viewport={"width": 1500, "height": 1000})
     try:
         page = await context.new_page()
+        _time_document(page, outcome)
         await start.wait()
         begin = time.monotonic()
         deadline = begin + TIMEOUT_S
-        await page.goto(url, wait_until="domcontentloaded", timeout=TIMEOUT_S * 1000)
+        await page.goto(url, wait_until="commit", timeout=TIMEOUT_S * 1000)  # the HTML's answer has arrived
+        outcome.page_served = time.monotonic() - begin
+        await page.wait_for_load_state("domcontentloaded", timeout=TIMEOUT_S * 1000)
         # the first input, while the page loads: the season
         await page.locator(".gs-season select").select_option(label=SEASON_LABEL, timeout=TIMEOUT_S * 1000)
         try:
@@ -286,8 +314,9 @@ def _files(source) -> list[str]:
 def _table(rounds: list[Round], machine: str) -> str:
     lines = [
         "| sessions | median to first maps (s) | max to first maps (s) | maps within the time limit | inputs kept "
+        "| page served, median (s) | websocket to document, median / max (s) "
         "| peak server RSS (MB) | server CPU (s) | browsers CPU (s) | load (1/5/15 min) at end |",
-        "|---:|---:|---:|---:|---:|---:|---:|---:|---|",
+        "|---:|---:|---:|---:|---:|---:|---:|---:|---:|---:|---|",
     ]
     for r in rounds:
         times = r.times()
@@ -298,7 +327,11 @@ def _table(rounds: list[Round], machine: str) -> str:
         late = len(every) - len(times)
         med = (">" if late and statistics.median(every) >= TIMEOUT_S else "") + f"{statistics.median(every):.1f}" if every else "–"
         top = f"> {TIMEOUT_S:.0f}" if late else (f"{max(times):.1f}" if times else "–")
-        lines.append(f"| {r.sessions} | {med} | {top} | {len(times)}/{len(r.outcomes)} | {kept}/{checked} | {r.peak_rss_mb:.0f} "
+        served = [o.page_served for o in r.outcomes if o.page_served == o.page_served]
+        sent = [o.document_sent for o in r.outcomes if o.document_sent == o.document_sent]
+        waits = (f"| {statistics.median(served):.2f} " if served else "| – ") + (
+            f"| {statistics.median(sent):.2f} / {max(sent):.2f} " if sent else "| – ")
+        lines.append(f"| {r.sessions} | {med} | {top} | {len(times)}/{len(r.outcomes)} | {kept}/{checked} {waits}| {r.peak_rss_mb:.0f} "
                      f"| {r.server_cpu:.0f} | {r.browser_cpu:.0f} | {r.load} |")
     by_n = {r.sessions: r for r in rounds}
     ratio = ""

@@ -9,6 +9,7 @@ HoloViews' matplotlib backend from the same elements the page shows.
 
 from __future__ import annotations
 
+import functools
 import html
 import io
 import logging
@@ -158,6 +159,24 @@ def safe_filename(*parts: str) -> str:
     return re.sub(r"[^A-Za-z0-9._-]+", "-", joined).strip("-.") or "gridscore"
 
 
+def _once_per_drawing(figure: Callable[..., Any]) -> Callable[..., Any]:
+    """``figure`` made once per drawing: :meth:`ResultView._show` asks for it twice (inside
+    ``draw`` and to know whether the figure can be downloaded); building the HoloViews
+    elements again cost the event loop a tenth of a second per maps drawing."""
+
+    @functools.wraps(figure)
+    def once(self: ResultView, data: Any, request: Request) -> Any:
+        drawing = self.__dict__.get("_drawing")
+        if drawing is None or drawing[0] is not data or drawing[1] != request:
+            return figure(self, data, request)
+        if len(drawing) == 2:
+            drawing.append(figure(self, data, request))
+        return drawing[2]
+
+    once._once_per_drawing = True  # type: ignore[attr-defined]
+    return once
+
+
 class ResultView(Viewer):
     """Base of the views that draw one request.
 
@@ -174,6 +193,12 @@ class ResultView(Viewer):
 
     selection = param.ClassSelector(class_=Selection)
     results = param.ClassSelector(class_=Results)
+
+    def __init_subclass__(cls, **kwargs: Any) -> None:
+        super().__init_subclass__(**kwargs)
+        own = cls.__dict__.get("figure")
+        if own is not None and not getattr(own, "_once_per_drawing", False):
+            cls.figure = _once_per_drawing(own)
 
     def __init__(self, **params: Any) -> None:
         super().__init__(**params)
@@ -295,6 +320,7 @@ class ResultView(Viewer):
             return
         kind, value = outcome
         if kind == "data":
+            self.__dict__["_drawing"] = [value, request]  # figure() made once (_once_per_drawing)
             try:
                 shown = self.draw(value, request)
                 self._last = (value, request)
@@ -302,6 +328,8 @@ class ResultView(Viewer):
             except Exception as error:
                 log.exception("view %s could not draw %s", self.tab, request)
                 kind, value = "error", f"This view could not be drawn ({type(error).__name__}: {error})."
+            finally:
+                self.__dict__["_drawing"] = None
         if kind == "error":
             shown = error_box(value)
             self._last = None

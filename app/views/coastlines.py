@@ -60,11 +60,19 @@ def _joined() -> np.ndarray:
 
 
 def coastline_path() -> hv.Overlay:
-    """The coastlines as a thin dark line on a light halo, readable on any palette."""
-    halo = hv.Path([_joined()], kdims=["lon", "lat"]).opts(color="#ffffff", line_width=2.2, alpha=0.55, tools=[], backend="bokeh").opts(
+    """The coastlines as a thin dark line on a light halo, readable on any palette.
+
+    Drawn as curves broken by NaN rows, not as ``hv.Path``: HoloViews computes a path's
+    ranges through one dataset per piece on every drawing, which made the coastlines a
+    third of the cost of rendering the maps (0.68 against 0.49 CPU-s for four maps with
+    their coastlines, measured on the sample); the lines on the page are the same.
+    """
+    joined = _joined()
+    points = (joined[:, 0], joined[:, 1])
+    halo = hv.Curve(points, kdims=["lon"], vdims=["lat"]).opts(color="#ffffff", line_width=2.2, alpha=0.55, tools=[], backend="bokeh").opts(
         color="#ffffff", linewidth=1.4, alpha=0.55, backend="matplotlib"
     )
-    line = hv.Path([_joined()], kdims=["lon", "lat"]).opts(color="#1f2933", line_width=0.8, alpha=0.9, tools=[], backend="bokeh").opts(
+    line = hv.Curve(points, kdims=["lon"], vdims=["lat"]).opts(color="#1f2933", line_width=0.8, alpha=0.9, tools=[], backend="bokeh").opts(
         color="#1f2933", linewidth=0.5, backend="matplotlib"
     )
     return halo * line
