@@ -135,7 +135,9 @@ def find_axis(ds: xr.Dataset, axis: str) -> str | None:
     if axis in ("lat", "lon"):
         return grids.regular.find_axis(ds, axis)  # type: ignore[arg-type]
     rules = _AXIS_CRITERIA[axis]
-    candidates = [name for name in ds.variables if ds[name].ndim == 1 and ds[name].dims[0] == name]
+    # ds.variables, not ds[name]: building a DataArray gathers its coordinates, and a file
+    # of thousands of variables took minutes (every variable times every variable)
+    candidates = [name for name, var in ds.variables.items() if var.ndim == 1 and var.dims[0] == name]
     for key in ("standard_name", "axis", "units"):
         for name in candidates:
             var = ds.variables[name]

@@ -45,8 +45,8 @@ def find_axis(ds: xr.Dataset, axis: Literal["lat", "lon"]) -> str | None:
     rules = _CRITERIA[axis]
     candidates = [
         name
-        for name in ds.variables
-        if ds[name].ndim == 1 and ds[name].dims[0] == name and attr(ds.variables[name], "standard_name") not in NOT_GEOGRAPHIC
+        for name, var in ds.variables.items()  # not ds[name]: see io.find_axis
+        if var.ndim == 1 and var.dims[0] == name and attr(var, "standard_name") not in NOT_GEOGRAPHIC
     ]
     for key in ("standard_name", "axis", "units"):
         for name in candidates:

@@ -39,7 +39,7 @@ def _mapping_variable(ds: xr.Dataset) -> str | None:
 
 def _rotated_axis(ds: xr.Dataset, which: str) -> str | None:
     standard_name, axis = _AXES[which]
-    dims = [n for n in ds.variables if ds[n].ndim == 1 and ds[n].dims[0] == n]
+    dims = [n for n, var in ds.variables.items() if var.ndim == 1 and var.dims[0] == n]  # not ds[n]: see io.find_axis
     for key, wanted in (("standard_name", standard_name), ("axis", axis)):
         for name in dims:
             value = attr(ds.variables[name], key)
