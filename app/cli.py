@@ -292,6 +292,10 @@ def _cmd_demo(args) -> int:
 
 
 def _cmd_serve(args) -> int:
+    from app.opening import open_collection
+
+    # the collection opens (and, without a cluster, its first numbers are made) while Panel loads
+    opened = None if args.scheduler else open_collection(args.path)
     from app.server import serve
 
     serve(
@@ -303,6 +307,7 @@ def _cmd_serve(args) -> int:
         scheduler=args.scheduler,
         password=args.password,
         password_file=args.password_file,
+        opened=opened,
     )
     return EXIT_OK
 

@@ -17,6 +17,7 @@ import socket
 import sys
 import time
 from collections.abc import Awaitable, Callable, Sequence
+from concurrent.futures import Future
 from pathlib import Path
 from typing import Any
 
@@ -24,7 +25,9 @@ import panel as pn
 
 from evaluation.errors import InputError
 
+from . import opening
 from .access import PASSWORD_ENV, SlowLoginProvider, check_origins, component_route, liveness_route, password_from
+from .opening import default_collection_path
 from .state import Selection, parse_query, query_string
 from .views.base import gate_page, on_document
 from .views.coastlines import coastline_segments
@@ -44,35 +47,9 @@ _LOOPBACK_NAMES = {"localhost", "localhost.localdomain", "ip6-localhost"}
 
 
 # ---------------------------------------------------------------------- the collection
-def default_collection_path() -> Path:
-    """The bundled ``sample_output/`` or, when installed without it, the demo in a cache folder.
-
-    Notes
-    -----
-    The demo scenario is generated once (about a minute) into the user cache folder and
-    reused afterwards.
-    """
-    bundled = Path(__file__).resolve().parents[1] / "sample_output"
-    if (bundled / "manifest.toml").is_file():
-        return bundled / "manifest.toml"
-    import platformdirs
-
-    from evaluation.demo import write_demo
-
-    cached = Path(platformdirs.user_cache_dir("gridscore")) / "demo"
-    if (cached / "manifest.toml").is_file():
-        return cached / "manifest.toml"
-    print(f"gridscore: writing the demo collection to {cached} (once) …", file=sys.stderr)
-    return Path(write_demo(cached))
-
-
 def load_results(path: str | os.PathLike[str] | None = None) -> Results:
     """Open the collection at ``path`` (manifest or folder) for serving."""
-    from evaluation.catalog import Collection
-
-    origin = default_collection_path() if path is None else path
-    # read again at every look at the files: a new run folder or manifest source is offered
-    return Results(Collection.from_path(origin), origin=origin)
+    return opening.load_results(path)
 
 
 # ---------------------------------------------------------------------- access control
@@ -431,6 +408,7 @@ def serve(
     scheduler: str | None = None,
     password: str | None = None,
     password_file: str | os.PathLike[str] | None = None,
+    opened: Future | None = None,
 ) -> None:
     """Serve the dashboard of the collection at ``path`` until interrupted.
 
@@ -453,6 +431,9 @@ def serve(
     password_file
         A file holding the password on its first line (or a JSON object of users);
         ``$GRIDSCORE_PASSWORD`` is read when neither is given.
+    opened
+        The collection at ``path`` being opened already (:func:`app.opening.open_collection`,
+        started before this module was imported); ``None`` opens it here.
 
     Raises
     ------
@@ -479,7 +460,7 @@ def serve(
             "Anyone who can reach this port can use the dashboard; add --password to require one.",
             file=sys.stderr,
         )
-    results = load_results(path)
+    results = load_results(path) if opened is None else opened.result()
     if not results.variables():
         print("gridscore: WARNING: no variable is held by both a model run and a reference; "
               "the page will only say so", file=sys.stderr)
@@ -490,6 +471,8 @@ def serve(
         print("gridscore: the dashboard asks for the password (any user name is accepted with a single password)", file=sys.stderr)
     if scheduler:
         with engine.connect(address=scheduler):
+            results.warm(overview=True)  # on the cluster
             make_server(results, port=port, address=address, allow_websocket_origin=allow_websocket_origin, show=show, password=auth)
     else:
+        results.warm(overview=True)  # the first page's numbers, then the overview, in the background (started already when opened)
         make_server(results, port=port, address=address, allow_websocket_origin=allow_websocket_origin, show=show, password=auth)

@@ -15,12 +15,13 @@ the event loop without waiting behind a computation that is running.
 from __future__ import annotations
 
 import asyncio
+import logging
 import re
 import threading
 import time
 import weakref
 from collections import OrderedDict
-from collections.abc import Callable, Hashable, Sequence
+from collections.abc import Callable, Hashable, Iterator, Sequence
 from concurrent.futures import Future, ThreadPoolExecutor
 from dataclasses import dataclass
 from typing import Any, TypeVar
@@ -34,14 +35,13 @@ from evaluation.ensembles import mean_name
 from evaluation.errors import InputError
 from evaluation.export import TIDY_COLUMNS
 from evaluation.levels import default_level, labels_from_listing
-from evaluation.regions import parse_region
+from evaluation.regions import REGIONS, parse_region
 from evaluation.scoring import Comparison, Source
-from evaluation.timeaxis import Period, parse_period
+from evaluation.timeaxis import Period, parse_period, parse_season
 
-from .look import REFERENCE_COLOUR, run_colour
+__all__ = ["OVERVIEW_SEASONS", "BoundedCache", "MapField", "Results", "VariableInfo", "is_colour", "overview_args"]
 
-__all__ = ["BoundedCache", "MapField", "Results", "VariableInfo", "is_colour"]
-
+log = logging.getLogger("gridscore.app")
 T = TypeVar("T")
 _HEX = re.compile(r"^#(?:[0-9a-f]{3}|[0-9a-f]{6})$")
 _NAMED = frozenset(named.__all__)
@@ -52,6 +52,19 @@ RETRY_SECONDS = 30.0
 #: Seconds during which one look at the input files answers every session that asks
 #: (:meth:`Results.fresh`): ten sessions drawing at once stat the files once, not ten times.
 LOOK_SECONDS = 1.0
+#: The seasons of the overview's "by season" form.
+OVERVIEW_SEASONS = ("ANN", "DJF", "MAM", "JJA", "SON")
+#: The overview's forms, in the order the background scores them (see :func:`overview_args`).
+OVERVIEW_FORMS = ("variable", "season", "region")
+
+
+def overview_args(reference: str, period: str, region: str, season: str, target_grid: str, by: str) -> tuple:
+    """The arguments of :meth:`Results.overview` for one form of the overview: ``by`` =
+    ``variable`` (the region and season chosen), ``season`` (the region chosen, every season of
+    :data:`OVERVIEW_SEASONS`) or ``region`` (every region of the core, the season chosen)."""
+    regions = tuple(REGIONS) if by == "region" else (region,)
+    seasons = OVERVIEW_SEASONS if by == "season" else (season,)
+    return (reference, period, regions, seasons, target_grid)
 
 
 class BoundedCache:
@@ -148,6 +161,8 @@ class MapField:
 
 #: every worker thread pool of this process (see :func:`wait_until_idle`)
 _WORKERS: weakref.WeakSet[ThreadPoolExecutor] = weakref.WeakSet()
+#: the end of every background chain started by :meth:`Results.warm` (see :func:`wait_until_idle`)
+_CHAINS: weakref.WeakSet[Future] = weakref.WeakSet()
 
 
 def wait_until_idle(timeout: float = 120.0) -> None:
@@ -158,6 +173,11 @@ def wait_until_idle(timeout: float = 120.0) -> None:
     Used where the files' readers must be quiet: netCDF-C/HDF5 is not thread-safe
     (pydata/xarray#4100), so a file written while a worker reads may crash the process.
     """
+    for chain in list(_CHAINS):  # background work queues its steps one at a time: wait for the last
+        try:
+            chain.result(timeout=timeout)
+        except Exception:  # noqa: BLE001 - ended one way or another: nothing more is queued by it
+            pass
     for worker in list(_WORKERS):
         try:
             worker.submit(lambda: None).result(timeout=timeout)
@@ -212,6 +232,15 @@ class Results:
         self._looked = time.monotonic()
         #: wall-clock time of the last new generation (for "numbers updated at HH:MM")
         self.changed_at: float | None = None
+        #: the rows of every region and season already scored, per comparison (see :meth:`_scores_of`)
+        self._score_blocks: weakref.WeakKeyDictionary[Comparison, dict[tuple[str, str], pd.DataFrame]] = weakref.WeakKeyDictionary()
+        #: requests with a period that a comparison refused, per generation (the overview asks again and again)
+        self._refused: BoundedCache = BoundedCache(max_items=256)
+        #: what the background work started by :meth:`warm` is doing now (plain text; "" when it is not running)
+        self.background = ""
+        self._warm_lock = threading.Lock()
+        self._warming: Future | None = None
+        self._overview_warming = False
 
     # ------------------------------------------------------------------ the collection
     def _list_variables(self) -> dict[str, dict[str, VariableInfo]]:
@@ -308,6 +337,9 @@ class Results:
 
     def colour(self, name: str) -> str:
         """The line colour of a source: black for references, the manifest's or a palette colour for runs."""
+        # imported here: the collection is opened (without Panel) while the server's modules load
+        from .look import REFERENCE_COLOUR, run_colour
+
         if name in {s.name for s in self.collection.references}:
             return REFERENCE_COLOUR
         names = [s.name for s in self.collection.models]
@@ -437,33 +469,106 @@ class Results:
             products.put(key, value)
         return value
 
-    def warm(self) -> Future:
-        """Start reducing what a fresh session shows first, on the worker thread.
+    def warm(self, *, overview: bool = False) -> Future:
+        """Start the work a fresh session asks for first, then the rest, in the background.
 
-        The first variable's comparison against its first reference is opened and its
-        annual means reduced, so that the first visitor does not wait for them.  Problems
-        are left for the session to report (it asks for the same things).
+        The steps run on the worker thread one after another, each queued when the one
+        before has ended, so that a session's own request waits behind one step at most:
+        the first variable's comparison is opened (its years settle a fresh page), its
+        annual means are reduced (the first maps), every other variable's comparison is
+        opened (a link to any of them opens on its period at once) and, with ``overview``,
+        the overview of a fresh page is scored in each of its forms (:data:`OVERVIEW_FORMS`),
+        each variable a step; :attr:`background` says which.  Problems are left for the
+        session to report (it asks for the same things).  A second call returns the first
+        one's future (asking for the overview then adds it), which ends with the last step.
         """
+        with self._warm_lock:
+            if self._warming is not None and (self._overview_warming or not overview):
+                return self._warming
+            again = self._warming is not None  # started without the overview: only the overview now
+            self._overview_warming = overview
+            done: Future = Future()
+            self._warming = done
+        _CHAINS.add(done)
+        generation = self._generation
+        steps = self._overview_steps() if again else self._warm_steps(overview=overview)
 
-        def job() -> None:
+        def run(job: Callable[[], None]) -> None:
+            if generation != self._generation:
+                return  # the files changed: what a step would make is of the old files
             try:
-                from app.state import first_variable
-
-                variables = self.variables()
-                if variables:
-                    variable = first_variable(self, variables)  # what a fresh session opens on
-                    self.comparison(self.references(variable)[0], variable).prepare(["ANN"])
+                job()
             except InputError:
                 pass
-            # the years of every variable (files opened, nothing reduced): a link to any of
-            # them opens on its period at once instead of "checking the years"
-            for other in self.variables():
-                try:
-                    self.comparison(self.references(other)[0], other)
-                except InputError:
-                    pass
+            except Exception:  # a bug must not stop the server; the log has details
+                log.exception("background step failed")
 
-        return self._worker.submit(self._locked, job, ())
+        def next_step(_: Any = None) -> None:
+            try:
+                job = next(steps, None) if generation == self._generation else None
+            except Exception:  # noqa: BLE001 - (InputError or a bug) the rest is left for the sessions to ask
+                log.debug("background work stopped", exc_info=True)
+                job = None
+            if job is None:
+                self.background = ""
+                done.set_result(None)
+                return
+            try:
+                self._worker.submit(self._locked, run, (job,)).add_done_callback(next_step)
+            except RuntimeError:  # shut down
+                self.background = ""
+                done.set_result(None)
+
+        next_step()
+        return done
+
+    def _warm_steps(self, *, overview: bool) -> Iterator[Callable[[], None]]:
+        """The steps of :meth:`warm`, made one at a time (each from what the one before left)."""
+        from app.state import first_variable
+
+        variables = self.variables()
+        if not variables:
+            return
+        first = first_variable(self, variables)  # what a fresh session opens on
+        reference = self.references(first)[0]
+        yield lambda: self.comparison(reference, first)
+        yield lambda: self.comparison(reference, first).prepare(["ANN"])
+        # the years of every variable (files opened, nothing reduced)
+        for other in variables:
+            if other != first:
+                yield lambda other=other: self.comparison(self.references(other)[0], other)
+        if overview:
+            yield from self._overview_steps()
+
+    def _overview_steps(self) -> Iterator[Callable[[], None]]:
+        """Score the overview of a fresh page (the first variable's reference and default period,
+        the default region and season and common grid) in each form, one variable a step."""
+        from app.state import first_variable
+
+        variables = self.variables()
+        if not variables:
+            return
+        first = first_variable(self, variables)
+        reference = self.references(first)[0]
+        try:
+            period = str(self.comparison(reference, first).period)
+        except InputError:
+            return
+        from app.state import Selection
+
+        picked = Selection.param  # the defaults a fresh page starts from
+        region, season, grid = picked.region.default, picked.season.default, self.target_grid
+        for by in OVERVIEW_FORMS:
+            args = overview_args(reference, period, region, season, grid, by)
+            if ("overview",) + args in self.products:
+                continue
+            for i, variable in enumerate(variables, 1):
+                def score(variable: str = variable, i: int = i, by: str = by, args: tuple = args) -> None:
+                    self.background = f"scoring the overview (by {by}): {variable}, {i} of {len(variables)} variables"
+                    self._overview_table(variable, *args)
+                yield score
+            yield lambda args=args: (self._product(("overview",) + args, self.overview, args),
+                                     self._product(("overview_ties",) + args, self.overview_ties, args))
 
     def close(self) -> None:
         self._worker.shutdown(wait=False, cancel_futures=True)
@@ -561,7 +666,34 @@ class Results:
         """The tidy score table of every run of the comparison (the views pick theirs): rows
         against every reference, and the alternative references' rows against ``reference``."""
         cmp = self.comparison(reference, variable, period, level, target_grid)
-        return cmp.scores(regions=[parse_region(region).id], seasons=[season])
+        return self._scores_of(cmp, [region], [season])
+
+    def _scores_of(self, cmp: Comparison, regions: Sequence[str], seasons: Sequence[str]) -> pd.DataFrame:
+        """``cmp.scores(regions=..., seasons=...)``, each region and season scored once per comparison.
+
+        The rows of one region and season do not depend on the others scored with them
+        (every statistic, median and bootstrap draw is made per region and season), so the
+        score tab's table of one region, the overview's of every region and the background's
+        share them.  Rows are ordered by season, then region.
+        """
+        regions = list(dict.fromkeys(parse_region(r).id for r in regions))
+        seasons = list(dict.fromkeys(parse_season(x) for x in seasons))
+        done = self._score_blocks.setdefault(cmp, {})
+        todo_regions = [r for r in regions if any((r, x) not in done for x in seasons)]
+        todo_seasons = [x for x in seasons if any((r, x) not in done for r in regions)]
+        if todo_regions:
+            try:
+                table = cmp.scores(regions=todo_regions, seasons=todo_seasons)
+            except InputError:
+                table = None  # nothing scored in these: the error is raised below if nothing else is
+            for r in todo_regions:
+                for x in todo_seasons:
+                    rows = table[(table["region"] == r) & (table["season"] == x)] if table is not None else pd.DataFrame(columns=list(TIDY_COLUMNS))
+                    done.setdefault((r, x), rows.reset_index(drop=True))
+        blocks = [done[(r, x)] for x in seasons for r in regions]
+        if all(b.empty for b in blocks):
+            return cmp.scores(regions=regions, seasons=seasons)  # nothing to score: its own InputError
+        return pd.concat([b for b in blocks if not b.empty], ignore_index=True)
 
     def provenance(self, reference: str, variable: str, period: str, region: str, season: str, level: str = "", target_grid: str = "") -> dict:
         cmp = self.comparison(reference, variable, period, level, target_grid)
@@ -620,17 +752,30 @@ class Results:
     def _overview_tables(self, reference: str, period: str, regions: tuple[str, ...], seasons: tuple[str, ...], target_grid: str = ""):
         """Per variable: the reference used, the runs, and the whole table (every reference)."""
         for variable in self.variables():
-            refs = self.references(variable)
-            ref = reference if reference in refs else refs[0]
+            found = self._overview_table(variable, reference, period, regions, seasons, target_grid)
+            if found is not None:
+                yield found
+
+    def _overview_table(self, variable: str, reference: str, period: str, regions: tuple[str, ...], seasons: tuple[str, ...],
+                        target_grid: str = "") -> tuple[str, set[str], pd.DataFrame] | None:
+        """One variable of :meth:`_overview_tables`; ``None`` where the core cannot score it."""
+        refs = self.references(variable)
+        if not refs:
+            return None
+        ref = reference if reference in refs else refs[0]
+        refused = (self._generation, ref, variable, period, target_grid)
+        try:
             try:
-                try:
-                    cmp = self.comparison(ref, variable, period, target_grid=target_grid)
-                except InputError:
-                    cmp = self.comparison(ref, variable, None, target_grid=target_grid)
-                table = cmp.scores(regions=list(regions), seasons=list(seasons))
+                if refused in self._refused:
+                    raise InputError("refused before")  # not asked again: it opens the files to refuse
+                cmp = self.comparison(ref, variable, period, target_grid=target_grid)
             except InputError:
-                continue
-            yield ref, {m.name for m in cmp.models}, table
+                self._refused.put(refused, True)
+                cmp = self.comparison(ref, variable, None, target_grid=target_grid)
+            table = self._scores_of(cmp, regions, seasons)
+        except InputError:
+            return None
+        return ref, {m.name for m in cmp.models}, table
 
     def overview_ties(self, reference: str, period: str, regions: tuple[str, ...], seasons: tuple[str, ...], target_grid: str = "") -> pd.DataFrame:
         """The overview's cells within observational uncertainty of the best run of their column.

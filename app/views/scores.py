@@ -218,10 +218,19 @@ class ScoresView(ResultView):
 
     async def load(self, request: Request) -> dict[str, Any]:
         results = self.results
+        # the whole of what is drawn, kept with the products (of this generation of the files):
+        # a selection shown before is drawn again without computing
+        view_key = ("scores_view", request.reference, request.variable, request.period, request.region, request.season,
+                    request.level, request.target_grid, request.models)
+        products = results.products
+        kept = products.get(view_key, None)
+        if kept is not None:
+            return kept
         args = (request.reference, request.variable, request.period, request.region, request.season, request.level, request.target_grid)
         tidy = await results.fetch(("scores",) + args, results.scores, *args)
         record = await results.fetch(("provenance",) + args, results.provenance, *args)
-        left = await results.run(results.left_out, request.reference, request.variable, request.period, request.level, request.target_grid)
+        largs = (request.reference, request.variable, request.period, request.level, request.target_grid)
+        left = await results.fetch(("left_out",) + largs, results.left_out, *largs)
         # a partial table: sources with no rows for this season, with the reason (plain text)
         left = (*left, *(f"{o['source']} {o['season']}: {o['reason']}" for o in record.get("omitted", []) if o["season"] == request.season))
         alternatives = await self.alternatives(request)
@@ -232,7 +241,10 @@ class ScoresView(ResultView):
         mine = every[(every["reference"] == request.reference) & every["model"].isin(request.models)].reset_index(drop=True)
         pairs = run_pairs(every[every["model"].isin(request.models)], primary=request.reference) if alternatives else None
         runs = relative_error_table(every[every["reference"] == request.reference], request.models)["runs"].max()
-        return {"tidy": mine, "every": every, "pairs": pairs, "alternatives": alternatives, "provenance": record, "left_out": left, "runs": int(runs) if pd.notna(runs) else 0}
+        data = {"tidy": mine, "every": every, "pairs": pairs, "alternatives": alternatives, "provenance": record, "left_out": left,
+                "runs": int(runs) if pd.notna(runs) else 0}
+        products.put(view_key, data)
+        return data
 
     def table(self, tidy: pd.DataFrame) -> tuple[pd.DataFrame, dict[str, str]]:
         """The shown frame (one row per run, one column per metric) and each column's units."""
