@@ -286,6 +286,8 @@ def _watch_files(results: Results, selection: Selection, settle: Callable[[], Aw
             selection.notify(f"Files changed; numbers updated at {when}.")
         for text in lost:
             selection.notify(text)
+        if results.listing_problem:
+            selection.notify(f"The collection cannot be read again ({results.listing_problem}); showing the sources read before.")
         before = selection.request
         await settle()  # the years may have changed: the period is checked again and published
         if before is not None and selection.request is before:

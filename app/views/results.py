@@ -207,6 +207,9 @@ class Results:
         #: files, so that a new run folder, a source added to the manifest or one removed is
         #: offered (None: the collection as given, for tests)
         self.origin = origin
+        #: why the manifest or folder could not be read again at the last look (the sources read
+        #: before are used meanwhile), or None
+        self.listing_problem: str | None = None
         self.regrid = regrid
         #: the common grid of every comparison: the manifest's target_grid (default: each reference's own)
         self.target_grid = str(getattr(collection, "target_grid", "reference"))
@@ -367,15 +370,21 @@ class Results:
         from evaluation.catalog import Collection
 
         try:
-            return Collection.from_path(self.origin)
-        except (InputError, OSError):
+            collection = Collection.from_path(self.origin)
+        except InputError as error:
+            self.listing_problem = error.message
             return self.collection
+        except OSError as error:
+            self.listing_problem = f"{self.origin}: cannot be read ({type(error).__name__})"
+            return self.collection
+        self.listing_problem = None
+        return collection
 
     def _inputs_stamp(self) -> tuple:
         """The collection and the identity of every input file (one stat each; see
         ``io.file_identity``); a new generation takes the collection of its stamp."""
         collection = self._current_collection()
-        stamp: list = [collection]
+        stamp: list = [collection, self.listing_problem]  # a new problem is a change to report
         for src in collection.sources:
             try:
                 stamp.append((src.name, tuple(io.file_identity(io.expand_paths(src.paths, source=src.name)))))

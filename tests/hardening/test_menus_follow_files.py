@@ -63,6 +63,15 @@ def test_menus_follow_runs_and_variables_that_appear_and_disappear(tmp_path: Pat
     notes = _follow(results, selection)
     assert selection.param.models.objects == ["b"] and selection.models == ["b"]
     assert notes == ["No longer in the collection: run a (showing b)."]
+
+    # a run folder whose name is refused (a right-to-left override): the collection cannot be
+    # read again; the sources read before stay, and the problem is there for the notice
+    write_run(root / "runs" / "x\u202ey", offset=4.0)
+    assert _follow(results, selection) == []
+    assert selection.param.models.objects == ["b"]
+    assert "rename the folder" in results.listing_problem and "\u202e" not in results.listing_problem
+    shutil.rmtree(root / "runs" / "x\u202ey")
+    assert _follow(results, selection) == [] and results.listing_problem is None
     results.close()
 
 
@@ -84,10 +93,11 @@ def test_a_removed_reference_and_a_manifest_source_follow(tmp_path: Path) -> Non
     assert selection.param.reference.objects == ["ref"] and selection.reference == "ref"
     assert selection.param.models.objects == ["a", "b"] and selection.models == ["a"]
     assert notes == ["No longer in the collection: reference alt (showing ref)."]
-    # a manifest caught half-written is not read: the menus stay as they are until it is whole
+    # a manifest caught half-written is not read: the menus stay as they are until it is
+    # whole, and the problem is there for the notice
     manifest.write_text('[[source]]\nname = "ref', encoding="utf-8")
-    assert not results.revalidate()
-    assert selection.refresh_options() == [] and selection.param.models.objects == ["a", "b"]
+    assert _follow(results, selection) == [] and selection.param.models.objects == ["a", "b"]
+    assert "not valid TOML" in results.listing_problem
     results.close()
 
 
