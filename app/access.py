@@ -31,8 +31,7 @@ from pathlib import Path
 from typing import Any, ClassVar
 
 import tornado.escape
-from panel.auth import BasicAuthProvider, BasicLoginHandler
-from panel.auth import _validate_next_url
+from panel.auth import BasicAuthProvider, BasicLoginHandler, _validate_next_url
 from panel.io.liveness import LivenessHandler
 from panel.io.server import ComponentResourceHandler
 from panel.io.state import state

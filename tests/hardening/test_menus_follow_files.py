@@ -150,3 +150,23 @@ def test_an_open_page_offers_a_new_run_and_drops_a_removed_one(browser, tmp_path
         assert session.errors() == []
         session.close()
     results.close()
+
+
+def test_a_chosen_level_that_disappears_falls_back(tmp_path: Path) -> None:
+    from leveldata import write_levels
+
+    root = tmp_path / "c"
+    for folder in ("references/ref", "runs/a"):
+        (root / folder).mkdir(parents=True)
+        write_levels(root / folder / "ta.nc")
+    results = Results(Collection.from_path(root), origin=root)
+    selection = Selection(results)
+    selection.level = "200 hPa"
+    # the reference rewritten without 200 hPa (written aside, then renamed over: a new file)
+    write_levels(tmp_path / "ta.nc", levels=(1000.0, 850.0, 500.0))
+    os.replace(tmp_path / "ta.nc", root / "references" / "ref" / "ta.nc")
+    notes = _follow(results, selection)
+    assert selection.param.level.objects == ["1000 hPa", "850 hPa", "500 hPa"]
+    assert selection.level == selection.param.level.default and selection.level in selection.param.level.objects
+    assert notes == [f"No longer in the collection: level 200 hPa (showing {selection.level})."]
+    results.close()

@@ -9,7 +9,6 @@ One served app per collection, shared by the cases of this module.
 
 from __future__ import annotations
 
-from pathlib import Path
 from urllib.parse import quote
 
 import pytest
@@ -19,7 +18,16 @@ from app.state import QUERY_NAMES, TABS
 from app.views.results import Results
 from evaluation.catalog import Collection
 
-from .hostile import ATTRIBUTE_IMG, FOLDER_BRACES, FOLDER_IMG, FORMULA, MANIFEST_SCRIPT, MANIFEST_SVG, layout_collection, manifest_collection
+from .hostile import (
+    ATTRIBUTE_IMG,
+    FOLDER_BRACES,
+    FOLDER_IMG,
+    FORMULA,
+    MANIFEST_SCRIPT,
+    MANIFEST_SVG,
+    layout_collection,
+    manifest_collection,
+)
 
 pytestmark = pytest.mark.browser
 
