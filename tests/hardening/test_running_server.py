@@ -57,3 +57,23 @@ def test_changes_under_a_running_server(browser, tmp_path: Path) -> None:
         assert session.errors() == []
         session.close()
     results.close()
+
+
+def test_a_new_session_does_not_look_at_the_files_on_the_event_loop(browser, tmp_path: Path) -> None:
+    """The page is built without a synchronous look at the files (a stat and a content sample
+    per file, on the thread every session shares); the views' shared look runs off the loop
+    and still finds a file replaced before the page opened."""
+    root = offset_collection(tmp_path / "c", a=1.0)
+    warmer = write_run(tmp_path / "new", offset=6.0)
+    results = Results(Collection.from_path(root))
+    on_loop: list[str] = []
+    looked = results.revalidate
+    results.revalidate = lambda: on_loop.append("revalidate") or looked()  # type: ignore[method-assign]
+    with serving(results) as url:
+        os.replace(warmer, root / "runs" / "a" / "data.nc")  # before the first page
+        session = open_scores(browser, url)
+        wait_for_row(session.page, "6.000")  # drawn from the new file
+        assert on_loop == []
+        assert session.errors() == []
+        session.close()
+    results.close()
