@@ -73,6 +73,8 @@ TARGETS = {"cold_vs_floor": 1.5, "cold_vs_peer": 1.0, "warm_s": 0.3, "peak_gb": 
            "overview_s": 5.0, "cached_region_s": 0.3}
 #: Where benchmarks/sessions.py's part of results.md begins (kept when this script rewrites the file).
 SESSIONS_MARK = "<!-- sessions: begin -->"
+#: Where the written notes on what limits the missed targets begin (profiles; kept when this script rewrites the file).
+PROFILES_MARK = "<!-- profiles: begin -->"
 TOLERANCE = 1e-10  # peer and gridscore: |a - b| <= TOLERANCE * max(1, |b|)
 
 
@@ -658,8 +660,11 @@ def main() -> None:
         results["browser"] = case_browser(args.rounds)
     md = report(results, info)
     previous = (HERE / "results.md").read_text() if (HERE / "results.md").exists() else ""
-    if SESSIONS_MARK in previous:  # benchmarks/sessions.py keeps its own part of the file
-        md = md.rstrip("\n") + "\n\n" + previous[previous.index(SESSIONS_MARK):]
+    for mark in (PROFILES_MARK, SESSIONS_MARK):  # parts of the file written by hand and by benchmarks/sessions.py
+        if mark in previous:
+            start = previous.index(mark)
+            others = [previous.index(m) for m in (PROFILES_MARK, SESSIONS_MARK) if m in previous and previous.index(m) > start]
+            md = md.rstrip("\n") + "\n\n" + previous[start:min(others, default=len(previous))].rstrip("\n") + "\n"
     (HERE / "results.md").write_text(md)
     (HERE / "results.json").write_text(json.dumps({"machine": info, "results": results}, indent=2, default=str))
     print(md)

@@ -77,6 +77,7 @@ class _Prepared:
     cycle: xr.DataArray | None = None  # (month, lat, lon) on target grid
     kind: str = "monthly"  # monthly | annual | climatology (evaluation.timecoding.frequency)
     members: tuple[str, ...] = ()  # an ensemble mean: the mean of these runs' reductions (evaluation.ensembles)
+    stored_units: str | None = None  # values still in the file: converted from these units when read
 
 
 class Comparison:
@@ -272,8 +273,18 @@ class Comparison:
 
     def _prepare_source(self, src: Source, da: xr.DataArray) -> _Prepared:
         files = io.expand_paths(src.paths, source=src.name)
+        stored_units = None
         try:
-            da = convert(da, self.units, source=src.name)
+            if da.chunks is None and not da.variable._in_memory:
+                # values still in the file (opened without dask): converting them now would read
+                # every source into memory at once; the units are checked now, on no values, and
+                # the conversion is applied when the values are read (_monthly_in_memory)
+                checked = convert(xr.DataArray(np.empty(0, dtype=da.dtype), dims="x", name=da.name, attrs=da.attrs), self.units, source=src.name)
+                stored_units = str(da.attrs["units"])
+                da = da.copy(deep=False)
+                da.attrs = dict(checked.attrs)
+            else:
+                da = convert(da, self.units, source=src.name)
         except InputError as err:
             raise InputError(f"{err.problem} (source '{src.name}')", file=files, remedy=err.remedy) from None
         kind = frequency(da["time"])
@@ -282,7 +293,7 @@ class Comparison:
             # months with gaps (one month a year, say): the seasons whose months are there can be scored
             span = years_with_data(da["time"])
             self.notes.append(f"'{src.name}' has no complete year of months: its years {span} serve the seasons whose months it has")
-        return _Prepared(monthly=da, span=span, files=files, kind=kind)
+        return _Prepared(monthly=da, span=span, files=files, kind=kind, stored_units=stored_units)
 
     # ------------------------------------------------------------------ partial tables
     def _omit(self, source: str, season: str, reason: str) -> None:
@@ -491,7 +502,11 @@ class Comparison:
                 da = da.isel(time=slice(int(inside[0]), int(inside[-1]) + 1))
         if da.chunks is None:
             # in memory already, or opened without dask (io.open_source): read now, once
-            return da.compute()
+            loaded = da.compute()
+            stored = self._prepared[name].stored_units
+            if stored is not None:  # the unit conversion put off by _prepare_source
+                loaded = convert(loaded.assign_attrs(units=stored), self.units, source=name)
+            return loaded
         # a copy (the lazy data stay lazy); graph not optimised: a few tasks per file, named as read
         return da.compute(optimize_graph=False) if io.fits_in_memory(da) else da
 

@@ -538,6 +538,20 @@ def test_comparison_with_a_land_fraction_stays_lazy(tmp_path, monkeypatch):
     assert value(cmp.scores(regions=["land"]), "bias", region="land") == pytest.approx(1.0, rel=1e-5)
 
 
+def test_a_source_in_other_units_is_not_read_before_prepare(files, monkeypatch):
+    # converting degC to K at once would read the whole source when the comparison is made
+    # (every source in memory together); the units are checked then, the values converted when read
+    reads = _FileReads(monkeypatch, "tas")
+    cmp = compare(files["ref"], {"a": files["a_degc"]})
+    assert reads.total == 0
+    with pytest.raises(InputError, match="cannot be converted"):
+        compare(files["ref"], {"a": files["a_degc"]}, units="m")  # refused at once, still without reading
+    assert reads.total == 0
+    kelvin = compare(files["ref"], {"a": files["a"]}).scores()
+    # the run written in degC (offset - 273.15) gives the run written in K: K = degC + 273.15 (SI Brochure)
+    np.testing.assert_allclose(cmp.scores().value.values, kelvin.value.values, rtol=1e-9, atol=1e-9)
+
+
 def test_the_read_counter_does_count_a_read(files, monkeypatch):
     cmp = compare(files["ref"], {"a": files["a"]})
     reads = _FileReads(monkeypatch, "tas")
