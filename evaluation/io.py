@@ -189,9 +189,8 @@ def _listing(path: str) -> dict[str, dict[str, str]]:
                         "long_name": str(var.attrs.get("long_name", "")),
                         "has_time": str(any(find_axis(ds, "time") == d for d in var.dims)),
                         "cells": str(cells),
-                        # bytes of the values as read (packed integers unpacked to float64)
                         "steps_per_month": steps,
-                        "bytes": str(int(var.size) * (8 if {"scale_factor", "add_offset"} & set(var.attrs) else var.dtype.itemsize)),
+                        "bytes": str(_decoded_bytes(var)),
                         **_level_listing(ds, var, (*horizontal, find_axis(ds, "time"))),
                     }
     except InputError:
@@ -392,6 +391,18 @@ def open_source(
     ds.attrs.setdefault("gridscore_files", "\n".join(files_to_open))
     out = normalise(ds, source=source or (files_to_open[0] if len(files_to_open) == 1 else None), files=files_to_open)
     return timecoding.canonical(out)
+
+
+def _decoded_bytes(var: xr.DataArray) -> int:
+    """At least the bytes of ``var``'s values as xarray decodes them (``var`` read undecoded).
+
+    Packed values (``scale_factor``/``add_offset``) and integers with a ``_FillValue`` or
+    ``missing_value`` become floats: 8 bytes a value (xarray picks float32 for integers of
+    up to 16 bits, so this errs large); a byte of ``int8`` data may be four when decoded.
+    """
+    floated = {"scale_factor", "add_offset"} & set(var.attrs) or (
+        var.dtype.kind in "iu" and {"_FillValue", "missing_value"} & set(var.attrs))
+    return int(var.size) * (8 if floated else var.dtype.itemsize)
 
 
 def _plain_read(timed: Sequence[str], steps_per_month: float) -> bool:

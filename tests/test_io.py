@@ -270,3 +270,33 @@ def test_file_identity(cf_file):
     # the file is a real NetCDF4 file readable by netCDF4-python (reference reader)
     with netCDF4.Dataset(path) as nc:
         assert nc.variables["tas"].shape == (12, 6, 12)
+
+
+# ---------------------------------------------------------------------------- reading without dask
+
+
+@pytest.mark.parametrize("dtype, fill, packed", [("int8", -127, False), ("uint8", 255, False), ("int16", -32767, False),
+                                                 ("int32", -999, False), ("int16", -32767, True), ("float32", 1e20, False)])
+def test_the_size_that_decides_a_read_without_dask_is_not_below_the_decoded_size(tmp_path, monkeypatch, dtype, fill, packed):
+    # xarray's CF decoding (the outside reference) turns integers with a _FillValue, and packed
+    # values, into floats: an int8 value takes 4 bytes once read.  The size that decides whether
+    # a source is read whole without dask must be at least that of the decoded values.
+    ds = cf_dataset(dlat=6.0, years=2, dtype="float64")
+    ds["tas"] = (ds["tas"] - 250.0).clip(0.0, 100.0).round()
+    encoding = {n: {"_FillValue": None} for n in [*ds.coords, *(v for v in ds.data_vars if v != "tas")]}
+    encoding["tas"] = {"dtype": dtype, "_FillValue": np.dtype(dtype).type(fill)}
+    if packed:
+        encoding["tas"].update(scale_factor=np.float32(0.01), add_offset=np.float32(0.0))
+    path = tmp_path / f"{dtype}.nc"
+    ds.to_netcdf(path, encoding=encoding)
+    with xr.open_dataset(path) as back:
+        decoded = back["tas"].nbytes
+    listed = int(io._listing(str(path))["tas"]["bytes"])
+    assert listed >= decoded
+    # a limit between the stored size and the decoded size: the source keeps its dask chunks
+    stored = ds["tas"].size * np.dtype(dtype).itemsize
+    if stored < decoded:
+        monkeypatch.setattr(io, "LOAD_LIMIT_BYTES", (stored + decoded) // 2)
+        assert io.open_source(str(path), without_dask=True)["tas"].chunks is not None
+    monkeypatch.setattr(io, "LOAD_LIMIT_BYTES", 4 * decoded)
+    assert io.open_source(str(path), without_dask=True)["tas"].chunks is None  # small enough: no dask
