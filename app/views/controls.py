@@ -204,6 +204,9 @@ class Controls(Viewer):
         # options and value at once: a value missing from the new options is never picked for the person
         self.variable.param.update(options={res.variable_info(v).label: v for v in sel.param.variable.objects}, value=sel.variable)
         self.target_grid.param.update(options=self._grid_options(), value=sel.target_grid)
+        self.reference.param.update(options=list(sel.param.reference.objects), value=sel.reference)
+        # a ticked run that is gone would otherwise leave the boxes empty for a moment ("pick at least one run")
+        self.models.param.update(options=self._run_options(), value=[m for m in sel.param.models.objects if m in sel.models])
         self._show()
 
     def _region_options(self) -> dict[str, str]:

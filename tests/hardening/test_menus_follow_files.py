@@ -134,6 +134,7 @@ def test_an_open_page_offers_a_new_run_and_drops_a_removed_one(browser, tmp_path
         wait_for_row(page, "2.000", timeout_s=WATCH_SECONDS + 60)
         notice = page.locator(".gs-notice", has_text="No longer in the collection: run a")
         notice.first.wait_for(timeout=30_000)
+        assert page.locator(".gs-notice", has_text="Pick at least one").count() == 0  # no empty moment
         assert boxes.all_text_contents() == sorted(["b", FOLDER_IMG])
 
         # every file replaced by one of 2002-2003: the period 2001-2003 no longer fits
