@@ -353,7 +353,8 @@ class Cache:
         return [self.path / n for n in self._read_index() if (self.path / n).is_file()]
 
     def evict(self) -> int:
-        """Remove least recently used entries until the listed entries fit the bound.
+        """Remove least recently used entries until the listed entries fit the bound;
+        whole score tables (JSON) only when no array entry is left.
 
         Only entries of the index are counted and removed; nothing else in the folder is
         touched (there is nothing else: :class:`Cache` refuses such a folder).
@@ -369,11 +370,14 @@ class Cache:
                 except OSError:
                     index.pop(name)
                     continue
-                files.append((st.st_mtime, st.st_size, name))
+                # whole score tables (.json, a few kB: the warm answers) go only after every
+                # array: a century of 1° months puts 1.5 GB of season means in per variable,
+                # which, by age alone, pushed the previous variable's table out
+                files.append((name.endswith(".json"), st.st_mtime, st.st_size, name))
             files.sort()
-            total = sum(size for _, size, _ in files)
+            total = sum(size for _, _, size, _ in files)
             removed = 0
-            for _, size, name in files:
+            for _, _, size, name in files:
                 if total <= self.limit:
                     break
                 (self.path / name).unlink(missing_ok=True)

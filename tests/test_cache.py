@@ -119,6 +119,24 @@ def test_least_recently_used_entry_goes_first(tmp_path):
     assert left == ["gs-a", "gs-c"]
 
 
+def test_score_tables_outlive_older_arrays_when_the_cache_is_full(tmp_path):
+    cache = Cache(tmp_path / "c", limit_bytes=1e9)
+    cache.put_json("table", {"rows": [1, 2, 3]})
+    da = xr.DataArray(np.arange(1000.0), dims="x", name="v")
+    for k in ("a", "b"):
+        cache.put(k, da)
+    now = time.time()
+    os.utime(cache.path / "gs-table.json", (now - 300, now - 300))  # the table is the oldest entry
+    size = (cache.path / "gs-a.nc").stat().st_size
+    cache.limit = size + (cache.path / "gs-table.json").stat().st_size
+    cache.evict()
+    assert sorted(p.name for p in cache.entries()) == ["gs-b.nc", "gs-table.json"]
+    assert cache.get_json("table") == {"rows": [1, 2, 3]}
+    cache.limit = 1  # nothing fits: the table goes last, but it goes
+    cache.evict()
+    assert cache.entries() == []
+
+
 def test_an_entry_written_in_the_background_is_served_at_once(tmp_path):
     cache = Cache(tmp_path / "c")
     values = np.random.default_rng(3).normal(size=(30, 90, 180))  # about 3.9 MB: the write takes a while
