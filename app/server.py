@@ -261,6 +261,10 @@ def build_session(results: Results) -> pn.template.BaseTemplate:
     return page
 
 
+#: How the notice of changed files starts (the look keeps only the latest one).
+_FILES_CHANGED = "Files changed;"
+
+
 def _watch_files(results: Results, selection: Selection, settle: Callable[[], Awaitable[None]]) -> None:
     """Follow this open page's files: menus, years and numbers, with a notice.
 
@@ -283,7 +287,9 @@ def _watch_files(results: Results, selection: Selection, settle: Callable[[], Aw
         lost = selection.refresh_options()  # parameter changes only; the page follows through on_document
         if not first:
             when = time.strftime("%H:%M", time.localtime(results.changed_at or time.time()))
-            selection.notify(f"Files changed; numbers updated at {when}.")
+            # one such notice, the latest: an earlier one would only repeat it
+            selection.notices = [n for n in selection.notices if not n.startswith(_FILES_CHANGED)]
+            selection.notify(f"{_FILES_CHANGED} numbers updated at {when}.")
         for text in lost:
             selection.notify(text)
         if results.listing_problem:
