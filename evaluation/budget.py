@@ -34,6 +34,7 @@ from . import io
 from .errors import InputError
 from .grid import same_grid
 from .metrics import weighted_mean
+from .names import repeated
 from .timeaxis import Period, complete_years, default_period, parse_period, season_means
 from .trends import ols_trend
 from .units import convert
@@ -368,7 +369,7 @@ def _as_sources(source: Source | Iterable[Source]) -> list[Source]:
     if not items:
         raise InputError("no model run given", remedy="add at least one --model NAME=PATH")
     names = [s.name for s in items]
-    dupes = sorted({n for n in names if names.count(n) > 1})
+    dupes = repeated(names)
     if dupes:
         raise InputError(
             f"source names must be unique (repeated: {', '.join(dupes)})", remedy="give each run its own name"

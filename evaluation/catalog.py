@@ -51,7 +51,7 @@ from . import io
 from .ensembles import Ensemble, check_ensembles
 from .errors import InputError
 from .grids.target import parse_target_grid
-from .names import UNSAFE, name_problem, printable
+from .names import UNSAFE, name_problem, printable, same_name
 from .scoring import Source
 
 __all__ = ["Collection", "MANIFEST_NAME", "ROLES", "Source"]
@@ -441,8 +441,8 @@ def _absolute(pattern: str, root: Path) -> str:
 def _check_unique(sources: tuple[Source, ...], where: Path) -> None:
     seen: set[str] = set()
     for src in sources:
-        if src.name in seen:
+        if same_name(src.name) in seen:  # also two spellings of one name ('é' as one character or two)
             raise InputError(
                 f"two sources are called {src.name!r}", file=where, remedy="give every source its own name"
             )
-        seen.add(src.name)
+        seen.add(same_name(src.name))

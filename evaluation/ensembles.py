@@ -30,7 +30,7 @@ from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any
 
 from .errors import InputError
-from .names import name_problem, printable
+from .names import name_problem, printable, same_name
 
 if TYPE_CHECKING:  # pragma: no cover
     import pandas as pd
@@ -95,17 +95,17 @@ def check_ensembles(ensembles: Iterable[Ensemble], models: Sequence[str], *, oth
     least two members, each a run of ``models`` and a member of one ensemble only.
     """
     result = tuple(ensembles)
-    taken = set(models) | set(others)
+    taken = {same_name(n) for n in (*models, *others)}
     seen_names: set[str] = set()
     member_of: dict[str, str] = {}
     for ens in result:
         problem = name_problem(ens.name)
         if problem:
             raise InputError(f"the name of ensemble '{printable(ens.name)}' {problem}", file=where, remedy="give each ensemble a short printable name")
-        if ens.name in taken or ens.name in seen_names:
+        if same_name(ens.name) in taken or same_name(ens.name) in seen_names:
             raise InputError(f"the ensemble name '{ens.name}' is already the name of a source or another ensemble", file=where,
                              remedy="give the ensemble a name of its own")
-        seen_names.add(ens.name)
+        seen_names.add(same_name(ens.name))
         unknown = [m for m in ens.members if m not in models]
         if unknown:
             raise InputError(f"ensemble '{ens.name}' names '{unknown[0]}', which is not a run", file=where,

@@ -13,8 +13,10 @@ min)``, ``x (reference)``), which a reader would take for those.  Zero-width (no
 from __future__ import annotations
 
 import re
+import unicodedata
+from collections.abc import Iterable
 
-__all__ = ["UNSAFE", "name_problem", "printable", "reserved_suffixes"]
+__all__ = ["UNSAFE", "name_problem", "printable", "repeated", "reserved_suffixes", "same_name"]
 
 #: Control characters (C0, C1, line and paragraph separators), direction marks, embeddings,
 #: overrides and isolates, and invisible characters (zero-width space, word joiner,
@@ -41,6 +43,26 @@ def name_problem(name: str) -> str | None:
         if name.endswith(suffix):
             return f"ends in '{suffix.strip()}', as the rows gridscore makes itself do"
     return None
+
+
+def same_name(name: str) -> str:
+    """What ``name`` reads as: its Unicode canonical composition (NFC).  ``'métis'`` typed
+    with one character ``é`` and a folder name ``'métis'`` stored as ``e`` and a combining
+    accent (as macOS stores names) are one name: two rows of them would read the same."""
+    return unicodedata.normalize("NFC", name)
+
+
+def repeated(names: Iterable[str]) -> list[str]:
+    """The names (sorted, each once) that read the same as another of ``names`` (:func:`same_name`)."""
+    first: dict[str, str] = {}
+    twice: set[str] = set()
+    for name in names:
+        key = same_name(name)
+        if key in first:
+            twice.add(first[key])
+        else:
+            first[key] = name
+    return sorted(twice)
 
 
 def printable(text: object) -> str:

@@ -31,6 +31,7 @@ from .grids import REGRID_METHODS, describe_method, grid_of, regrid, same_grid
 from .grids.target import parse_target_grid, regular_grid, regular_near
 from .levels import LEVEL_DIM, interpolate_levels, parse_level, section_scores, section_weights, select_level
 from .metrics import METRICS, pattern_stats, relative_errors, weighted_mean, zonal_mean
+from .names import repeated
 from .regions import parse_region, region_weights
 from .request import Source, scores_key
 from .timeaxis import (
@@ -139,7 +140,7 @@ class Comparison:
         if not models:
             raise InputError("no model run given", remedy="add at least one --model NAME=PATH")
         names = [reference.name, *(a.name for a in alternatives), *(m.name for m in models)]
-        dupes = sorted({n for n in names if names.count(n) > 1})
+        dupes = repeated(names)  # also two spellings of one name ('é' as one character or two)
         if dupes:
             raise InputError(f"source names must be unique (repeated: {', '.join(dupes)})", remedy="give each run and the reference its own name")
         if regrid not in REGRID_METHODS:

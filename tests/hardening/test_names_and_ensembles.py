@@ -18,12 +18,15 @@ from pathlib import Path
 import pytest
 from cfdata import write_cf
 
+from evaluation.catalog import Collection
+from evaluation.errors import InputError
 from evaluation.names import UNSAFE
 
 from .cli import run
 
 GRID = {"dlat": 15.0, "years": 2, "start_year": 2001}
 RLO = "\u202e"  # RIGHT-TO-LEFT OVERRIDE (Unicode, UAX #9)
+NFC, NFD = "m\u00e9tis", "me\u0301tis"  # 'métis' composed and decomposed (Unicode UAX #15)
 
 
 @pytest.fixture(scope="module")
@@ -70,6 +73,11 @@ CASES = [
     ("ensemble-run-in-two", lambda d: _three(d, "--ensemble", "e=a,b", "--ensemble", "f=b,c")),
     ("ensemble-name-twice", lambda d: _three(d, "--ensemble", "e=a,b", "--ensemble", "e=c,a")),
     ("ensemble-html", lambda d: _three(d, "--ensemble", "<img src=x onerror=alert(1)>=a,b")),
+    # one name in two spellings: 'é' as one character and as 'e' + U+0301 are canonically
+    # equivalent (Unicode UAX #15, NFC) and read the same in every table
+    ("model-names-equal-in-nfc", lambda d: _three(d, names=(NFC, NFD, "c"))),
+    ("reference-and-model-equal-in-nfc", lambda d: _three(d, names=(NFD, "b", "c"), ref=NFC)),
+    ("ensemble-named-as-a-run-in-nfc", lambda d: _three(d, "--ensemble", f"{NFD}=b,c", names=(NFC, "b", "c"))),
     ("ensemble-members-of-other-years", lambda d: [x.replace("m2.nc", "short.nc") for x in _three(d, "--ensemble", "e=a,b,c")]),
     ("file-with-a-backslash", lambda d: [*_three(d)[:5], "--model", f"b={d / 'back' / ('b' + chr(92) + 'x.nc')}", "--variable", "tas"]),
     ("variable-with-control-characters", lambda d: ["score", "--reference", str(d / "escape.nc"), "--model", f"a={d / 'm0.nc'}", "--variable", "tas"]),
@@ -148,3 +156,26 @@ def test_a_manifest_variable_name_a_netcdf_file_cannot_hold_is_refused(capsys, t
     outcome = run(capsys, "serve", str(tmp_path / "manifest.toml"), "--port", "0")
     assert outcome.one_line_refusal() and "NetCDF file cannot hold" in outcome.err, outcome
     assert not UNSAFE.search(outcome.err.rstrip("\n"))
+
+
+def test_names_in_other_scripts_are_kept(capsys, files: Path) -> None:
+    # letters of any script are names (Unicode letters, category L*); Persian needs the zero-width
+    # non-joiner U+200C inside words (Unicode Standard, chapter 9.2), emoji sequences the joiner U+200D
+    names = ("m\u00e9tis-ctl", "\u03b8-\u03b1\u03c1\u03c7\u03ae", "\u06a9\u0627\u0631\u200c\u0628\u0631")
+    outcome = run(capsys, *_three(files, names=names), "--ensemble", "\U0001f469\u200d\U0001f52c=" + ",".join(names[:2]))
+    assert outcome.code == 0, outcome.err
+    written = (files / "out" / "t.csv").read_text(encoding="utf-8")
+    (files / "out" / "t.csv").unlink()
+    for name in names:
+        assert f"\n{name}," in written
+    assert "\U0001f469\u200d\U0001f52c (ensemble mean)" in written
+
+
+def test_a_folder_name_in_two_spellings_is_refused(tmp_path: Path) -> None:
+    # a folder copied from macOS keeps 'é' decomposed (e + U+0301); beside 'métis' typed on Linux
+    # the two sources would be two rows that read the same
+    for folder in (tmp_path / "lay" / "references" / "ref", tmp_path / "lay" / "runs" / NFC, tmp_path / "lay" / "runs" / NFD):
+        folder.mkdir(parents=True)
+        write_cf(folder / "d.nc", **GRID)
+    with pytest.raises(InputError, match="two sources are called"):
+        Collection.from_path(tmp_path / "lay")
