@@ -27,12 +27,15 @@ from evaluation.regions import REGIONS, parse_region
 from evaluation.relative import relative_error_table, run_order
 
 from ..state import OVERVIEW_BY, Request
-from .base import ResultView, figure_pane, plot_title
+from .base import ResultView, figure_pane, on_document, plot_title, text_html
 from .look import BETTER, INK, MUTED, WORSE
+from .results import OVERVIEW_SEASONS, overview_args
 
 __all__ = ["OverviewView", "axis_cap", "describe", "overview_table", "row_positions", "shorten"]
 
-_SEASONS = ("ANN", "DJF", "MAM", "JJA", "SON")
+_SEASONS = OVERVIEW_SEASONS
+#: Milliseconds between two updates of the progress line while the overview is computed.
+PROGRESS_MS = 400
 #: Blank sub-rows between two runs' bands when each run has several sub-rows.
 GAP = 0.8
 #: The axis reaches the smallest of these that holds nine in ten values; values beyond it
@@ -201,20 +204,53 @@ class OverviewView(ResultView):
 
         choice.param.watch(picked, "value")
         self.selection.param.watch(changed, "overview_by")
-        return [choice]
+        # what the core is doing while this overview is computed (empty once it is drawn)
+        self._progress = pn.pane.HTML("", margin=(0, 10), sizing_mode="stretch_width", css_classes=["gs-overview-progress"])
+        return [choice, self._progress]
 
     def key(self, request: Request) -> Any:
         return (request.reference, request.region, request.season, request.period, request.target_grid, request.overview_by)
 
     async def load(self, request: Request) -> dict[str, Any]:
         by = request.overview_by
-        regions = tuple(REGIONS) if by == "region" else (request.region,)
-        seasons = _SEASONS if by == "season" else (request.season,)
-        args = (request.reference, request.period, regions, seasons, request.target_grid)
+        args = overview_args(request.reference, request.period, request.region, request.season, request.target_grid, by)
         results = self.results
-        tidy = await results.fetch(("overview",) + args, results.overview, *args)
-        ties = await results.fetch(("overview_ties",) + args, results.overview_ties, *args)
+        following = None if ("overview_ties",) + args in results.products else self._follow_progress()
+        try:
+            tidy = await results.fetch(("overview",) + args, results.overview, *args)
+            ties = await results.fetch(("overview_ties",) + args, results.overview_ties, *args)
+        finally:
+            if following is not None:
+                following()
         return {"table": overview_table(tidy, ties, by), "by": by}
+
+    def _follow_progress(self):
+        """Show what the core is doing in the progress line until the returned function is called
+        (the server scores the overview in the background after it starts: :meth:`Results.warm`)."""
+        doc, pane, results = self._doc, self._progress, self.results
+        if doc is None or getattr(doc, "session_context", None) is None:
+            return None
+
+        def line() -> str:
+            now = results.background  # names of variables come from files: escaped
+            busy = f" In the background now: {text_html(now)}." if now else ""
+            return f'<div class="gs-hint"><b>Computing the overview of every variable…</b>{busy}</div>'
+
+        def show() -> None:
+            text = line()
+            on_document(doc, lambda: setattr(pane, "object", text) if pane.object != text else None)
+
+        show()
+        callback = doc.add_periodic_callback(show, PROGRESS_MS)
+
+        def stop() -> None:
+            try:
+                doc.remove_periodic_callback(callback)
+            except (KeyError, ValueError):  # the session has ended
+                pass
+            on_document(doc, lambda: setattr(pane, "object", ""))
+
+        return stop
 
     # ------------------------------------------------------------------ what is shown, in words
     def context(self, request: Request) -> str:
