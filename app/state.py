@@ -128,6 +128,7 @@ def _sort_text(value: str) -> str:
 #: notice says is shown instead; empty: the parameter's default).  A refused value falls back
 #: to the parameter's default.
 _URL_READERS: dict[str, tuple[Callable[[str], str], str]] = {
+    "region": (lambda value: parse_region(value).id, ""),
     "overview_by": (_one_of("overview sub-view", OVERVIEW_BY), ""),
     "taylor": (_one_of("Taylor scale", TAYLOR_SCALES), ""),
     "sort": (_sort_text, "showing the runs in the collection's order"),
@@ -480,14 +481,6 @@ class Selection(param.Parameterized):
                     self.models = list(self.param.models.default)
                     if not bad:
                         self.notify("The link names no model run; showing the default runs.")
-        if "region" in query:
-            try:
-                region = parse_region(query["region"]).id
-            except InputError as error:
-                self.notify(f"{_sentence(error.problem)}; showing {self.param.region.default}.")
-                region = self.param.region.default
-            with param.parameterized.discard_events(self):
-                self.region = region
         if "season" in query:
             try:
                 season = parse_season(query["season"])

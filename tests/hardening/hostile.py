@@ -65,3 +65,22 @@ def manifest_collection(root: Path) -> Path:
         encoding="utf-8",
     )
     return manifest
+
+
+#: An ensemble whose name is markup, of two runs named as formulas, beside a run named as markup:
+#: folder -> (name, ensemble or None, offset from the reference).
+ENSEMBLE = "<svg onload=alert(83)> {e}"
+ENSEMBLE_RUNS = {"m1": ("=cmd|' /C calc'!A0", ENSEMBLE, 1.0), "m2": ("-1+1 {z}", ENSEMBLE, 1.5),
+                 "m3": ("<img src=x onerror=alert(82)>", None, -0.5)}
+
+
+def ensemble_collection(root: Path) -> Path:
+    """A manifest collection of :data:`ENSEMBLE_RUNS` and a reference ``ref``; returns the manifest."""
+    write_run(root / "ref", offset=0.0)
+    text = '[[source]]\nname = "ref"\nrole = "reference"\npaths = ["ref/*.nc"]\n'
+    for folder, (name, ensemble, offset) in ENSEMBLE_RUNS.items():
+        write_run(root / folder, offset=offset)
+        text += f'[[source]]\nname = {toml_text(name)}\nrole = "model"\npaths = ["{folder}/*.nc"]\n'
+        text += f"ensemble = {toml_text(ensemble)}\n" if ensemble else ""
+    (root / "manifest.toml").write_text(text, encoding="utf-8")
+    return root / "manifest.toml"

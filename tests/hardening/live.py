@@ -4,10 +4,11 @@ table, for the tests that change files under a running server."""
 from __future__ import annotations
 
 import time
+from collections.abc import Iterator
 from pathlib import Path
 from typing import Any
 
-from browser.conftest import Session, open_dashboard, wait_for_view
+from browser.conftest import Session, open_dashboard, serving, wait_for_view
 
 from .hostile import write_run
 
@@ -43,3 +44,14 @@ def open_scores(browser: Any, url: str, query: str = "", *, row: str | None = No
     if row is not None:
         wait_for_row(session.page, row)
     return session
+
+
+def served(path: Path) -> Iterator[str]:
+    """Serve the collection at ``path`` (for a module fixture: ``yield from served(...)``); yields the URL."""
+    from app.views.results import Results
+    from evaluation.catalog import Collection
+
+    results = Results(Collection.from_path(path))
+    with serving(results) as url:
+        yield url
+    results.close()

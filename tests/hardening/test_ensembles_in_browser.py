@@ -10,17 +10,14 @@ are tested in tests/validation); what is checked is where the names land.
 from __future__ import annotations
 
 import pytest
-from browser.conftest import open_dashboard, serving, wait_for_view
+from browser.conftest import open_dashboard, wait_for_view
 
-from app.views.results import Results
-from evaluation.catalog import Collection
-
-from .hostile import toml_text, write_run
+from .hostile import ENSEMBLE, ENSEMBLE_RUNS, ensemble_collection
+from .live import served
 
 pytestmark = pytest.mark.browser
 
-ENSEMBLE = "<svg onload=alert(83)> {e}"
-RUNS = {"m1": ("=cmd|' /C calc'!A0", ENSEMBLE, 1.0), "m2": ("-1+1 {z}", ENSEMBLE, 1.5), "m3": ("<img src=x onerror=alert(82)>", None, -0.5)}
+RUNS = ENSEMBLE_RUNS
 
 # every tooltip row value on the page (Bokeh draws tooltips in shadow roots)
 _TOOLTIP_VALUES = """() => { const out = []; const walk = (root) => { for (const e of root.querySelectorAll('*')) {
@@ -31,18 +28,7 @@ _TOOLTIP_VALUES = """() => { const out = []; const walk = (root) => { for (const
 
 @pytest.fixture(scope="module")
 def app_url(tmp_path_factory):
-    root = tmp_path_factory.mktemp("ensembles")
-    write_run(root / "ref", offset=0.0)
-    text = '[[source]]\nname = "ref"\nrole = "reference"\npaths = ["ref/*.nc"]\n'
-    for folder, (name, ensemble, offset) in RUNS.items():
-        write_run(root / folder, offset=offset)
-        text += f'[[source]]\nname = {toml_text(name)}\nrole = "model"\npaths = ["{folder}/*.nc"]\n'
-        text += f"ensemble = {toml_text(ensemble)}\n" if ensemble else ""
-    (root / "manifest.toml").write_text(text, encoding="utf-8")
-    results = Results(Collection.from_path(root / "manifest.toml"))
-    with serving(results) as url:
-        yield url
-    results.close()
+    yield from served(ensemble_collection(tmp_path_factory.mktemp("ensembles")))
 
 
 def _open(browser, url: str):

@@ -22,23 +22,15 @@ from evaluation.catalog import Collection
 from evaluation.export import field_bytes, provenance_for
 
 from .cli import run
-from .hostile import toml_text, write_run
+from .hostile import ENSEMBLE, ENSEMBLE_RUNS, ensemble_collection
 
-ENSEMBLE = "<svg onload=alert(83)> {e}"
-RUNS = {"m1": ("=cmd|' /C calc'!A0", ENSEMBLE, 1.0), "m2": ("-1+1 {z}", ENSEMBLE, 1.5), "m3": ("<img src=x onerror=alert(82)>", None, -0.5)}
+RUNS = ENSEMBLE_RUNS
 
 
 @pytest.fixture(scope="module")
 def results(tmp_path_factory):
     root = tmp_path_factory.mktemp("downloads")
-    write_run(root / "ref", offset=0.0)
-    text = '[[source]]\nname = "ref"\nrole = "reference"\npaths = ["ref/*.nc"]\n'
-    for folder, (name, ensemble, offset) in RUNS.items():
-        write_run(root / folder, offset=offset)
-        text += f'[[source]]\nname = {toml_text(name)}\nrole = "model"\npaths = ["{folder}/*.nc"]\n'
-        text += f"ensemble = {toml_text(ensemble)}\n" if ensemble else ""
-    (root / "manifest.toml").write_text(text, encoding="utf-8")
-    out = Results(Collection.from_path(root / "manifest.toml"))
+    out = Results(Collection.from_path(ensemble_collection(root)))
     yield out
     out.close()
 
