@@ -604,6 +604,9 @@ _LATEX_SPECIAL = {
 #: practice).  Any other character (Greek, CJK, emoji) stops pdflatex with "Unicode character
 #: not set up for use with LaTeX".
 _LATEX_SETS = frozenset("\u2013\u2014\u2018\u2019\u201c\u201d\u2026")
+#: The characters below U+0180 that pdflatex does not set, with or without T1 (found by
+#: compiling every character from U+00A0 to U+017F with TeX Live 2022): Ħ ħ ĸ Ŀ ŀ ŉ Ŧ ŧ ſ.
+_LATEX_UNSET = frozenset("\u0126\u0127\u0138\u013f\u0140\u0149\u0166\u0167\u017f")
 #: Writes such a character: itself under xelatex and lualatex, its code point under pdflatex
 #: (which then never sees the character: the argument is dropped unexpanded).
 _LATEX_GLYPH = (r"\ifdefined\gsglyph\else\DeclareRobustCommand{\gsglyph}[2]"
@@ -612,7 +615,8 @@ _LATEX_GLYPH = (r"\ifdefined\gsglyph\else\DeclareRobustCommand{\gsglyph}[2]"
 
 def _latex_unicode(text: str) -> str:
     """``text`` with every character pdflatex cannot set written as ``\\gsglyph{HEX}{c}``."""
-    return "".join(c if ord(c) < 0x180 or c in _LATEX_SETS else f"\\gsglyph{{{ord(c):04X}}}{{{c}}}" for c in text)
+    return "".join(c if (ord(c) < 0x180 and c not in _LATEX_UNSET) or c in _LATEX_SETS else f"\\gsglyph{{{ord(c):04X}}}{{{c}}}"
+                   for c in text)
 
 
 def _latex_text(text: str) -> str:

@@ -88,7 +88,9 @@ def test_html_escapes_names() -> None:
 
 # Names pdflatex cannot set (Greek, CJK, emoji) and an ensemble's rows with hostile names: the
 # judge is pdflatex itself (tests/test_latex_compiles.py: a standard document, no error).
-UNICODE_NAMES = ["\u03a9-run", "\u6a21\u578b-A", "run \U0001f600", f"{FOLDER_IMG} (ensemble mean)", "e {x} (members' min)",
+# Latin Extended-A: pdflatex sets Ł ó ź but not Ħ ĸ Ŀ ŉ ŧ ſ (the judge is pdflatex)
+UNICODE_NAMES = ["\u03a9-run", "\u6a21\u578b-A", "run \U0001f600", "\u0126al-\u0141\u00f3d\u017a-\u0138\u013f\u0149\u0167\u017f",
+                 f"{FOLDER_IMG} (ensemble mean)", "e {x} (members' min)",
                  "\\input{/etc/hostname} #1 ~ ^ % & $ _", "=cmd (members' std)", "x" * 120]
 
 
