@@ -694,11 +694,19 @@ class Results:
             try:
                 table = cmp.scores(regions=todo_regions, seasons=todo_seasons)
             except InputError:
-                table = None  # nothing scored in these: the error is raised below if nothing else is
+                table = None  # one region or season refused refuses them all: each on its own below
             for r in todo_regions:
                 for x in todo_seasons:
-                    rows = table[(table["region"] == r) & (table["season"] == x)] if table is not None else pd.DataFrame(columns=list(TIDY_COLUMNS))
-                    done.setdefault((r, x), rows.reset_index(drop=True))
+                    if (r, x) in done:
+                        continue
+                    if table is not None:
+                        rows = table[(table["region"] == r) & (table["season"] == x)]
+                    else:  # a region without cells (a regional grid has no Antarctic) leaves only itself out
+                        try:
+                            rows = cmp.scores(regions=[r], seasons=[x])
+                        except InputError:
+                            rows = pd.DataFrame(columns=list(TIDY_COLUMNS))  # the error is raised below if nothing else is
+                    done[(r, x)] = rows.reset_index(drop=True)
         blocks = [done[(r, x)] for x in seasons for r in regions]
         if all(b.empty for b in blocks):
             return cmp.scores(regions=regions, seasons=seasons)  # nothing to score: its own InputError
