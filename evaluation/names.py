@@ -6,7 +6,8 @@ character that changes the direction of the text around it (the "Trojan Source" 
 CVE-2021-42574: U+202E makes a terminal show the rest of a table row reversed) or an
 invisible one (two runs ``a`` and ``a`` + U+200B would be two rows that read the same), or
 when it ends like the rows gridscore makes itself (``x (ensemble mean)``, ``x (members'
-min)``, ``x (reference)``), which a reader would take for those.  Zero-width (non-)joiners
+min)``, ``x (reference)``), which a reader would take for those, or when it is longer than
+:data:`MAX_NAME` characters.  Zero-width (non-)joiners
 (U+200C, U+200D) are allowed: scripts such as Persian need them in words.
 """
 
@@ -16,7 +17,13 @@ import re
 import unicodedata
 from collections.abc import Iterable
 
-__all__ = ["UNSAFE", "name_problem", "printable", "repeated", "reserved_suffixes", "same_name"]
+__all__ = ["MAX_NAME", "UNSAFE", "name_problem", "printable", "repeated", "reserved_suffixes", "same_name"]
+
+#: The longest name: enough for any run's name; longer ones overflow report tables (a LaTeX
+#: column wider than the page), the file names of downloads (255 bytes on common file
+#: systems) and spreadsheet cells (at most 32 767 characters in Excel), and nobody reads
+#: them in a legend.
+MAX_NAME = 200
 
 #: Control characters (C0, C1, line and paragraph separators), direction marks, embeddings,
 #: overrides and isolates, and invisible characters (zero-width space, word joiner,
@@ -36,6 +43,8 @@ def name_problem(name: str) -> str | None:
     """Why ``name`` cannot name a source or an ensemble, or None when it can."""
     if not name.strip():
         return "is empty"
+    if len(name) > MAX_NAME:
+        return f"is {len(name)} characters long, more than the {MAX_NAME} a name may have"
     bad = UNSAFE.search(name)
     if bad:
         return f"holds the control, direction or invisible character {printable(bad.group(0))}"
