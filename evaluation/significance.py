@@ -93,7 +93,7 @@ def difference_test(a: xr.DataArray, b: xr.DataArray, *, dim: str = "year", adju
     p-value (a constant difference has no interannual variability to test against).
     """
     a = a.transpose(dim, ...)
-    b = b.transpose(dim, ...)
+    b = b.transpose(*a.dims)  # the cells in a's order: the arrays are compared position by position
     av, bv = np.asarray(a.values, dtype="float64"), np.asarray(b.values, dtype="float64")
     na, nb = av.shape[0], bv.shape[0]
     if adjust:
@@ -297,6 +297,7 @@ def trend_difference_test(a: xr.DataArray, b: xr.DataArray, *, dim: str = "year"
     :func:`trend_test` cannot test in either series gets NaN; two perfect fits give 0
     for different slopes and NaN for equal ones.
     """
+    b = b.transpose(*a.dims)  # the cells in a's order: the slopes are compared position by position
     fa, fb = trend_test(a, dim=dim, adjust=adjust), trend_test(b, dim=dim, adjust=adjust)
     va, vb = fa["stderr"].values ** 2, fb["stderr"].values ** 2
     diff = fa["slope"].values - fb["slope"].values

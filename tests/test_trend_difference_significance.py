@@ -251,3 +251,22 @@ def test_a_reference_without_years_is_refused(tmp_path) -> None:
                             models=[Source("run", "model", [str(run)])], variable="tas", cache=False)
     with pytest.raises(InputError, match="climatology"):
         comparison.trend_difference_significance("run", "ANN")
+
+
+def test_cells_are_matched_by_dimension_name_not_by_position() -> None:
+    # the reference's cells stored (year, lon, lat), the run's (year, lat, lon): each cell's
+    # difference is statsmodels OLS slope of the run minus that of the reference at that cell
+    rng = np.random.default_rng(31)
+    years = np.arange(2001.0, 2021.0)
+    coords = {"year": years, "lat": [-30.0, 0.0, 30.0], "lon": [0.0, 120.0, 240.0]}
+    run = xr.DataArray(rng.standard_normal((20, 3, 3)) + 0.2 * (years - 2001)[:, None, None], dims=("year", "lat", "lon"), coords=coords)
+    pattern = np.arange(9.0).reshape(3, 3)  # a different trend in every cell
+    ref = xr.DataArray(rng.standard_normal((20, 3, 3)) + 0.05 * pattern * (years - 2001)[:, None, None], dims=("year", "lat", "lon"),
+                       coords=coords).transpose("year", "lon", "lat")
+    got = trend_difference_test(run, ref)
+    X = sm.add_constant(years)
+    for la in coords["lat"]:
+        for lo in coords["lon"]:
+            expected = (sm.OLS(run.sel(lat=la, lon=lo).values, X).fit().params[1]
+                        - sm.OLS(ref.sel(lat=la, lon=lo).values, X).fit().params[1])
+            assert float(got["difference"].sel(lat=la, lon=lo)) == pytest.approx(expected, rel=1e-9)

@@ -147,3 +147,18 @@ def test_significant_area_fraction_of_one_hemisphere() -> None:
     tested = (area["lat"] > -60).broadcast_like(area)
     cap = 1 - np.sin(np.deg2rad(60))  # area fraction ×2 of a cap poleward of 60°: (1 - sin 60°) / 2 of the sphere
     assert significant_area_fraction(north, area, tested=tested) == pytest.approx(0.5 / (1 - cap / 2), rel=1e-12)
+
+
+def test_the_difference_test_matches_cells_by_dimension_name_not_by_position() -> None:
+    # the reference stored (year, lon, lat), the run (year, lat, lon): at every cell the t of the
+    # unadjusted test is scipy.stats.ttest_ind (pooled variance) of that cell's two samples
+    rng = np.random.default_rng(32)
+    coords = {"year": np.arange(2001, 2021), "lat": [-30.0, 0.0, 30.0], "lon": [0.0, 120.0, 240.0]}
+    run = xr.DataArray(rng.standard_normal((20, 3, 3)), dims=("year", "lat", "lon"), coords=coords)
+    ref = xr.DataArray(rng.standard_normal((20, 3, 3)) + np.arange(9.0).reshape(3, 3), dims=("year", "lat", "lon"),
+                       coords=coords).transpose("year", "lon", "lat")
+    got = difference_test(run, ref, adjust=False)
+    for la in coords["lat"]:
+        for lo in coords["lon"]:
+            expected = stats.ttest_ind(run.sel(lat=la, lon=lo).values, ref.sel(lat=la, lon=lo).values)
+            assert float(got["t"].sel(lat=la, lon=lo)) == pytest.approx(expected.statistic, rel=1e-9)
