@@ -514,8 +514,11 @@ class Results:
         def next_step(_: Any = None) -> None:
             try:
                 job = next(steps, None) if generation == self._generation else None
-            except Exception:  # noqa: BLE001 - (InputError or a bug) the rest is left for the sessions to ask
+            except InputError:  # the rest is left for the sessions to ask (they report it)
                 log.debug("background work stopped", exc_info=True)
+                job = None
+            except Exception:  # a bug must not stop the server, nor go unseen: the log has details
+                log.exception("background work stopped")
                 job = None
             if job is None:
                 self.background = ""
