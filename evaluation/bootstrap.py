@@ -83,7 +83,9 @@ BEST_RULE = (
     "where the interval of its |bias| minus the smallest |bias| of the other runs does (abs_bias_diff_hi < 0); "
     "otherwise no run is marked, because the difference is within the sampling noise of the years "
     f"(moving-block bootstrap over years, Künsch 1989, block length of Wilks 1997, {RESAMPLES} draws, fixed seed). "
-    "The other runs are every run scored against the same reference, also those not shown."
+    "The other runs are every run of the same kind scored against the same reference, also those not shown: "
+    "single runs compete with single runs, ensemble means with ensemble means (a mean averages its members' "
+    "weather away and would beat any single run)."
 )
 
 

@@ -1019,6 +1019,7 @@ class Comparison:
         the bias map (:meth:`difference_significance`, FDR over the whole map).
         """
         from .bootstrap import INTERVAL_METRICS, difference_intervals
+        from .ensembles import mean_name
 
         seasons = [parse_season(s) for s in seasons]
         regions = [parse_region(r).id for r in regions]
@@ -1030,6 +1031,7 @@ class Comparison:
         fraction = {r: region_weights(r, grid, land=land).values.ravel() for r in regions}
         rows = []
         primary = self.reference.name
+        means = {mean_name(e.name) for e in self.ensembles}
         for season in seasons:
             for against in [primary, *(a.name for a in self.alternatives)]:
                 # against the primary, each alternative reference is scored as if it were a run
@@ -1038,8 +1040,14 @@ class Comparison:
                 moments: dict = {}
                 values = self._score_runs(scored, season, against, regions, area, fraction, moments)
                 for region in regions:
-                    runs_here = {m.name: moments[region][m.name] for m in self.models if m.name in moments.get(region, {})}
-                    intervals = difference_intervals(runs_here)
+                    # like against like: an ensemble mean averages its members' weather away, so it
+                    # would beat any single run; means compete with means, single runs with single runs
+                    intervals: dict = {}
+                    for kind in (False, True):
+                        intervals.update(difference_intervals({
+                            m.name: moments[region][m.name] for m in self.models
+                            if (m.name in means) == kind and m.name in moments.get(region, {})
+                        }))
                     for name in values[region]:
                         values[region][name].update({k: float(intervals.get(name, {}).get(k, np.nan)) for k in INTERVAL_METRICS})
                     # the median of the runs only: an alternative reference does not move the runs' relative errors

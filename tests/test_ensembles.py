@@ -131,6 +131,30 @@ def test_spread_rows_are_min_max_and_sample_std_of_the_members(tmp_path: Path) -
             assert row["units"].iloc[0] == part["units"].iloc[0]
 
 
+def test_an_ensemble_mean_competes_with_means_only_never_with_single_runs(tmp_path: Path) -> None:
+    """A mean of 8 members has half the noise of a member's (sigma/sqrt(8), common practice):
+    it beats every single run without being a better model, so it must not be marked best
+    against them, and adding it must not change the members' intervals among themselves."""
+    from evaluation.bootstrap import confirmed_best
+
+    ref, members = write_members(tmp_path, 8)
+    with_mean = comparison(ref, members).scores(regions=["global"], seasons=["ANN"])
+    runs = [Source(name=f"m{i}", role="model", paths=(str(p),)) for i, p in enumerate(members)]
+    alone = Comparison(reference=Source(name="ref", role="reference", paths=(str(ref),)), models=runs, variable="tas",
+                       cache=False).scores(regions=["global"], seasons=["ANN"])
+    # the premise: the mean's RMSE lies far below every member's (numpy by hand above)
+    member_rmse = [value(with_mean, f"m{i}", "rmse") for i in range(8)]
+    assert value(with_mean, mean_name("ens"), "rmse") < 0.6 * min(member_rmse)
+    # alone of its kind: no interval, so no mark
+    for metric in INTERVAL_METRICS:
+        assert np.isnan(value(with_mean, mean_name("ens"), metric))
+    assert mean_name("ens") not in set(confirmed_best(with_mean)["model"])
+    # single runs are compared among themselves, exactly as without the ensemble
+    for i in range(8):
+        for metric in INTERVAL_METRICS:
+            assert value(with_mean, f"m{i}", metric) == value(alone, f"m{i}", metric)
+
+
 def test_ensemble_mean_fields_are_the_members_mean(tmp_path: Path) -> None:
     ref, members = write_members(tmp_path, 3)
     cmp = comparison(ref, members)
