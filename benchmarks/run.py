@@ -507,12 +507,14 @@ def _cached_region_change(browser, url: str) -> float:
     def rows():
         return page.locator(".gs-view-scores .tabulator-row").all_text_contents()
 
-    def change(label: str, before) -> float:
+    def change(label: str, before, expected=None) -> float:
+        """Seconds until the rows differ from ``before`` (and, given ``expected``, are all
+        ``expected``: every table of the view drawn anew, not only the first)."""
         t0 = time.perf_counter()
         page.locator(".gs-region select").select_option(label=label)
         while True:
             now = rows()
-            if now and now != before:
+            if now and now != before and (expected is None or now == expected):
                 return time.perf_counter() - t0
             if time.perf_counter() - t0 > 120:
                 raise RuntimeError("the score table did not change")
@@ -520,8 +522,9 @@ def _cached_region_change(browser, url: str) -> float:
 
     global_rows = rows()
     change("Tropics (30°S–30°N)", global_rows)
+    page.wait_for_timeout(500)  # every table of the tropics drawn
     tropics = rows()
-    seconds = change("Global", tropics)
+    seconds = change("Global", tropics, expected=global_rows)
     page.close()
     return seconds
 
