@@ -300,3 +300,35 @@ def test_the_size_that_decides_a_read_without_dask_is_not_below_the_decoded_size
         assert io.open_source(str(path), without_dask=True)["tas"].chunks is not None
     monkeypatch.setattr(io, "LOAD_LIMIT_BYTES", 4 * decoded)
     assert io.open_source(str(path), without_dask=True)["tas"].chunks is None  # small enough: no dask
+
+
+def test_xarray_still_knows_dask_arrays_after_the_deferred_import() -> None:
+    """evaluation.io answers xarray's "is this a dask array?" lazily through a private xarray
+    cache: in a fresh process, a dask-backed DataArray must still be recognised as one by
+    xarray's own checks (dask's public ``dask.array.Array`` as the reference), stay lazy
+    through arithmetic, and compute the numpy result; a numpy DataArray must not import
+    dask.array.  Fails when a new xarray changes how that cache is used."""
+    import subprocess
+    import sys
+
+    code = """
+import sys
+import numpy as np
+import xarray as xr
+import evaluation.io  # noqa: F401  (the deferred import is installed here)
+plain = xr.DataArray(np.arange(4.0), dims="x").assign_coords(x=np.arange(4))
+assert "dask.array" not in sys.modules, "a numpy DataArray imported dask.array"
+import dask.array as da
+from xarray.namedarray.pycompat import is_chunked_array
+from xarray.namedarray.utils import is_duck_dask_array
+lazy = xr.DataArray(da.ones((4, 6), chunks=2), dims=("y", "x"))
+assert is_duck_dask_array(lazy.data) and is_chunked_array(lazy.variable._data)
+assert lazy.chunks == ((2, 2), (2, 2, 2))
+summed = (lazy + 1).sum("x")
+assert isinstance(summed.data, da.Array)
+np.testing.assert_array_equal(summed.values, np.full(4, 12.0))
+assert not is_duck_dask_array(plain.data)
+print("ok")
+"""
+    done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=120)
+    assert done.returncode == 0 and done.stdout.strip() == "ok", done.stderr[-2000:]
