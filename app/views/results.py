@@ -52,6 +52,8 @@ RETRY_SECONDS = 30.0
 #: Seconds during which one look at the input files answers every session that asks
 #: (:meth:`Results.fresh`): ten sessions drawing at once stat the files once, not ten times.
 LOOK_SECONDS = 1.0
+#: Seconds the background work waits after a session's last call into the core before its next step.
+PAUSE_SECONDS = 0.25
 #: The seasons of the overview's "by season" form.
 OVERVIEW_SEASONS = ("ANN", "DJF", "MAM", "JJA", "SON")
 #: The overview's forms, in the order the background scores them (see :func:`overview_args`).
@@ -240,6 +242,9 @@ class Results:
         self._refused: BoundedCache = BoundedCache(max_items=256)
         #: what the background work started by :meth:`warm` is doing now (plain text; "" when it is not running)
         self.background = ""
+        #: sessions' calls waiting for the worker now, and when the last one ended (the background yields to them)
+        self._asking = 0
+        self._asked = 0.0
         self._warm_lock = threading.Lock()
         self._warming: Future | None = None
         self._overview_warming = False
@@ -354,7 +359,12 @@ class Results:
     async def run(self, function: Callable[..., T], *args: Any) -> T:
         """Run a core call on the worker thread and wait for it without blocking the loop."""
         loop = asyncio.get_running_loop()
-        return await loop.run_in_executor(self._worker, self._locked, function, args)
+        self._asking += 1  # on the event loop only; the background waits while sessions ask (see warm)
+        try:
+            return await loop.run_in_executor(self._worker, self._locked, function, args)
+        finally:
+            self._asking -= 1
+            self._asked = time.monotonic()
 
     def _locked(self, function: Callable[..., T], args: Sequence[Any]) -> T:
         with self._lock:
@@ -512,6 +522,12 @@ class Results:
                 log.exception("background step failed")
 
         def next_step(_: Any = None) -> None:
+            if generation == self._generation and (self._asking or time.monotonic() - self._asked < PAUSE_SECONDS):
+                # a session is asking (a page loads its maps one fetch after another): it goes first
+                pause = threading.Timer(PAUSE_SECONDS, next_step)
+                pause.daemon = True
+                pause.start()
+                return
             try:
                 job = next(steps, None) if generation == self._generation else None
             except InputError:  # the rest is left for the sessions to ask (they report it)
