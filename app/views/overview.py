@@ -233,7 +233,7 @@ class OverviewView(ResultView):
 
         def line() -> str:
             now = results.background  # names of variables come from files: escaped
-            busy = f" In the background now: {text_html(now)}." if now else ""
+            busy = f" Now {text_html(now)}." if now else ""
             return f'<div class="gs-hint"><b>Computing the overview of every variable…</b>{busy}</div>'
 
         def show() -> None:

@@ -240,7 +240,8 @@ class Results:
         self._score_blocks: weakref.WeakKeyDictionary[Comparison, dict[tuple[str, str], pd.DataFrame]] = weakref.WeakKeyDictionary()
         #: requests with a period that a comparison refused, per generation (the overview asks again and again)
         self._refused: BoundedCache = BoundedCache(max_items=256)
-        #: what the background work started by :meth:`warm` is doing now (plain text; "" when it is not running)
+        #: what the core worker is doing for an overview now, in the background (:meth:`warm`) or
+        #: for a page (plain text; "" when neither)
         self.background = ""
         #: sessions' calls waiting for the worker now, and when the last one ended (the background yields to them)
         self._asking = 0
@@ -520,6 +521,8 @@ class Results:
                 pass
             except Exception:  # a bug must not stop the server; the log has details
                 log.exception("background step failed")
+            finally:
+                self.background = ""  # between two steps the worker may run a session's work
 
         def next_step(_: Any = None) -> None:
             if generation == self._generation and (self._asking or time.monotonic() - self._asked < PAUSE_SECONDS):
@@ -786,10 +789,13 @@ class Results:
 
     def _overview_tables(self, reference: str, period: str, regions: tuple[str, ...], seasons: tuple[str, ...], target_grid: str = ""):
         """Per variable: the reference used, the runs, and the whole table (every reference)."""
-        for variable in self.variables():
+        variables = self.variables()
+        for i, variable in enumerate(variables, 1):
+            self.background = f"scoring the overview: {variable}, {i} of {len(variables)} variables"
             found = self._overview_table(variable, reference, period, regions, seasons, target_grid)
             if found is not None:
                 yield found
+        self.background = ""
 
     def _overview_table(self, variable: str, reference: str, period: str, regions: tuple[str, ...], seasons: tuple[str, ...],
                         target_grid: str = "") -> tuple[str, set[str], pd.DataFrame] | None:
