@@ -26,7 +26,14 @@ import panel as pn
 from evaluation.errors import InputError
 
 from . import opening
-from .access import PASSWORD_ENV, SlowLoginProvider, check_origins, component_route, liveness_route, password_from
+from .access import (
+    PASSWORD_ENV,
+    SlowLoginProvider,
+    check_origins,
+    component_route,
+    liveness_route,
+    password_from,
+)
 from .opening import default_collection_path
 from .state import Selection, parse_query, query_string
 from .views.base import gate_page, on_document

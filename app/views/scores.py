@@ -17,7 +17,14 @@ import panel as pn
 from bokeh.models.widgets.tables import HTMLTemplateFormatter, NumberFormatter
 
 from evaluation.bootstrap import BEST_RULE, GUARDED_BEST
-from evaluation.export import METRIC_ORDER, provenance_bytes, provenance_for, sidecar_path, table_bytes, wide_table
+from evaluation.export import (
+    METRIC_ORDER,
+    provenance_bytes,
+    provenance_for,
+    sidecar_path,
+    table_bytes,
+    wide_table,
+)
 from evaluation.metrics import METRICS
 from evaluation.regions import parse_region, region_label
 from evaluation.relative import relative_error_table, with_relative_errors
