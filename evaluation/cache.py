@@ -286,8 +286,12 @@ class Cache:
         # classic NetCDF stores integers in 32 bits: the labels (years, months) come back as written
         return da.assign_coords({c: da[c].astype("int64") for c in da.coords if da[c].dtype.kind == "i" and da[c].dtype.itemsize < 8})
 
-    def put(self, key: str, da: xr.DataArray) -> None:
-        """Store an array (atomically: a temporary file renamed into place), then evict."""
+    def put(self, key: str, da: xr.DataArray, *, classic_only: bool = False) -> None:
+        """Store an array (atomically: a temporary file renamed into place), then evict.
+
+        ``classic_only``: write with scipy's pure-Python writer or not at all (for the
+        background writer: the netCDF-C/HDF5 library must not be entered from two threads,
+        which crashed the process when the main thread read or wrote NetCDF meanwhile)."""
 
         def write(tmp: str) -> None:
             keep = da.drop_vars([c for c in da.coords if c not in da.dims])
@@ -296,6 +300,8 @@ class Cache:
             try:
                 _write_classic(keep, tmp)
             except (TypeError, ValueError, OverflowError):  # what classic NetCDF cannot hold
+                if classic_only:
+                    raise
                 keep.to_netcdf(tmp)
 
         self._store(self._name(key, _SUFFIX), write)
@@ -306,11 +312,15 @@ class Cache:
         waits for it; the process waits for every write at exit.  ``da`` must not be changed
         afterwards (it is written as it is when the writer reaches it)."""
         path = self.path / self._name(key, _SUFFIX)
+        arrays = [da.variable, *(da[c].variable for c in da.dims if c in da.coords)]
+        if 0 in da.shape or not all(_fits_classic(a.values) for a in arrays):
+            self.put(key, da)  # not for scipy's writer: written here, with netCDF-C, on this thread
+            return
         box: dict[str, Future] = {}
 
         def run() -> None:
             try:
-                self.put(key, da)
+                self.put(key, da, classic_only=True)
             finally:
                 with _PENDING_LOCK:
                     if _PENDING.get(path) is box.get("future"):
@@ -409,6 +419,13 @@ class Cache:
         return len(names)
 
 
+def _fits_classic(values) -> bool:
+    """Whether :func:`_write_classic` can store these values (floats, 32-bit integers)."""
+    if values.dtype.kind in "iu":
+        return not values.size or (values.min() >= -(2**31) and values.max() < 2**31)
+    return values.dtype.kind == "f"
+
+
 def _write_classic(da: xr.DataArray, path: str) -> None:
     """``da`` (named, its coordinates on its dimensions only) as classic NetCDF with
     scipy's writer, which ``xarray.load_dataarray`` reads back as it was.
@@ -421,13 +438,9 @@ def _write_classic(da: xr.DataArray, path: str) -> None:
     from scipy.io import netcdf_file
 
     def stored(values: np.ndarray) -> np.ndarray:
-        if values.dtype.kind in "iu":
-            if values.size and (values.min() < -(2**31) or values.max() >= 2**31):
-                raise OverflowError("integers beyond 32 bits")
-            return values.astype("int32")
-        if values.dtype.kind != "f":
-            raise TypeError(f"cannot store {values.dtype} in classic NetCDF")
-        return values
+        if not _fits_classic(values):
+            raise TypeError(f"cannot store {values.dtype} values in classic NetCDF")
+        return values.astype("int32") if values.dtype.kind in "iu" else values
 
     def attributes(var, attrs) -> None:
         for k, v in attrs.items():

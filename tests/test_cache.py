@@ -150,6 +150,37 @@ def test_an_entry_written_in_the_background_is_served_at_once(tmp_path):
     assert len(cache.entries()) == 2  # entries() waits for every pending write
 
 
+@pytest.mark.parametrize(
+    "coords",
+    [
+        {"year": np.array(["1991", "1992", "1993"])},  # text: not for scipy's classic writer
+        {"year": np.array([2**40, 2**40 + 1, 2**40 + 2])},  # integers beyond 32 bits: neither
+    ],
+)
+def test_the_background_writer_never_enters_the_netcdf_library(tmp_path, monkeypatch, coords):
+    """netCDF-C/HDF5 is not safe from two threads at once (the netCDF-C documentation on
+    thread safety; common practice): the process crashed when the main thread wrote test
+    files while the writer thread wrote an entry through xarray's netCDF4 backend.  Entries
+    that scipy's pure-Python writer cannot hold are written on the caller's thread."""
+    import threading
+
+    threads: list[str] = []
+    real = xr.DataArray.to_netcdf
+
+    def recording(self, *args, **kwargs):
+        threads.append(threading.current_thread().name)
+        return real(self, *args, **kwargs)
+
+    monkeypatch.setattr(xr.DataArray, "to_netcdf", recording)
+    cache = Cache(tmp_path / "c")
+    da = xr.DataArray(np.arange(3.0), dims="year", coords=coords, name="v")
+    cache.put_later("k", da)
+    back = cache.get("k")
+    assert back is not None
+    np.testing.assert_array_equal(back.values, da.values)  # numpy equality
+    assert threads and not any(t.startswith("gridscore-cache-writer") for t in threads), threads
+
+
 def test_clear_empties_the_folder(sources, tmp_path):
     ref, run = sources
     cache = Cache(tmp_path / "cache")
