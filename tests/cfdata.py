@@ -16,6 +16,7 @@ from __future__ import annotations
 
 import itertools
 from collections.abc import Callable, Mapping, Sequence
+from contextlib import contextmanager
 from pathlib import Path
 
 import cftime
@@ -328,3 +329,16 @@ def write_cf(path: str | Path, **options) -> Path:
     encoding = {name: {"_FillValue": None} for name in itertools.chain(ds.coords, [v for v in ds.data_vars if "nv" in ds[v].dims])}
     ds.to_netcdf(path, encoding=encoding, format="NETCDF4")
     return Path(path)
+
+
+@contextmanager
+def netcdf_dataset(path):
+    """``netCDF4.Dataset(path)`` opened and used under xarray's lock of the netCDF-C/HDF5
+    library: a test's in-process server reads files on its own threads through xarray, and
+    the library must not be entered from two threads at once (the netCDF-C documentation
+    on thread safety; the suite crashed with a bus error when a test read a file directly)."""
+    import netCDF4
+    from xarray.backends.locks import NETCDF4_PYTHON_LOCK
+
+    with NETCDF4_PYTHON_LOCK, netCDF4.Dataset(path) as ds:
+        yield ds

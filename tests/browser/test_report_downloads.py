@@ -13,8 +13,8 @@ import tempfile
 from pathlib import Path
 from urllib.parse import parse_qs, urlparse
 
-import netCDF4
 import pytest
+from cfdata import netcdf_dataset
 
 from .conftest import open_dashboard, wait_for_view
 
@@ -48,7 +48,7 @@ def test_map_downloads_are_cf_netcdf_that_gridscore_check_accepts(browser, serve
     with tempfile.TemporaryDirectory() as folder:
         path = Path(folder) / name
         path.write_bytes(data)
-        with netCDF4.Dataset(path) as nc:
+        with netcdf_dataset(path) as nc:
             # CF-1.10 sections 4.1, 4.2 and 7.1
             for coord, standard, units, axis in (("lat", "latitude", "degrees_north", "Y"), ("lon", "longitude", "degrees_east", "X")):
                 var = nc.variables[coord]

@@ -9,9 +9,9 @@ from __future__ import annotations
 
 from pathlib import Path
 
-import netCDF4
 import numpy as np
 import pytest
+from cfdata import netcdf_dataset
 
 from .conftest import open_dashboard, wait_for_view
 
@@ -22,7 +22,7 @@ def reference_levels(manifest: Path, variable: str) -> tuple[list[float], str]:
     """The pressure levels of the sample's first reference, in hPa, as its file stores them."""
     folder = manifest.parent / "references" / "tessera-obs"
     path = next(folder.glob(f"{variable}_*.nc"))
-    with netCDF4.Dataset(path) as ds:
+    with netcdf_dataset(path) as ds:
         dim = next(d for d in ds.variables[variable].dimensions if getattr(ds.variables.get(d), "axis", "") == "Z"
                    or getattr(ds.variables.get(d), "standard_name", "") == "air_pressure")
         values = np.asarray(ds.variables[dim][:], dtype="float64")

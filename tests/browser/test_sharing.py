@@ -15,6 +15,7 @@ from pathlib import Path
 from urllib.parse import parse_qs, urlparse
 
 import pytest
+from cfdata import netcdf_dataset
 
 from app.state import QUERY_NAMES
 from app.views.results import Results, wait_until_idle
@@ -243,8 +244,6 @@ def test_the_table_downloads_list_the_files_of_the_table_only(browser, served) -
 
 
 def test_a_map_download_lists_the_files_of_its_run_and_reference(browser, served) -> None:
-    import netCDF4
-
     url, sample, _ = served
     runs = ["larkspur-2", "pumice-ctl", "tidewell-3"]
     session = open_dashboard(browser, url + link({"variable": "tas", "models": ",".join(runs), "field": "difference", "tab": "maps"}))
@@ -254,7 +253,7 @@ def test_a_map_download_lists_the_files_of_its_run_and_reference(browser, served
         page.locator(".gs-view-maps .gs-download-nc").first.locator("button, a").first.click()
     name = info.value.suggested_filename
     run = next(r for r in runs if r in name)
-    with netCDF4.Dataset(info.value.path()) as nc:
+    with netcdf_dataset(info.value.path()) as nc:
         record = json.loads(nc.getncattr("provenance"))
     # from the folders on disk: the near-surface temperature files of that run and of the reference
     expected = {str(sample / "runs" / run / f) for f in os.listdir(sample / "runs" / run) if f.startswith("tas_")}

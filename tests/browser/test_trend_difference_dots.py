@@ -13,10 +13,10 @@ import os
 import tempfile
 from pathlib import Path
 
-import netCDF4
 import numpy as np
 import pytest
 import xarray as xr
+from cfdata import netcdf_dataset
 
 from app.views.maps import STIPPLE_LEGEND, stipple_points
 
@@ -50,7 +50,7 @@ def test_trend_difference_map_is_dotted_like_its_download(browser, served_sample
     with tempfile.TemporaryDirectory() as folder:
         path = Path(folder) / "field.nc"
         path.write_bytes(data)
-        with netCDF4.Dataset(path) as nc:
+        with netcdf_dataset(path) as nc:
             field_var = nc.variables["tas_trend_difference"]
             flag_name = field_var.ancillary_variables
             flags_var = nc.variables[flag_name]
