@@ -218,8 +218,9 @@ def build_session(results: Results) -> pn.template.BaseTemplate:
         except InputError as error:
             return _notice_page(error.message)
     location = pn.state.location
-    if location is not None and location.search:
-        selection.apply_query(parse_query(location.search))
+    asked = parse_query(location.search) if location is not None and location.search else None
+    if asked:
+        selection.apply_query(asked)
     # Years already known (the comparison is open: warmed, or asked for by another session):
     # settled before the page is built, so that it opens on the period instead of a
     # placeholder slider and "checking the years…".
@@ -260,7 +261,7 @@ def build_session(results: Results) -> pn.template.BaseTemplate:
     # Through the page gate: a URL written while the page loads could be dropped, and
     # writing the same value again later would then change nothing.
     selection.param.watch(lambda *events: on_document(doc, write_url), ["request", "tab"])
-    _watch_files(results, selection, settle)
+    _watch_files(results, selection, settle, asked)
     if known is None:
         pn.state.execute(settle)
     else:
@@ -272,7 +273,7 @@ def build_session(results: Results) -> pn.template.BaseTemplate:
 _FILES_CHANGED = "Files changed;"
 
 
-def _watch_files(results: Results, selection: Selection, settle: Callable[[], Awaitable[None]]) -> None:
+def _watch_files(results: Results, selection: Selection, settle: Callable[[], Awaitable[None]], asked: Any = None) -> None:
     """Follow this open page's files: menus, years and numbers, with a notice.
 
     At once and then every :data:`WATCH_SECONDS` the session asks for the shared look at the
@@ -281,7 +282,9 @@ def _watch_files(results: Results, selection: Selection, settle: Callable[[], Aw
     that disappeared falls back and is named in the notice), checks the period against the
     new years (``settle``) and re-issues the request: the view on display is drawn again from
     the new files (hidden ones when they are shown), and a notice tells when.  The first look
-    (the page was built from the listing before it) says nothing unless a choice was lost.
+    (the page was built from the listing before it) says nothing unless a choice was lost,
+    and applies the link (``asked``) again: a run of the link whose file was unreadable at
+    the last look, and is readable now, is shown as the link asks.
     """
     seen = results.generation
 
@@ -292,6 +295,8 @@ def _watch_files(results: Results, selection: Selection, settle: Callable[[], Aw
             return
         seen = files
         lost = selection.refresh_options()  # parameter changes only; the page follows through on_document
+        if first and asked:
+            selection.apply_query(asked)
         if not first:
             when = time.strftime("%H:%M", time.localtime(results.changed_at or time.time()))
             # one such notice, the latest: an earlier one would only repeat it

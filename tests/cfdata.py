@@ -338,7 +338,7 @@ def netcdf_dataset(path):
     the library must not be entered from two threads at once (the netCDF-C documentation
     on thread safety; the suite crashed with a bus error when a test read a file directly)."""
     import netCDF4
-    from xarray.backends.locks import NETCDF4_PYTHON_LOCK
+    from xarray.backends.netCDF4_ import NETCDF4_PYTHON_LOCK
 
     with NETCDF4_PYTHON_LOCK, netCDF4.Dataset(path) as ds:
         yield ds
