@@ -327,7 +327,11 @@ class Cache:
                         _PENDING.pop(path, None)
 
         self._wait_for(path.name)  # one write of an entry at a time
-        future = _writer().submit(run)
+        try:
+            future = _writer().submit(run)
+        except RuntimeError:  # the process is ending (the writer is shut down): written here
+            self.put(key, da)
+            return
         with _PENDING_LOCK:
             box["future"] = future
             for done in [p for p, f in _PENDING.items() if f.done()]:

@@ -181,6 +181,24 @@ def test_the_background_writer_never_enters_the_netcdf_library(tmp_path, monkeyp
     assert threads and not any(t.startswith("gridscore-cache-writer") for t in threads), threads
 
 
+def test_an_entry_put_while_the_process_ends_is_written_at_once(tmp_path, monkeypatch):
+    """A server's background work may store an entry while the process ends and the writer
+    no longer takes work (concurrent.futures refuses new work after shutdown)."""
+    from concurrent.futures import ThreadPoolExecutor
+
+    import evaluation.cache as cache_module
+
+    ended = ThreadPoolExecutor(max_workers=1)
+    ended.shutdown()
+    monkeypatch.setattr(cache_module, "_writer", lambda: ended)
+    cache = Cache(tmp_path / "c")
+    da = xr.DataArray(np.arange(3.0), dims="year", coords={"year": np.arange(1991, 1994)}, name="v")
+    cache.put_later("k", da)
+    back = cache.get("k")
+    assert back is not None
+    np.testing.assert_array_equal(back.values, da.values)  # numpy equality
+
+
 def test_clear_empties_the_folder(sources, tmp_path):
     ref, run = sources
     cache = Cache(tmp_path / "cache")
