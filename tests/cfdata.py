@@ -342,3 +342,12 @@ def netcdf_dataset(path):
 
     with NETCDF4_PYTHON_LOCK, netCDF4.Dataset(path) as ds:
         yield ds
+
+
+def ar1(rng: np.random.Generator, phi: float, n: int, cells: int) -> np.ndarray:
+    """AR(1) noise x_t = phi x_{t-1} + e_t of unit innovations, (n, cells), after a spin-up of 50 steps."""
+    x = np.zeros((n + 50, cells))
+    e = rng.standard_normal((n + 50, cells))
+    for t in range(1, n + 50):
+        x[t] = phi * x[t - 1] + e[t]
+    return x[50:]

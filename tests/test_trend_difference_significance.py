@@ -15,7 +15,7 @@ import numpy as np
 import pytest
 import statsmodels.api as sm
 import xarray as xr
-from cfdata import write_cf
+from cfdata import ar1, write_cf
 from scipy import stats
 from statsmodels.stats.multitest import multipletests
 from statsmodels.tsa.stattools import acf
@@ -109,14 +109,6 @@ def test_adjusted_test_reduces_each_sample_to_its_santer_size() -> None:
     # persistence lowers the effective size of the run's series well below its 40 years
     assert np.nanmedian(got["n_eff_a"].values) < 0.6 * n
 
-
-def ar1(rng: np.random.Generator, phi: float, n: int, cells: int) -> np.ndarray:
-    """AR(1) noise x_t = phi x_{t-1} + e_t of unit innovations, (n, cells), after a spin-up of 50 steps."""
-    x = np.zeros((n + 50, cells))
-    e = rng.standard_normal((n + 50, cells))
-    for t in range(1, n + 50):
-        x[t] = phi * x[t - 1] + e[t]
-    return x[50:]
 
 
 def test_false_positive_rate_by_simulation() -> None:

@@ -7,6 +7,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 import xarray as xr
+from cfdata import ar1
 from scipy import stats
 from statsmodels.stats.multitest import multipletests
 from statsmodels.tsa.stattools import acf
@@ -19,15 +20,6 @@ from evaluation.significance import (
     fdr_significant,
     significant_area_fraction,
 )
-
-
-def ar1(rng: np.random.Generator, phi: float, n: int, cells: int) -> np.ndarray:
-    """AR(1) series x_t = phi x_{t-1} + e_t, (n, cells), after a spin-up of 50 steps."""
-    x = np.zeros((n + 50, cells))
-    e = rng.standard_normal((n + 50, cells))
-    for t in range(1, n + 50):
-        x[t] = phi * x[t - 1] + e[t]
-    return x[50:]
 
 
 def samples(seed: int, *, phi: float = 0.3, n_a: int = 30, n_b: int = 25, cells: int = 60, shift: float = 0.0):
