@@ -194,10 +194,17 @@ def error_moments(difference: np.ndarray, weights: np.ndarray, years: np.ndarray
     Cells with zero weight are left out; NaN in a cell of zero weight is allowed.
     """
     w = np.nan_to_num(np.asarray(weights, dtype="float64"), nan=0.0)
-    keep = w > 0
-    d = np.asarray(difference, dtype="float64")[:, keep]
-    w = w[keep] / w[keep].sum()
-    dw = d * w
+    keep = np.flatnonzero(w > 0)
+    d = np.asarray(difference, dtype="float64")
+    if keep.size and keep[-1] - keep[0] + 1 == keep.size:
+        # the kept cells are one run (the whole map, a band of latitudes): a view, not a copy
+        d, w = d[:, keep[0]:keep[-1] + 1], w[keep[0]:keep[-1] + 1]
+    else:
+        d, w = d[:, keep], w[keep]
+    w = w / w.sum()
+    # column-major like the product of a copy made by fancy indexing, so that the yearly sums
+    # below add the cells in the same order whatever branch was taken (identical numbers)
+    dw = np.multiply(d, w, order="F")
     # A BLAS product, 3-4x faster than numpy.einsum (which does not use BLAS) for these thin
     # (years x cells) products with one BLAS thread, which the gridscore command sets; a
     # threaded BLAS on a shared machine spent ~80x the CPU time (benchmarks/significance.py).

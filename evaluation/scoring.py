@@ -918,19 +918,27 @@ class Comparison:
         return out
 
     # ------------------------------------------------------------------ scores
-    def _arrays(self, name: str, season: str, against: str | None = None) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    def _arrays(self, name: str, season: str, against: str | None = None, shared: dict | None = None
+                ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
         """Plain arrays of one run against the reference (or ``against``) for one season.
 
         ``years``, the run's and the reference's yearly means ``(year, cell)`` with
         masked cells set to 0, both climatologies ``(cell)`` and the common mask.  The
         score loop runs on these with matrix products instead of labelled arrays: it
-        visits every region with the same arrays.
+        visits every region with the same arrays.  ``shared`` keeps the reference's
+        array and climatology for the next run over the same years (one season, one
+        reference).
         """
         run_s, ref_s = self._aligned(name, season, against)
         years = run_s["year"].values.astype("float64")
         m = np.asarray(run_s.transpose("year", "lat", "lon").values, dtype="float64").reshape(years.size, -1)
-        r = np.asarray(ref_s.transpose("year", "lat", "lon").values, dtype="float64").reshape(years.size, -1)
-        clim_m, clim_r = m.mean(axis=0), r.mean(axis=0)  # NaN in any year gives NaN, as climatology()
+        key = ("reference", years.tobytes())
+        if shared is None or key not in shared:
+            r = np.asarray(ref_s.transpose("year", "lat", "lon").values, dtype="float64").reshape(years.size, -1)
+            if shared is not None:
+                shared[key] = (r, r.mean(axis=0))
+        r, clim_r = shared[key] if shared is not None else (r, r.mean(axis=0))
+        clim_m = m.mean(axis=0)  # NaN in any year gives NaN, as climatology()
         mask = np.isfinite(clim_m) & np.isfinite(clim_r)
         return years, np.where(mask, m, 0.0), np.where(mask, r, 0.0), clim_m, clim_r, mask
 
@@ -947,15 +955,16 @@ class Comparison:
         from .trends import detrend, ols_trend
 
         values: dict[str, dict[str, dict[str, float]]] = {r: {} for r in regions}
+        shared: dict = {}  # the reference's arrays and moments, made once for every run
         for m in list(scored):
-            years, ms_all, rs_all, clim_m, clim_r, mask = self._arrays(m.name, season, against)
+            years, ms_all, rs_all, clim_m, clim_r, mask = self._arrays(m.name, season, against, shared)
             if years.size == 0:
                 # against an alternative reference the omission names the pair, so the run keeps its primary rows
                 who = m.name if against == self.reference.name else f"{m.name} against {against}"
                 self._omit(who, season, f"no {season} season in years the reference '{against}' also has")
                 scored.remove(m)
                 continue
-            significant, tested = self._significant_cells(ms_all, rs_all, mask, against)
+            significant, tested = self._significant_cells(ms_all, years, mask, against, shared)
             difference = ms_all - rs_all if moments is not None else None  # once for every region
             for region in regions:
                 w = area * fraction[region] * mask
@@ -982,17 +991,26 @@ class Comparison:
             del ms_all, rs_all, difference
         return values
 
-    def _significant_cells(self, ms_all: np.ndarray, rs_all: np.ndarray, mask: np.ndarray, against: str) -> tuple[np.ndarray, np.ndarray]:
+    def _significant_cells(self, ms_all: np.ndarray, years: np.ndarray, mask: np.ndarray, against: str, shared: dict
+                           ) -> tuple[np.ndarray, np.ndarray]:
         """Cells ``(cell)`` where the run's climatology differs significantly from the reference's,
         and the cells tested: the test and the false-discovery control over the whole map of
-        :meth:`difference_significance` (none against a reference without years)."""
-        from .significance import difference_test, fdr_significant
+        :meth:`difference_significance` (none against a reference without years).
+
+        The test of a cell uses that cell's years only, so the reference's moments over
+        all its cells (from ``shared``, made by :meth:`_arrays`) serve every run, and the
+        run's masked cells (0 in ``ms_all``) are left untested afterwards: the numbers are
+        those of :func:`evaluation.significance.difference_test` on the masked maps.
+        """
+        from .significance import difference_statistics, fdr_significant, sample_moments
 
         if self._prepared[against].kind == "climatology":
             return np.zeros(mask.shape, dtype=bool), np.zeros(mask.shape, dtype=bool)
-        run = xr.DataArray(np.where(mask, ms_all, np.nan), dims=("year", "cell"))
-        ref = xr.DataArray(np.where(mask, rs_all, np.nan), dims=("year", "cell"))
-        pvalue = difference_test(run, ref, dim="year")["pvalue"].values
+        key = ("reference moments", years.tobytes())
+        if key not in shared:
+            shared[key] = sample_moments(shared[("reference", years.tobytes())][0])
+        pvalue = difference_statistics(sample_moments(ms_all), shared[key])[3]
+        pvalue = np.where(mask, pvalue, np.nan)
         return fdr_significant(pvalue)[0], np.isfinite(pvalue)
 
     def scores(self, *, regions: Sequence[str] = ("global",), seasons: Sequence[str] = ("ANN",)) -> pd.DataFrame:

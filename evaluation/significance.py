@@ -15,6 +15,8 @@ trends (Santer et al. 2000), to which the same FDR control applies;
 
 from __future__ import annotations
 
+from typing import NamedTuple
+
 import numpy as np
 import xarray as xr
 
@@ -24,10 +26,13 @@ from scipy import special
 
 __all__ = [
     "FDR_LEVEL",
+    "SampleMoments",
     "bh_adjusted",
+    "difference_statistics",
     "difference_test",
     "effective_sizes",
     "fdr_significant",
+    "sample_moments",
     "significance_flags",
     "significant_area_fraction",
     "trend_difference_test",
@@ -51,14 +56,40 @@ def effective_sizes(x: np.ndarray, *, axis: int = 0) -> np.ndarray:
     negative autocorrelation is not allowed to inflate the sample).  NaN anywhere along
     ``axis`` gives NaN.
     """
-    x = np.moveaxis(np.asarray(x, dtype="float64"), axis, 0)
+    return sample_moments(np.moveaxis(np.asarray(x, dtype="float64"), axis, 0)).size
+
+
+class SampleMoments(NamedTuple):
+    """What the test of :func:`difference_test` needs of one sample ``(year, cell)``, per cell.
+
+    ``n`` years, ``mean``, ``var`` (``ddof=1``) and the effective size ``size``
+    (:func:`effective_sizes`); a source's moments serve every run tested against it.
+    """
+
+    n: int
+    mean: np.ndarray
+    var: np.ndarray
+    size: np.ndarray
+
+
+def sample_moments(x: np.ndarray) -> SampleMoments:
+    """:class:`SampleMoments` of a float64 ``(year, cell)`` array (years along axis 0).
+
+    Notes
+    -----
+    One pass of anomalies for both the variance and the lag-1 autocorrelation: the same
+    operations, in the same order, as ``x.mean(axis=0)``, ``x.var(axis=0, ddof=1)`` and
+    :func:`effective_sizes`, so the numbers are identical to theirs.
+    """
     n = x.shape[0]
-    d = x - x.mean(axis=0)
+    mean = x.mean(axis=0)
+    d = x - mean
     denom = (d * d).sum(axis=0)
     with np.errstate(invalid="ignore", divide="ignore"):
         r1 = (d[:-1] * d[1:]).sum(axis=0) / denom
+        var = denom / max(n - 1, 0)
     size = np.where(np.isfinite(r1) & (r1 > 0), n * (1.0 - r1) / (1.0 + r1), float(n))
-    return np.where(np.isfinite(x).all(axis=0), size, np.nan)
+    return SampleMoments(n, mean, var, np.where(np.isfinite(x).all(axis=0), size, np.nan))
 
 
 def difference_test(a: xr.DataArray, b: xr.DataArray, *, dim: str = "year", adjust: bool = True) -> xr.Dataset:
@@ -94,20 +125,9 @@ def difference_test(a: xr.DataArray, b: xr.DataArray, *, dim: str = "year", adju
     """
     a = a.transpose(dim, ...)
     b = b.transpose(*a.dims)  # the cells in a's order: the arrays are compared position by position
-    av, bv = np.asarray(a.values, dtype="float64"), np.asarray(b.values, dtype="float64")
-    na, nb = av.shape[0], bv.shape[0]
-    if adjust:
-        ea, eb = effective_sizes(av), effective_sizes(bv)
-    else:
-        ea = np.where(np.isfinite(av).all(axis=0), float(na), np.nan)
-        eb = np.where(np.isfinite(bv).all(axis=0), float(nb), np.nan)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        diff = av.mean(axis=0) - bv.mean(axis=0)
-        pooled = ((na - 1) * av.var(axis=0, ddof=1) + (nb - 1) * bv.var(axis=0, ddof=1)) / (na + nb - 2) if na + nb > 2 else np.full(diff.shape, np.nan)
-        dof = ea + eb - 2.0
-        stderr = np.sqrt(pooled * (1.0 / ea + 1.0 / eb))
-        t = np.where((dof > 0) & (stderr > 0) & (na > 1) & (nb > 1), diff / stderr, np.nan)
-        pvalue = np.where(np.isfinite(t), 2.0 * special.stdtr(np.where(dof > 0, dof, 1.0), -np.abs(t)), np.nan)
+    ma = sample_moments(np.asarray(a.values, dtype="float64"))
+    mb = sample_moments(np.asarray(b.values, dtype="float64"))
+    diff, t, dof, pvalue, ea, eb = difference_statistics(ma, mb, adjust=adjust)
     other = [d for d in a.dims if d != dim]
     coords = {k: v for k, v in a.coords.items() if dim not in v.dims}
     out = xr.Dataset(
@@ -123,6 +143,25 @@ def difference_test(a: xr.DataArray, b: xr.DataArray, *, dim: str = "year", adju
     )
     out.attrs = {"test": "two-sample t-test, pooled variance" + (", Santer et al. (2000) effective sample sizes" if adjust else "")}
     return out
+
+
+def difference_statistics(ma: SampleMoments, mb: SampleMoments, *, adjust: bool = True) -> tuple[np.ndarray, ...]:
+    """``difference``, ``t``, ``dof``, ``pvalue``, ``n_eff_a``, ``n_eff_b`` of :func:`difference_test`
+    from the two samples' :class:`SampleMoments` (plain arrays, cells in the same order)."""
+    na, nb = ma.n, mb.n
+    if adjust:
+        ea, eb = ma.size, mb.size
+    else:
+        ea = np.where(np.isfinite(ma.size), float(na), np.nan)
+        eb = np.where(np.isfinite(mb.size), float(nb), np.nan)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        diff = ma.mean - mb.mean
+        pooled = ((na - 1) * ma.var + (nb - 1) * mb.var) / (na + nb - 2) if na + nb > 2 else np.full(diff.shape, np.nan)
+        dof = ea + eb - 2.0
+        stderr = np.sqrt(pooled * (1.0 / ea + 1.0 / eb))
+        t = np.where((dof > 0) & (stderr > 0) & (na > 1) & (nb > 1), diff / stderr, np.nan)
+        pvalue = np.where(np.isfinite(t), 2.0 * special.stdtr(np.where(dof > 0, dof, 1.0), -np.abs(t)), np.nan)
+    return diff, t, dof, pvalue, ea, eb
 
 
 def bh_adjusted(pvalues: np.ndarray | xr.DataArray) -> np.ndarray | xr.DataArray:

@@ -1,0 +1,87 @@
+"""The score loop's shortcuts give the direct formulas' numbers.
+
+A reference's per-cell moments are made once and serve every run tested against it
+(evaluation.significance.sample_moments / difference_statistics); the bootstrap's Gram
+matrices of a band of latitudes are built on a view of the cells (evaluation.bootstrap.
+error_moments).  Each is checked here against an outside computation: numpy's mean and
+var, statsmodels' acf, scipy's ttest_ind cell by cell, and the Gram matrix written out
+with numpy.einsum.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from scipy import stats
+from statsmodels.tsa.stattools import acf
+
+from evaluation.bootstrap import error_moments
+from evaluation.significance import difference_statistics, sample_moments
+
+
+def _ar1(rng, years: int, cells: int, phi: float) -> np.ndarray:
+    x = np.empty((years, cells))
+    x[0] = rng.standard_normal(cells)
+    for t in range(1, years):
+        x[t] = phi * x[t - 1] + rng.standard_normal(cells)
+    return x
+
+
+def test_sample_moments_equal_numpy_and_statsmodels_acf() -> None:
+    rng = np.random.default_rng(5)
+    x = 280.0 + _ar1(rng, 25, 40, 0.6)
+    x[3, 7] = np.nan  # a cell with a missing year: no effective size
+    m = sample_moments(x)
+    # numpy.mean / numpy.var(ddof=1): the same operations, so exactly equal
+    np.testing.assert_array_equal(m.mean, x.mean(axis=0))
+    np.testing.assert_array_equal(m.var, x.var(axis=0, ddof=1))
+    for cell in range(x.shape[1]):
+        if cell == 7:
+            assert np.isnan(m.size[cell])
+            continue
+        # Santer et al. (2000) eq. 6 with r1 from statsmodels' acf (lag 1, not adjusted)
+        r1 = acf(x[:, cell], nlags=1, adjusted=False, fft=False)[1]
+        expected = 25 * (1 - r1) / (1 + r1) if r1 > 0 else 25.0
+        assert m.size[cell] == pytest.approx(expected, rel=1e-12)
+
+
+def test_one_reference_moments_for_several_runs_equal_scipy_ttest_per_cell() -> None:
+    rng = np.random.default_rng(11)
+    years, cells = 20, 30
+    ref = rng.standard_normal((years, cells))
+    shared = sample_moments(ref)
+    for shift in (0.0, 0.8):
+        run = rng.standard_normal((years, cells)) + shift
+        mask = np.ones(cells, dtype=bool)
+        mask[[2, 17]] = False  # cells a run does not have: set to 0 as the score loop does, then left untested
+        diff, t, dof, pvalue, _, _ = difference_statistics(sample_moments(np.where(mask, run, 0.0)), shared, adjust=False)
+        pvalue = np.where(mask, pvalue, np.nan)
+        assert np.isnan(pvalue[[2, 17]]).all()
+        for cell in np.flatnonzero(mask):
+            # scipy.stats.ttest_ind: the pooled-variance two-sample t-test
+            res = stats.ttest_ind(run[:, cell], ref[:, cell])
+            assert t[cell] == pytest.approx(res.statistic, rel=1e-10)
+            assert pvalue[cell] == pytest.approx(res.pvalue, rel=1e-9)
+            assert dof[cell] == 2 * years - 2
+            assert diff[cell] == pytest.approx(run[:, cell].mean() - ref[:, cell].mean(), abs=1e-13)
+
+
+@pytest.mark.parametrize("cells", ["whole map", "band", "scattered"])
+def test_gram_matrix_of_a_region_equals_the_direct_formula(cells: str) -> None:
+    rng = np.random.default_rng(3)
+    years, n = 15, 600
+    d = rng.standard_normal((years, n))
+    w = rng.random(n) + 0.1
+    if cells == "band":
+        w[:150] = 0.0
+        w[420:] = 0.0
+        d[:, :100] = np.nan  # NaN in cells of zero weight is allowed
+    elif cells == "scattered":
+        w[rng.random(n) < 0.5] = 0.0
+    got = error_moments(d, w, np.arange(years))
+    keep = w > 0
+    dk, wk = d[:, keep], w[keep]
+    # G = D diag(w) D^T / sum(w) and the yearly weighted mean D w / sum(w), written out with einsum
+    gram = np.einsum("ic,jc,c->ij", dk, dk, wk) / wk.sum()
+    np.testing.assert_allclose(got.gram, gram, rtol=1e-12, atol=0)
+    np.testing.assert_allclose(got.bias, np.einsum("ic,c->i", dk, wk) / wk.sum(), rtol=1e-12, atol=1e-15)
