@@ -137,3 +137,32 @@ def test_one_cell_wide_without_bounds_is_refused(tmp_path):
     lon2, lat2 = np.meshgrid(np.arange(-9.5, 10.0, 1.0), np.array([45.0]))
     with pytest.raises(InputError, match="one cell wide"):
         io.open_source(str(write_curvilinear(tmp_path / "w.nc", lat=lat2, lon=lon2, years=1)))
+
+
+def test_a_regional_grid_weights_the_target_cells_on_its_edge_by_the_part_it_covers(tmp_path, monkeypatch):
+    """The default target of a regional curvilinear reference is a regular box around it; a
+    box cell on the domain's edge is partly outside, and its value is the mean of the covered
+    part. The area mean must weight that cell by the covered part only, so it equals the mean
+    over the source cells weighted by their own areas."""
+    import pandas as pd
+    from pyproj import Geod
+
+    from app.cli import main
+
+    monkeypatch.setenv("GRIDSCORE_CACHE", "off")
+    lat, lon, lat_v, lon_v = rotated_regular(0.5, 55.0, -140.0, south=-8, north=8, west=-10, east=10)
+    ring = np.zeros(lat.shape)
+    ring[:2, :], ring[-2:, :], ring[:, :2], ring[:, -2:] = 1.0, 1.0, 1.0, 1.0  # the domain's edge: 1, inside: 0
+    # stored with the x dimension first, as the regional model's file does
+    path = write_curvilinear(tmp_path / "c.nc", lat=lat.T, lon=lon.T, lat_vertices=lat_v.transpose(1, 0, 2), lon_vertices=lon_v.transpose(1, 0, 2),
+                             values=ring.T, dims=("xc", "yc"), years=1, variable="pr", units="mm day-1", standard_name="precipitation_amount")
+    geod = Geod(a=EARTH_RADIUS_M, b=EARTH_RADIUS_M)  # outside reference: geodesic polygons on a sphere
+    area = np.array([[abs(geod.polygon_area_perimeter(lon_v[j, i], lat_v[j, i])[0]) for i in range(lat.shape[1])] for j in range(lat.shape[0])])
+    expected = float((ring * area).sum() / area.sum())  # area-weighted mean over the source cells (common practice)
+    out = tmp_path / "s.csv"
+    assert main(["score", "--reference", f"ref={path}", "--model", f"run={path}", "--variable", "pr", "--season", "JAN", "--output", str(out)]) == 0
+    table = pd.read_csv(out)
+    mean = float(table.loc[table["metric"] == "mean", "value"].iloc[0])
+    # the overlaps are of cells sampled along their edges (about 1e-5 of a cell's area); counting
+    # the edge target cells whole gave 1.2 times the true value here
+    assert mean == pytest.approx(expected, rel=1e-4)

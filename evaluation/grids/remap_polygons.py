@@ -34,7 +34,7 @@ from .remap import EDGE_POINTS
 from .remap_sparse import apply_matrix, cached
 from .spherical import EARTH_RADIUS, great_circle_points, to_lonlat, to_xyz, wrap_lon
 
-__all__ = ["EDGE_POINTS", "MAX_STEP", "cell_polygons", "edge_polygons", "overlap_matrix", "conservative", "mesh_conservative"]
+__all__ = ["EDGE_POINTS", "MAX_STEP", "cell_polygons", "edge_polygons", "overlap_matrix", "conservative", "covered_area", "mesh_conservative"]
 
 # EDGE_POINTS: sample points per cell edge, at least; more where an edge spans many degrees of
 # longitude (defined beside the sentence the provenance shows, in remap.py)
@@ -256,15 +256,26 @@ def overlap_matrix(polys: np.ndarray, tgt_lat_b: np.ndarray, tgt_lon_b: np.ndarr
     return sp.csr_matrix((v, (r, c)), shape=(nlat * nlon, polys.shape[0]))
 
 
-def conservative(da: xr.DataArray, source_grid: xr.Dataset, target: xr.Dataset, *, kind: str) -> xr.DataArray:
-    """First-order conservative map (Jones 1999) from a rotated or curvilinear grid onto a regular one."""
+def _cell_overlaps(source_grid: xr.Dataset, target: xr.Dataset, kind: str) -> sp.csr_matrix:
     tgt_lat_b, tgt_lon_b = target["lat_bnds"].values, target["lon_bnds"].values
 
     def build() -> sp.csr_matrix:
         return overlap_matrix(cell_polygons(source_grid, kind), tgt_lat_b, tgt_lon_b)
 
-    weights = cached((kind, source_grid["lat_bnds"].values, source_grid["lon_bnds"].values, tgt_lat_b, tgt_lon_b), build)
-    return apply_matrix(da, weights, ("y", "x"), target)
+    return cached((kind, source_grid["lat_bnds"].values, source_grid["lon_bnds"].values, tgt_lat_b, tgt_lon_b), build)
+
+
+def conservative(da: xr.DataArray, source_grid: xr.Dataset, target: xr.Dataset, *, kind: str) -> xr.DataArray:
+    """First-order conservative map (Jones 1999) from a rotated or curvilinear grid onto a regular one."""
+    return apply_matrix(da, _cell_overlaps(source_grid, target, kind), ("y", "x"), target)
+
+
+def covered_area(source_grid: xr.Dataset, target: xr.Dataset, *, kind: str) -> np.ndarray:
+    """``(lat, lon)`` area (m²) of each regular target cell that the cells of a rotated or
+    curvilinear grid cover: the row sums of the overlap matrix (the same matrix, cached,
+    that :func:`conservative` applies)."""
+    covered = np.asarray(_cell_overlaps(source_grid, target, kind).sum(axis=1)).ravel()
+    return covered.reshape(target.sizes["lat"], target.sizes["lon"])
 
 
 def mesh_conservative(da: xr.DataArray, source_grid: xr.Dataset, target: xr.Dataset) -> xr.DataArray:
