@@ -60,7 +60,8 @@ class FileReport:
     variables
         One dict per gridded variable: name, units (as written), units_read_as (the
         canonical form, :func:`evaluation.units.canonical`), standard_name, long_name,
-        levels, has_time.
+        levels, has_time, unplaced (dimensions beside the grid that no coordinate variable
+        with units describes: ``{"name", "size", "has_coordinate"}`` each).
     """
 
     path: str
@@ -108,7 +109,9 @@ def _variable_text(v: dict) -> str:
     text = f"{v['name']} [{v['units'] or 'no units'}]"
     if v.get("levels"):
         text += f" on levels {v['levels']}"
-    if not v.get("has_time", True):
+    if v.get("unplaced"):
+        text += f" (dimension '{v['unplaced'][0]['name']}' not read as time)"
+    elif not v.get("has_time", True):
         text += " (fixed)"
     return text
 
@@ -165,6 +168,14 @@ def check_file(path: str) -> FileReport:
             report.notes += list(desc.notes)
             if desc.kind == "regular":
                 report.notes += _bounds_notes(raw, desc)
+            for v in report.variables:
+                # a dimension beside the grid that no coordinate variable with units describes (a
+                # 'Time' of one step, a time without units): the variable does not read as timed
+                v["unplaced"] = [
+                    {"name": str(d), "size": int(raw.sizes[d]), "has_coordinate": d in raw.variables}
+                    for d in raw[v["name"]].dims
+                    if d not in desc.dims and (d not in raw.variables or "units" not in raw[d].attrs)
+                ]
         ds = io.open_source([path], source=path)
     except InputError as err:
         report.problems.append(_sentence(err))
@@ -186,6 +197,17 @@ def check_file(path: str) -> FileReport:
         _as_opened(v, ds) for v in report.variables if v["name"] in ds.data_vars or v["name"] in refused
     ]
     _check_variables(report, set(refused))
+    for name in ds.data_vars:
+        try:
+            low, high = io.valid_limits(ds[name])
+        except InputError as err:
+            report.problems.append(_sentence(err))
+            continue
+        if low is not None or high is not None:
+            shown = f"[{low:g}, {high:g}]" if low is not None and high is not None else (f"below {low:g}" if low is not None else f"above {high:g}")
+            report.notes.append(
+                f"variable '{name}' has a valid range: values {'outside ' if shown.startswith('[') else ''}{shown} are read as missing (cf-conventions 2.5.1)"
+            )
     report.can_score = not report.problems
     return report
 
@@ -218,7 +240,10 @@ def _as_opened(entry: dict, ds: xr.Dataset) -> dict:
     for dim in (d for d in da.dims if str(d).startswith("level")):
         coord = ds[dim]
         levels = f"{', '.join(f'{x:g}' for x in coord.values)} {coord.attrs.get('units', '')}".strip()
-    return {**entry, "has_time": "time" in da.dims, "levels": levels}
+    return {**entry, "has_time": "time" in da.dims, "levels": levels, "unplaced": [] if "time" in da.dims else entry.get("unplaced", [])}
+
+
+SEASON_NOTE = "no complete year of months"
 
 
 def _describe_time(ds: xr.Dataset, report: FileReport) -> None:
@@ -237,7 +262,7 @@ def _describe_time(ds: xr.Dataset, report: FileReport) -> None:
         months = sorted({v.month for v in values})
         names = ", ".join(calendar.month_abbr[m].upper() for m in months)
         report.notes.append(
-            f"no complete year of months: ANN and seasons missing a month cannot be scored; the months present are {names} "
+            f"{SEASON_NOTE}: ANN and seasons missing a month cannot be scored; the months present are {names} "
             "(choose those with --season)"
         )
 
@@ -250,7 +275,7 @@ def _check_variables(report: FileReport, refused: set[str]) -> None:
         if v["name"] in refused:
             continue  # the opener said why (io.REFUSED_ATTR)
         if not v["units"]:
-            if v["has_time"]:
+            if v["has_time"] or v.get("unplaced"):
                 report.problems.append(
                     f"{where} has no units attribute — add a CF units attribute (e.g. 'K', 'kg m-2 s-1')"
                 )
@@ -271,10 +296,22 @@ def _check_variables(report: FileReport, refused: set[str]) -> None:
         report.problems.append("no gridded variable — nothing to score")
     elif not scoreable and all(v["standard_name"] in io.FIXED_FIELDS for v in report.variables):
         kinds = ", ".join(sorted({io.FIXED_FIELDS[v["standard_name"]] for v in report.variables}))
+        # which seasons the time steps make does not matter for fields that are not scored
+        report.notes = [n for n in report.notes if not n.startswith(SEASON_NOTE)]
         report.problems.append(
             f"only fixed fields ({names}: {kinds}), which are not scored on their own — put this file beside a "
             "source's time series (its land fraction is then used for the land and ocean regions)"
         )
+    elif not scoreable and any(v.get("unplaced") for v in report.variables):
+        for v in (v for v in report.variables if v.get("unplaced")):
+            first = v["unplaced"][0]
+            dim, size = first["name"], first["size"]
+            report.problems.append(
+                f"variable '{v['name']}' has a dimension '{dim}' of {size} step{'s' if size != 1 else ''} "
+                f"{'whose coordinate variable has no units' if first['has_coordinate'] else 'with no coordinate variable'}, "
+                f"so its steps cannot be placed in time — if '{dim}' is time, add a coordinate variable {dim}({dim}) with units "
+                "such as 'days since 2000-01-01' and a calendar"
+            )
     elif not scoreable:
         report.problems.append(
             f"no variable with a time axis ({names}) — give monthly, annual or climatological time series"

@@ -669,10 +669,10 @@ def get_variable(ds: xr.Dataset, name: str, *, source: str | None = None) -> xr.
     files do not store it.  Raises :class:`InputError` listing the variables found.
     """
     if name in ds.data_vars:
-        return _with_pressure(ds, _one_level_dim(ds[name]))
+        return _with_pressure(ds, _one_level_dim(_within_valid_range(ds[name])))
     for vname, var in ds.data_vars.items():
         if _matches(var.variable, str(vname), name):
-            return _with_pressure(ds, _one_level_dim(var.rename(name)))
+            return _with_pressure(ds, _one_level_dim(_within_valid_range(var).rename(name)))
     refused = ds.attrs.get(REFUSED_ATTR, {})
     if name in refused:
         raise InputError(
@@ -694,6 +694,64 @@ def get_variable(ds: xr.Dataset, name: str, *, source: str | None = None) -> xr.
         file=source or ds.attrs.get("gridscore_files", "").split("\n")[0] or None,
         remedy="choose a variable the files hold",
     )
+
+
+def valid_limits(da: xr.DataArray) -> tuple[float | None, float | None]:
+    """(lowest, highest) valid value of ``da`` as decoded, from CF ``valid_range``,
+    ``valid_min`` and ``valid_max`` (cf-conventions 2.5.1; None where not given).
+
+    Limits written in the packed type of a packed variable (cf-conventions 8.1) are
+    unpacked with its ``scale_factor``/``add_offset``, widened by half a packing step.
+    """
+    attrs = da.attrs
+    given = [np.ravel(attrs[k]) for k in ("valid_range", "valid_min", "valid_max") if k in attrs]
+    if not given:
+        return None, None
+    lo = hi = None
+    if "valid_range" in attrs and np.ravel(attrs["valid_range"]).size == 2:
+        lo, hi = (float(v) for v in np.ravel(attrs["valid_range"]))
+    if "valid_min" in attrs and np.ravel(attrs["valid_min"]).size == 1:
+        lo = float(np.ravel(attrs["valid_min"])[0])
+    if "valid_max" in attrs and np.ravel(attrs["valid_max"]).size == 1:
+        hi = float(np.ravel(attrs["valid_max"])[0])
+    scale, offset = da.encoding.get("scale_factor"), da.encoding.get("add_offset")
+    packed = np.dtype(da.encoding.get("dtype", da.dtype))
+    if scale is not None or offset is not None:
+        if not all(g.dtype == packed for g in given):
+            # the netCDF library compares the packed values with it whatever its type, while
+            # older conventions read a range of the unpacked type as unpacked: ambiguous
+            kinds = ", ".join(sorted({str(g.dtype) for g in given}))
+            raise InputError(
+                f"variable '{da.name}' is packed as {packed} (scale_factor/add_offset) but its valid range is written as {kinds}, "
+                "so whether the range applies to the packed or the unpacked values cannot be told",
+                file=da.encoding.get("source"),
+                remedy=f"write valid_range/valid_min/valid_max as {packed} packed values (cf-conventions 8.1), or remove them",
+            )
+        scale = 1.0 if scale is None else float(scale)
+        offset = 0.0 if offset is None else float(offset)
+        ends = [None if v is None else v * scale + offset for v in (lo, hi)]
+        if scale < 0:
+            ends.reverse()
+        half = abs(scale) / 2
+        lo = None if ends[0] is None else ends[0] - half
+        hi = None if ends[1] is None else ends[1] + half
+    return lo, hi
+
+
+def _within_valid_range(da: xr.DataArray) -> xr.DataArray:
+    """``da`` with values outside its CF valid range missing (xarray does not apply it;
+    the netCDF library and cf-conventions 2.5.1 do)."""
+    lo, hi = valid_limits(da)
+    if lo is None and hi is None:
+        return da
+    inside = True
+    if lo is not None:
+        inside = da >= lo
+    if hi is not None:
+        inside = (da <= hi) & inside
+    out = da.where(inside)
+    out.attrs, out.encoding = dict(da.attrs), dict(da.encoding)
+    return out
 
 
 def _with_pressure(ds: xr.Dataset, da: xr.DataArray) -> xr.DataArray:

@@ -237,3 +237,48 @@ def test_a_time_coordinate_without_units_is_named_as_the_cause(tmp_path):
     report = check_file(str(tmp_path / "bare.nc"))
     assert not report.can_score
     assert any("time coordinate has no units attribute" in p for p in report.problems), report.problems
+    # the variable has a time dimension whose values cannot be read: it is not called fixed
+    text = "\n".join(report.lines())
+    assert "(fixed)" not in text and "(dimension 'time' not read as time)" in text
+
+
+def test_a_step_dimension_without_a_coordinate_and_missing_units_are_both_problems(tmp_path):
+    # a mesh model's field written as (Time, nCells) with no Time variable and no units: both
+    # problems at once, so that one round of fixes is enough (CF conventions 1.10 §4.4 and §3.1:
+    # time needs a coordinate variable with units, a field needs units; common practice)
+    import xarray as xr
+
+    n = 40
+    lat = np.rad2deg(np.arcsin(np.linspace(-0.95, 0.95, n)))
+    ds = xr.Dataset(
+        {"ps": (("Time", "nCells"), np.full((1, n), 1.0e5))},
+        coords={
+            "latCell": ("nCells", np.deg2rad(lat), {"units": "radians"}),
+            "lonCell": ("nCells", np.deg2rad(np.arange(n) * 137.5 % 360.0), {"units": "radians"}),
+        },
+    )
+    ds.to_netcdf(tmp_path / "mesh.nc")
+    report = check_file(str(tmp_path / "mesh.nc"))
+    assert not report.can_score
+    assert any("has no units attribute" in p for p in report.problems), report.problems
+    assert any("dimension 'Time' of 1 step with no coordinate variable" in p and "Time(Time)" in p for p in report.problems), report.problems
+    assert "(fixed)" not in report.lines()[0]
+    assert report.variables[0]["unplaced"] == [{"name": "Time", "size": 1, "has_coordinate": False}]
+
+
+def test_a_file_of_fixed_fields_has_no_season_note(tmp_path):
+    # a land fraction stamped with one time step: which seasons it could serve is beside the point
+    import xarray as xr
+
+    ds = xr.Dataset(
+        {"sftlf": (("time", "lat", "lon"), np.full((1, 6, 12), 0.5), {"units": "1", "standard_name": "land_area_fraction"})},
+        coords={
+            "time": ("time", [0.0], {"units": "days since 1949-12-01", "calendar": "proleptic_gregorian"}),
+            "lat": ("lat", np.arange(-75.0, 90.0, 30.0), {"units": "degrees_north"}),
+            "lon": ("lon", np.arange(15.0, 360.0, 30.0), {"units": "degrees_east"}),
+        },
+    )
+    ds.to_netcdf(tmp_path / "sftlf.nc")
+    report = check_file(str(tmp_path / "sftlf.nc"))
+    assert any("only fixed fields" in p for p in report.problems), report.problems
+    assert not any("complete year" in n for n in report.notes), report.notes
