@@ -322,8 +322,10 @@ def open_source(
         memory (:func:`fits_in_memory`'s rule) and no dask.distributed client is in use,
         open it without dask: the values stay in the file, read by xarray's lazy
         indexing when they are first used, and neither dask's import (about 0.5 s) nor a
-        task graph is paid.  Otherwise (several files, daily data, a larger source) the
-        usual dask chunks.
+        task graph is paid.  One file of daily (or finer) steps whose monthly means fit
+        is opened so too: its monthly means are made a few months at a time as they are
+        read (:class:`evaluation.timecoding.MonthlyMeans`).  Otherwise (several files, a
+        larger source) the usual dask chunks.
 
     Raises
     ------
@@ -411,9 +413,14 @@ def _plain_read(timed: Sequence[str], steps_per_month: float) -> bool:
     One file only: several files would be joined along time by copying them into memory
     at once, for every source of a comparison before the first is reduced.
     """
-    if len(timed) != 1 or steps_per_month > 1.5 or _on_a_cluster():
+    if len(timed) != 1 or _on_a_cluster():
         return False
     need = sum(int(m.get("bytes", 0)) for m in _listing(timed[0]).values() if m.get("has_time") == "True")
+    if steps_per_month > 1.5:
+        # sub-monthly steps are read a few months at a time into monthly means
+        # (evaluation.timecoding.MonthlyMeans): what must fit is the means, in float64
+        # (at most twice the bytes of float32 steps)
+        need = 2 * need / steps_per_month
     return 0 < need <= min(LOAD_LIMIT_BYTES, _available_bytes() / 4)
 
 

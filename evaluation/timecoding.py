@@ -35,6 +35,8 @@ from collections.abc import Sequence
 import cftime
 import numpy as np
 import xarray as xr
+from xarray.backends import BackendArray
+from xarray.core import indexing
 
 from .errors import InputError
 
@@ -543,10 +545,21 @@ def to_monthly(ds: xr.Dataset, *, file: str | None = None) -> xr.Dataset:
     sub = ds.drop_vars([INTERVAL], errors="ignore").isel(time=steps)
     w = xr.DataArray(weights[steps], dims="time")
     label = xr.DataArray(key[steps], dims="time", name="month_key")
+    # the complete months one after the other, with no step between them left out: each month a
+    # run of steps, so that values still in the file can be reduced a few months at a time
+    runs = steps.size > 0 and steps[-1] - steps[0] + 1 == steps.size and bool(np.all(np.diff(key[steps]) >= 0))
     out = {}
     for name, var in sub.data_vars.items():
         if "time" not in var.dims:
             out[name] = var
+            continue
+        if runs and var.chunks is None and not var.variable._in_memory:
+            # opened without dask (evaluation.io.open_source): the means are made when the months are read
+            starts = np.r_[0, np.flatnonzero(np.diff(key[steps])) + 1]
+            data = MonthlyMeans(ds[name].variable, var.get_axis_num("time"), int(steps[0]), starts, weights[steps])
+            mean = xr.DataArray(xr.Variable(var.dims, indexing.LazilyIndexedArray(data), attrs=dict(var.attrs)),
+                                coords={c: v for c, v in var.coords.items() if "time" not in v.dims})
+            out[name] = mean.assign_coords(time=("time", new_time, tattrs))
             continue
         x = var.astype("float64")
         total = (x * w).groupby(label).sum("time", skipna=False)
@@ -558,6 +571,65 @@ def to_monthly(ds: xr.Dataset, *, file: str | None = None) -> xr.Dataset:
     result = xr.Dataset(out, coords={**keep_coords, "time": ("time", new_time, tattrs)}, attrs=dict(ds.attrs))
     result["time"].encoding = dict(time.encoding)
     return result
+
+
+class MonthlyMeans(BackendArray):
+    """Monthly means of sub-monthly values still in the file, made when they are read.
+
+    ``daily`` is the variable as opened without dask (xarray's lazily indexed file array);
+    month ``i`` is the weighted mean of its steps ``first + starts[i] … first + starts[i+1] - 1``
+    along ``axis`` with ``weights`` (one per step from ``first`` on).  Reading a range of
+    months reads only their steps, a few months at a time (about ``$GRIDSCORE_CHUNK_MB`` of
+    float64 a block), so the memory is the block and the means, never every step: the same
+    numbers as :func:`to_monthly`'s dask reduction (``sum(w x) / sum(w)`` in float64, NaN in
+    any step giving NaN), without dask's import, task graph and joining of chunks.
+    """
+
+    def __init__(self, daily: xr.Variable, axis: int, first: int, starts: np.ndarray, weights: np.ndarray) -> None:
+        self.daily, self.axis, self.first = daily, axis, first
+        self.starts = np.asarray(starts, dtype="int64")
+        self.weights = np.asarray(weights, dtype="float64")
+        self.ends = np.r_[self.starts[1:], self.weights.size]
+        shape = list(daily.shape)
+        shape[axis] = self.starts.size
+        self.shape, self.dtype = tuple(shape), np.dtype("float64")
+
+    def __getitem__(self, key: indexing.ExplicitIndexer) -> np.ndarray:
+        return indexing.explicit_indexing_adapter(key, self.shape, indexing.IndexingSupport.BASIC, self._read)
+
+    def _read(self, key: tuple) -> np.ndarray:
+        from .request import chunk_megabytes
+
+        months = np.arange(self.shape[self.axis])[key[self.axis]]
+        scalar = months.ndim == 0
+        months = np.atleast_1d(months)
+        other = tuple(slice(None) if i == self.axis else k for i, k in enumerate(key))
+        per_step = 8 * int(np.prod([np.arange(n)[k].size for i, (n, k) in enumerate(zip(self.shape, other, strict=True))
+                                    if i != self.axis and isinstance(k, slice)] or [1]))
+        block = max(1, int(chunk_megabytes() * 2**20 // max(per_step * 31, 1)))  # months a block
+        parts = []
+        for i in range(0, months.size, block):
+            chosen = months[i:i + block]
+            if chosen.size > 1 and not np.all(np.diff(chosen) == 1):
+                parts.extend(self._months(np.atleast_1d(m), other) for m in chosen)
+                continue
+            parts.append(self._months(chosen, other))
+        axis = self.axis - sum(isinstance(k, (int, np.integer)) for k in other[:self.axis])
+        out = np.concatenate(parts, axis=axis) if parts else np.empty(tuple(np.arange(n)[k].size for n, k in zip(self.shape, key, strict=True)
+                                                                             if not isinstance(k, (int, np.integer))))
+        return np.take(out, 0, axis=axis) if scalar else out
+
+    def _months(self, months: np.ndarray, other: tuple) -> np.ndarray:
+        """The means of consecutive ``months``, read at once."""
+        lo, hi = int(self.starts[months[0]]), int(self.ends[months[-1]])
+        index = tuple(slice(self.first + lo, self.first + hi) if i == self.axis else k for i, k in enumerate(other))
+        values = np.asarray(self.daily[index].values)
+        axis = self.axis - sum(isinstance(k, (int, np.integer)) for k in other[:self.axis])
+        w = self.weights[lo:hi].reshape([-1 if i == axis else 1 for i in range(values.ndim)])
+        offsets = self.starts[months] - lo
+        total = np.add.reduceat(values.astype("float64") * w, offsets, axis=axis)
+        norm = np.add.reduceat(self.weights[lo:hi], offsets).reshape([-1 if i == axis else 1 for i in range(values.ndim)])
+        return total / norm
 
 
 def stamp_notes(ds: xr.Dataset) -> list[str]:
