@@ -427,6 +427,13 @@ def main(argv: Sequence[str] | None = None) -> int:
     except KeyboardInterrupt:
         print("gridscore: interrupted", file=sys.stderr)
         return 130
+    except BrokenPipeError:
+        # the reader went away (`gridscore check --json | head`): nothing to report; stdout
+        # goes to devnull so that the flush at exit does not fail again (the recipe of
+        # Python's signal module documentation, "Note on SIGPIPE")
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, sys.stdout.fileno())
+        return EXIT_INPUT
     except Exception as exc:  # the last line of defence: one line, never a traceback
         if debug:
             raise

@@ -292,3 +292,24 @@ def test_usage_errors_exit_2(tmp_path):
     assert len(proc.stderr.strip().splitlines()) == 1
     proc = run("score", "--reference", "x.nc", "--model", "a=y.nc", "--variable", "tas", "--regrid", "nearest")
     assert proc.returncode == 2 and len(proc.stderr.strip().splitlines()) == 1
+
+
+def test_a_reader_that_stops_early_gets_no_error_message(tmp_path):
+    # `gridscore check --json FILE | head`: the pipe closes while gridscore writes. A shell
+    # tool says nothing then (coreutils; Python's signal documentation, "Note on SIGPIPE");
+    # gridscore printed "internal error (BrokenPipeError ...)"
+    import xarray as xr
+
+    names = {f"field_{i:04d}": (("time", "lat", "lon"), np.ones((1, 2, 2), "float32"), {"units": "K"}) for i in range(400)}
+    ds = xr.Dataset(names, coords={"time": ("time", [15.0], {"units": "days since 2001-01-01"}),
+                                   "lat": ("lat", [-45.0, 45.0], {"units": "degrees_north"}),
+                                   "lon": ("lon", [-90.0, 90.0], {"units": "degrees_east"})})
+    ds.to_netcdf(tmp_path / "many.nc")
+    proc = subprocess.Popen([sys.executable, "-m", "app.cli", "check", "--json", str(tmp_path / "many.nc")],
+                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, cwd=Path(__file__).resolve().parents[1])
+    assert proc.stdout is not None and proc.stderr is not None
+    assert proc.stdout.read(10)  # the report begins (it is larger than a pipe's buffer, 64 KiB on Linux)
+    proc.stdout.close()
+    err = proc.stderr.read().decode()
+    assert proc.wait(timeout=120) == 2
+    assert err == "", err
