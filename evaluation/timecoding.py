@@ -627,7 +627,11 @@ class MonthlyMeans(BackendArray):
         axis = self.axis - sum(isinstance(k, (int, np.integer)) for k in other[:self.axis])
         w = self.weights[lo:hi].reshape([-1 if i == axis else 1 for i in range(values.ndim)])
         offsets = self.starts[months] - lo
-        total = np.add.reduceat(values.astype("float64") * w, offsets, axis=axis)
+        if np.all(w == 1.0):
+            # steps of equal length (one day each; no bounds): w x is x, summed in float64 without a float64 copy
+            total = np.add.reduceat(values, offsets, axis=axis, dtype="float64")
+        else:
+            total = np.add.reduceat(values.astype("float64") * w, offsets, axis=axis)
         norm = np.add.reduceat(self.weights[lo:hi], offsets).reshape([-1 if i == axis else 1 for i in range(values.ndim)])
         return total / norm
 

@@ -52,3 +52,16 @@ def test_only_the_months_asked_for_are_made(daily, monkeypatch) -> None:
     np.testing.assert_allclose(da.isel(time=slice(3, 9)).values.reshape(6, -1), expected[3:9], rtol=1e-13, atol=0)
     np.testing.assert_allclose(da.isel(time=[2, 5, 11]).values.reshape(3, -1), expected[[2, 5, 11]], rtol=1e-13, atol=0)
     assert float(da.isel(time=12, lat=0, lon=3)) == pytest.approx(expected[12, 3], rel=1e-13)
+
+
+def test_steps_weighted_by_their_bounds_equal_pandas(tmp_path) -> None:
+    # twice a day, each step 0.5 days long by its bounds: the weighted path
+    steps = pd.date_range("2003-01-01", "2003-04-01", freq="12h", inclusive="left")
+    rng = np.random.default_rng(8)
+    data = 250.0 + 10.0 * rng.standard_normal((steps.size, 3, 4))
+    t = np.arange(steps.size) * 0.5
+    path = write_raw(tmp_path / "tas_12h.nc", t, {"units": "days since 2003-01-01", "calendar": "standard", "standard_name": "time", "axis": "T"},
+                     data, bounds=np.stack([t, t + 0.5], axis=1))
+    # pandas.DataFrame.resample: equal steps, so the weighted mean is the plain mean
+    expected = pd.DataFrame(data.reshape(steps.size, -1), index=steps).resample("MS").mean().to_numpy()
+    np.testing.assert_allclose(_opened(str(path)).values.reshape(3, -1), expected, rtol=1e-13, atol=0)
