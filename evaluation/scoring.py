@@ -81,6 +81,12 @@ class _Prepared:
     stored_units: str | None = None  # values still in the file: converted from these units when read
 
 
+def _climatology_kind(monthly: xr.DataArray) -> str:
+    """``12-month climatology`` or ``climatology of JAN, JUL only``: the months a climatology holds."""
+    months = sorted({t.month for t in monthly["time"].values})
+    return "12-month climatology" if len(months) == 12 else f"climatology of {', '.join(MONTH_NAMES[m - 1] for m in months)} only"
+
+
 class Comparison:
     """Scores and fields of several runs against one reference for one variable.
 
@@ -189,7 +195,7 @@ class Comparison:
                 prepared = self._prepare_source(m, self._open(m))
                 if prepared.kind == "climatology":
                     raise InputError(
-                        f"'{m.name}' is a 12-month climatology, which can serve as the primary reference only",
+                        f"'{m.name}' is a {_climatology_kind(prepared.monthly)}: a climatology can serve as the primary reference only",
                         file=prepared.files,
                         remedy="give the run's monthly, daily or annual time series",
                     )
@@ -372,10 +378,9 @@ class Comparison:
         ref = self._prepared[self.reference.name]
         if ref.kind == "climatology":
             years = ref.monthly["time"].attrs.get("gridscore_climatology_years")
-            months = sorted({t.month for t in ref.monthly["time"].values})
             self.notes.append(
                 f"the reference '{self.reference.name}' is a "
-                + ("12-month climatology" if len(months) == 12 else f"climatology of {', '.join(MONTH_NAMES[m - 1] for m in months)} only")
+                + _climatology_kind(ref.monthly)
                 + (f" of {years}" if years else " (its years are not stated)")
                 + f"; the runs' means over {self.period} are compared with it, and ref_trend, ref_trend_pvalue "
                 "and iav_ratio, which need the reference's years, are left empty"

@@ -313,3 +313,24 @@ def test_a_reader_that_stops_early_gets_no_error_message(tmp_path):
     err = proc.stderr.read().decode()
     assert proc.wait(timeout=120) == 2
     assert err == "", err
+
+
+def test_a_run_given_as_a_climatology_of_some_months_is_refused_naming_its_months(tmp_path, capsys):
+    # an analysis written as a `month` dimension holding January and July only: the refusal
+    # names those two months (calendar month numbers 1 and 7, common practice), not "12-month"
+    import xarray as xr
+
+    from app.cli import main
+
+    ds = xr.Dataset(
+        {"ua": (("month", "lat", "lon"), np.ones((2, 6, 12)), {"units": "m s-1", "standard_name": "eastward_wind"})},
+        coords={"month": ("month", np.array([1, 7], "int32")),
+                "lat": ("lat", np.arange(75.0, -90.0, -30.0), {"units": "degrees_north"}),
+                "lon": ("lon", np.arange(-165.0, 180.0, 30.0), {"units": "degrees_east"})},
+    )
+    ds.to_netcdf(tmp_path / "jan-jul.nc")
+    path = str(tmp_path / "jan-jul.nc")
+    assert main(["score", "--reference", f"ref={path}", "--model", f"run={path}", "--variable", "ua", "--season", "JAN"]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and "jan-jul.nc" in err[0], err
+    assert "climatology of JAN, JUL only" in err[0] and "12-month" not in err[0], err
