@@ -578,13 +578,16 @@ def _vertical(ds: xr.Dataset, out: xr.Dataset) -> tuple[xr.Dataset, dict[str, st
     different axes, renamed to ``level`` by :func:`get_variable`); anything else is
     dropped and its reason recorded, so that asking for it names the true problem.
     """
-    from .levels import LEVEL_DIM, level_coordinate, vertical_block
+    from .levels import LEVEL_DIM, level_coordinate, scalar_level, vertical_block
 
     refused: dict[str, str] = {}
     kept: dict[str, object] = {}
     for v in list(out.data_vars):
         extra = [d for d in out[v].dims if d not in ("time", *_HORIZONTAL_DIMS)]
         if not extra:
+            text = scalar_level(out[v])  # a CF scalar coordinate (height = 2 m) names the one level
+            if text:
+                out[v].attrs["gridscore_single_level"] = text
             continue
         action, axis, text = vertical_block(ds, out[v], extra)
         if action == "squeeze":

@@ -46,6 +46,7 @@ __all__ = [
     "section_weights",
     "section_scores",
     "select_level",
+    "scalar_level",
 ]
 
 #: The canonical name of the vertical dimension after :func:`evaluation.io.normalise`.
@@ -238,6 +239,18 @@ def describe_vertical(ds: xr.Dataset, dim: str) -> VerticalAxis | None:
     if kind == "pressure" and np.any(values <= 0):
         return VerticalAxis(dim, values, units, positive, None, f"its pressure axis '{dim}' has levels at or below zero")
     return VerticalAxis(dim, values, units, positive or KINDS[kind].positive, kind)
+
+
+def scalar_level(var: xr.DataArray) -> str:
+    """The level a CF scalar coordinate of ``var`` names (``height = 2 m``, ``plev = 50000 Pa``;
+    cf-conventions 5.7), as :meth:`VerticalAxis.labels` writes it, or '' when it has none."""
+    for name, coord in var.coords.items():
+        if coord.ndim != 0 or name in var.dims:
+            continue
+        axis = describe_vertical(xr.Dataset(coords={name: ((name,), [coord.values], coord.attrs)}), str(name))
+        if axis is not None and axis.kind is not None:
+            return axis.labels()[0]
+    return ""
 
 
 def format_level(value: float, units: str, kind: str) -> str:
@@ -444,7 +457,12 @@ def select_level(
                 file=where,
                 remedy=f"choose --level {stored.replace(' ', '')} or leave --level out",
             )
-        raise InputError(f"variable '{name}' of '{source}' has no vertical levels", file=where, remedy="leave --level out for this variable")
+        raise InputError(
+            f"variable '{name}' of '{source}' has no vertical levels",
+            file=where,
+            remedy="leave --level out for this variable, or, if the file holds it on one level that only an attribute names, "
+            "give that level as a CF scalar coordinate (e.g. plev = 50000 Pa with standard_name air_pressure, named in the variable's coordinates attribute)",
+        )
     if da[LEVEL_DIM].attrs.get("level_kind") == "model":
         return _column_level(da, request, source=source, where=where)
     values, units, kind = _vertical_of(da)

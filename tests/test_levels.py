@@ -315,3 +315,51 @@ def test_zonal_section_of_the_reference_itself_is_zero(pair) -> None:
     # the run's levels reach 1000-250 hPa: the reference's 200 hPa is outside them
     assert np.isnan(section["difference"].sel(level=200.0).values).all()
     assert np.isfinite(section["difference"].sel(level=850.0).values).all()
+
+
+@pytest.mark.parametrize(
+    ("coord", "attrs", "level", "label"),
+    [
+        ("height", {"standard_name": "height", "units": "m", "positive": "up", "axis": "Z"}, 2.0, "2 m"),
+        ("plev", {"standard_name": "air_pressure", "units": "Pa"}, 50000.0, "500 hPa"),
+    ],
+)
+def test_a_scalar_vertical_coordinate_names_the_one_level(tmp_path: Path, coord, attrs, level, label) -> None:
+    # CF conventions 5.7: a scalar coordinate variable (no dimension, named in the variable's
+    # `coordinates`) gives the single level of a field, e.g. near-surface temperature at
+    # height = 2 m; --level naming it is accepted and written as that level, another refused
+    from app.cli import main
+
+    ds = xr.Dataset(
+        {"ta": (("time", "lat", "lon"), np.full((12, 6, 12), 280.0), {"units": "K", "standard_name": "air_temperature"})},
+        coords={
+            "time": ("time", np.arange(12) * 30.0 + 15.0, {"units": "days since 2001-01-01", "calendar": "360_day"}),
+            "lat": ("lat", np.arange(-75.0, 90.0, 30.0), {"units": "degrees_north"}),
+            "lon": ("lon", np.arange(15.0, 360.0, 30.0), {"units": "degrees_east"}),
+            coord: ((), level, attrs),
+        },
+    )
+    path = tmp_path / "one-level.nc"
+    ds.to_netcdf(path)
+    out = tmp_path / "s.csv"
+    asked = label.replace(" ", "")
+    assert main(["score", "--reference", f"ref={path}", "--model", f"run={path}", "--variable", "ta", "--level", asked, "--season", "JAN", "--output", str(out)]) == 0
+    assert set(pd.read_csv(out, keep_default_na=False)["level"]) == {label}
+    with pytest.raises(InputError, match=f"single level {label}"):
+        levels.select_level(opened(path), "850hPa" if "hPa" not in asked else "10m", source="run")
+
+
+def test_a_variable_without_levels_names_the_scalar_coordinate_remedy(tmp_path: Path) -> None:
+    # a level written only in a free attribute (lev = "500.0") is not a CF vertical coordinate
+    ds = xr.Dataset(
+        {"zg": (("time", "lat", "lon"), np.full((12, 6, 12), 5500.0), {"units": "m", "lev": "500.0"})},
+        coords={
+            "time": ("time", np.arange(12) * 30.0 + 15.0, {"units": "days since 2001-01-01", "calendar": "360_day"}),
+            "lat": ("lat", np.arange(-75.0, 90.0, 30.0), {"units": "degrees_north"}),
+            "lon": ("lon", np.arange(15.0, 360.0, 30.0), {"units": "degrees_east"}),
+        },
+    )
+    ds.to_netcdf(tmp_path / "attr-level.nc")
+    with pytest.raises(InputError, match="no vertical levels") as err:
+        levels.select_level(opened(tmp_path / "attr-level.nc", "zg"), "500hPa", source="run")
+    assert "scalar coordinate" in str(err.value) and "coordinates attribute" in str(err.value)
