@@ -200,11 +200,11 @@ def error_moments(difference: np.ndarray, weights: np.ndarray, years: np.ndarray
         # the kept cells are one run (the whole map, a band of latitudes): a view, not a copy
         d, w = d[:, keep[0]:keep[-1] + 1], w[keep[0]:keep[-1] + 1]
     else:
-        d, w = d[:, keep], w[keep]
+        d, w = np.take(d, keep, axis=1), w[keep]  # row-major, as the view above (d[:, keep] is column-major)
     w = w / w.sum()
-    # column-major like the product of a copy made by fancy indexing, so that the yearly sums
-    # below add the cells in the same order whatever branch was taken (identical numbers)
-    dw = np.multiply(d, w, order="F")
+    # row-major throughout: the product, the BLAS product below and the yearly sums are about
+    # a third faster than on column-major copies (the yearly sums then add the cells pairwise)
+    dw = d * w
     # A BLAS product, 3-4x faster than numpy.einsum (which does not use BLAS) for these thin
     # (years x cells) products with one BLAS thread, which the gridscore command sets; a
     # threaded BLAS on a shared machine spent ~80x the CPU time (benchmarks/significance.py).
