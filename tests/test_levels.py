@@ -317,6 +317,20 @@ def test_zonal_section_of_the_reference_itself_is_zero(pair) -> None:
     assert np.isfinite(section["difference"].sel(level=850.0).values).all()
 
 
+def _one_field(path: Path, name: str, value: float, attrs: dict, extra_coords: dict | None = None) -> Path:
+    """A constant monthly field of one year on a 30° grid."""
+    xr.Dataset(
+        {name: (("time", "lat", "lon"), np.full((12, 6, 12), value), attrs)},
+        coords={
+            "time": ("time", np.arange(12) * 30.0 + 15.0, {"units": "days since 2001-01-01", "calendar": "360_day"}),
+            "lat": ("lat", np.arange(-75.0, 90.0, 30.0), {"units": "degrees_north"}),
+            "lon": ("lon", np.arange(15.0, 360.0, 30.0), {"units": "degrees_east"}),
+            **(extra_coords or {}),
+        },
+    ).to_netcdf(path)
+    return path
+
+
 @pytest.mark.parametrize(
     ("coord", "attrs", "level", "label"),
     [
@@ -330,17 +344,7 @@ def test_a_scalar_vertical_coordinate_names_the_one_level(tmp_path: Path, coord,
     # height = 2 m; --level naming it is accepted and written as that level, another refused
     from app.cli import main
 
-    ds = xr.Dataset(
-        {"ta": (("time", "lat", "lon"), np.full((12, 6, 12), 280.0), {"units": "K", "standard_name": "air_temperature"})},
-        coords={
-            "time": ("time", np.arange(12) * 30.0 + 15.0, {"units": "days since 2001-01-01", "calendar": "360_day"}),
-            "lat": ("lat", np.arange(-75.0, 90.0, 30.0), {"units": "degrees_north"}),
-            "lon": ("lon", np.arange(15.0, 360.0, 30.0), {"units": "degrees_east"}),
-            coord: ((), level, attrs),
-        },
-    )
-    path = tmp_path / "one-level.nc"
-    ds.to_netcdf(path)
+    path = _one_field(tmp_path / "one-level.nc", "ta", 280.0, {"units": "K", "standard_name": "air_temperature"}, {coord: ((), level, attrs)})
     out = tmp_path / "s.csv"
     asked = label.replace(" ", "")
     assert main(["score", "--reference", f"ref={path}", "--model", f"run={path}", "--variable", "ta", "--level", asked, "--season", "JAN", "--output", str(out)]) == 0
@@ -351,15 +355,7 @@ def test_a_scalar_vertical_coordinate_names_the_one_level(tmp_path: Path, coord,
 
 def test_a_variable_without_levels_names_the_scalar_coordinate_remedy(tmp_path: Path) -> None:
     # a level written only in a free attribute (lev = "500.0") is not a CF vertical coordinate
-    ds = xr.Dataset(
-        {"zg": (("time", "lat", "lon"), np.full((12, 6, 12), 5500.0), {"units": "m", "lev": "500.0"})},
-        coords={
-            "time": ("time", np.arange(12) * 30.0 + 15.0, {"units": "days since 2001-01-01", "calendar": "360_day"}),
-            "lat": ("lat", np.arange(-75.0, 90.0, 30.0), {"units": "degrees_north"}),
-            "lon": ("lon", np.arange(15.0, 360.0, 30.0), {"units": "degrees_east"}),
-        },
-    )
-    ds.to_netcdf(tmp_path / "attr-level.nc")
+    _one_field(tmp_path / "attr-level.nc", "zg", 5500.0, {"units": "m", "lev": "500.0"})
     with pytest.raises(InputError, match="no vertical levels") as err:
         levels.select_level(opened(tmp_path / "attr-level.nc", "zg"), "500hPa", source="run")
     assert "scalar coordinate" in str(err.value) and "coordinates attribute" in str(err.value)
