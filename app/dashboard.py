@@ -14,7 +14,7 @@ from .views.base import ResultView
 from .views.budget import BudgetView, budget_available
 from .views.controls import Controls
 from .views.cycle import CycleView
-from .views.look import INK, load_extensions
+from .views.look import INK, load_extensions, page_template
 from .views.maps import MapsView
 from .views.notices import Notices
 from .views.overview import OverviewView
@@ -59,7 +59,7 @@ def build(selection: Selection, results: Results) -> pn.template.BaseTemplate:
     tabs.param.watch(tab_picked, "active")
     selection.param.watch(tab_set, "tab")
 
-    template = pn.template.BootstrapTemplate(
+    template = page_template(
         title="gridscore",
         header_background=INK,
         header_color="#f8fafc",

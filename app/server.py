@@ -191,9 +191,9 @@ def _serve_own_stylesheets() -> None:
 def _notice_page(text: str) -> pn.template.BaseTemplate:
     """A page that only says why there is nothing to show (plain text)."""
     from .views.base import error_box
-    from .views.look import INK
+    from .views.look import INK, page_template
 
-    template = pn.template.BootstrapTemplate(title="gridscore", header_background=INK, header_color="#f8fafc")
+    template = page_template(title="gridscore", header_background=INK, header_color="#f8fafc")
     template.main.append(error_box(f"Nothing to show: {text}"))
     return template
 

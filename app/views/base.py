@@ -27,7 +27,7 @@ from evaluation.errors import InputError
 from evaluation.regions import region_label
 
 from ..state import Request, Selection
-from .look import STILL_LOADING
+from .look import STILL_LOADING, load_matplotlib
 from .results import Results
 
 __all__ = [
@@ -377,3 +377,4 @@ class ResultView(Viewer):
 
     def __panel__(self) -> pn.viewable.Viewable:
         return self._layout
+            load_matplotlib()  # first download of the process: before the figure gets its options

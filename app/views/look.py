@@ -9,16 +9,9 @@ from __future__ import annotations
 
 import functools
 
-import matplotlib
-import numpy as np
-from bokeh.palettes import Viridis256
-
-# The server has no display; choose the file-only backend before pyplot is imported
-# anywhere (HoloViews imports it when its matplotlib backend loads).
-matplotlib.use("Agg")
-
-import holoviews as hv  # noqa: E402
-import panel as pn  # noqa: E402
+import holoviews as hv
+import panel as pn
+from bokeh.palettes import RdBu11, Viridis256, interp_palette
 
 __all__ = [
     "ACCENT",
@@ -34,6 +27,8 @@ __all__ = [
     "STILL_LOADING",
     "STYLESHEET",
     "load_extensions",
+    "load_matplotlib",
+    "page_template",
     "run_colour",
 ]
 
@@ -43,8 +38,10 @@ PAPER = "#f6f4ef"
 #: Perceptually uniform and readable in grey print and by colour-blind readers.
 SEQUENTIAL = list(Viridis256)
 #: Blue-white-red with a white centre, so that "no difference" reads as blank paper
-#: (colorcet's diverging maps have a tinted centre).
-DIVERGING = [matplotlib.colors.to_hex(c) for c in matplotlib.colormaps["RdBu_r"](np.linspace(0.0, 1.0, 256))]
+#: (colorcet's diverging maps have a tinted centre): ColorBrewer's 11 RdBu colours, blue
+#: first, spread linearly over 256 (matplotlib's ``RdBu_r`` made the same way, to within one
+#: step of 255; taken from Bokeh so that the server does not import matplotlib to start).
+DIVERGING = list(interp_palette(RdBu11, 256))
 REFERENCE_COLOUR = "#111111"
 #: The overview's two sides of the median run: smaller error (the accent teal) and larger
 #: error (a burnt orange); apart for colour-blind readers (blue–orange axis) and dark enough
@@ -116,16 +113,50 @@ def run_colour(index: int) -> str:
 
 @functools.cache
 def load_extensions() -> None:
-    """Load Panel's Tabulator and HoloViews' two backends once per process.
+    """Load Panel's Tabulator and HoloViews' Bokeh backend once per process.
 
     Bokeh draws the page; matplotlib draws the PNG and SVG figure downloads on the server
-    (Bokeh's own export needs a browser driver, which a server should not depend on).
+    (Bokeh's own export needs a browser driver, which a server should not depend on), and
+    is loaded at the first download (:func:`load_matplotlib`): importing it and HoloViews'
+    matplotlib backend cost the server's start 0.6-0.8 s before the first page.
     """
-    pn.extension("tabulator", raw_css=[STYLESHEET], notifications=True, sizing_mode="stretch_width")
-    hv.extension("bokeh", "matplotlib", logo=False)
+    # no notifications: nothing here sends one, and their area is a script, a stylesheet and a model per page
+    pn.extension("tabulator", raw_css=[STYLESHEET], sizing_mode="stretch_width")
+    hv.extension("bokeh", logo=False)
     hv.Store.set_current_backend("bokeh")
     # Plots on a plain canvas, not WebGL (HoloViews' default): our glyphs are a few thousand
     # at most (images are not drawn by WebGL anyway), and where WebGL runs in software
     # (headless, remote desktops, no graphics driver) copying its pixels onto the page cost
     # 1.5 of the 3.4 CPU-s Chromium spent opening the maps (CDP profile: Bokeh's blit_webgl).
     hv.renderer("bokeh").webgl = False
+
+
+def page_template(**options: object) -> pn.template.BaseTemplate:
+    """The page's frame: Panel's plain template (header, sidebar, main) without its web font.
+
+    Bootstrap's template loaded Bootstrap's script and stylesheets, which nothing here uses;
+    the plain one cost Chromium 0.3 CPU-s less per page (2.19 -> 1.86 CPU-s to the first maps,
+    the browser processes' CPU times, load 5).  Its font comes from Google's servers, a
+    request that fails on a closed network: left out, the page uses the browser's sans-serif.
+    """
+    template = pn.template.VanillaTemplate(**options)
+    # Panel reads the template's outside resources from this attribute of the instance
+    template._resources = {kind: {} for kind in ("css", "js", "js_modules", "tarball")}
+    return template
+
+
+@functools.cache
+def load_matplotlib() -> None:
+    """Load HoloViews' matplotlib backend (for the PNG/SVG downloads) once per process.
+
+    Call it before the figure to export is built: HoloViews drops, without a word, the
+    options an element is given for a backend that is not loaded yet.  Bokeh stays the
+    backend of the page.
+    """
+    import matplotlib
+
+    # No display on a server: the file-only backend, chosen before pyplot is imported.
+    matplotlib.use("Agg")
+    load_extensions()
+    hv.extension("matplotlib", logo=False)
+    hv.Store.set_current_backend("bokeh")
