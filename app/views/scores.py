@@ -14,6 +14,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 import panel as pn
+import param
 from bokeh.models.widgets.tables import HTMLTemplateFormatter, NumberFormatter
 
 from evaluation.bootstrap import BEST_RULE, GUARDED_BEST
@@ -121,6 +122,66 @@ def within_best(shown: pd.DataFrame, pairs: pd.DataFrame, metrics: list[str]) ->
     return marks
 
 
+class _Marks:
+    """The style function of one table: the cells it marks, replaced when the table is given the
+    values of another selection in place (Panel applies the function again to the new values)."""
+
+    def __init__(self, best: dict[str, list[bool]], tied: dict[str, list[bool]]) -> None:
+        self.best, self.tied = best, tied
+
+    def __call__(self, column: pd.Series) -> list[str]:
+        flags = self.best.get(str(column.name), [False] * len(column))
+        tied = self.tied.get(str(column.name), [False] * len(column))
+        return [_BEST_STYLE if f else _WITHIN_STYLE if t else "" for f, t in zip(flags, tied, strict=True)]
+
+
+def table_parts(shown: pd.DataFrame, units: dict[str, str], within: dict[str, list[bool]] | None = None,
+                confirmed: dict[str, list[bool]] | None = None) -> dict[str, Any]:
+    """What one table shows, before any widget is made: the frame (with the text column of ties),
+    the column titles, each metric's number format, the header tooltips and the marked cells.
+
+    See :func:`score_widget` for ``within`` and ``confirmed``."""
+    metrics = list(units)
+    # the text column is shown only in a table where some run ties (a column of dashes says
+    # nothing); it is there, hidden and empty, in the others, so that every region's table has
+    # the same columns and a change of region changes the values of the table on the page
+    ties = within is not None and any(any(within.get(m, [])) for m in metrics)
+    if within is not None:
+        shown = shown.copy()
+        shown[WITHIN_COLUMN] = [
+            ", ".join(METRICS[m].label if m in METRICS else m for m in metrics if within.get(m, [False] * len(shown))[i]) or "–"
+            if ties else "" for i in range(len(shown))
+        ]
+    titles = {"Run": "Run"}
+    formats: dict[str, str | None] = {}
+    for m in metrics:
+        label = METRICS[m].label if m in METRICS else m
+        unit = units[m]
+        # Tabulator writes titles as HTML; units come from files, so escape them.
+        titles[m] = text_html(label) + (f"<br><small>{text_html(unit)}</small>" if unit and unit != "1" else "")
+        formats[m] = None if m.endswith("pvalue") else number_format(shown[m], m)
+    tooltips = {m: METRICS[m].description for m in metrics if m in METRICS}
+    if within is not None:
+        tooltips[WITHIN_COLUMN] = "Metrics in which this run is within observational uncertainty of the best run"
+    marks = {m: best_rows(shown[m], m) for m in metrics}
+    for m, allowed in (confirmed or {}).items():
+        if m in marks:
+            marks[m] = [b and a for b, a in zip(marks[m], allowed, strict=True)]
+    tied = {m: (within or {}).get(m, [False] * len(shown)) for m in metrics}
+    return {"frame": shown, "metrics": metrics, "titles": titles, "formats": formats, "tooltips": tooltips,
+            "within": within is not None, "hidden": [] if ties or within is None else [WITHIN_COLUMN], "best": marks, "tied": tied}
+
+
+def _formatters(parts: dict[str, Any]) -> dict[str, Any]:
+    formatters: dict[str, Any] = {
+        m: P_VALUE_FORMAT if fmt is None else NumberFormatter(format=fmt, nan_format="–", text_align="right")
+        for m, fmt in parts["formats"].items()
+    }
+    if parts["within"]:
+        formatters[WITHIN_COLUMN] = {"type": "textarea"}  # wraps the list of metric names
+    return formatters
+
+
 def score_widget(shown: pd.DataFrame, units: dict[str, str], within: dict[str, list[bool]] | None = None,
                  confirmed: dict[str, list[bool]] | None = None) -> pn.widgets.Tabulator:
     """A sortable table of runs × metrics with formatted numbers and the best values marked;
@@ -128,55 +189,73 @@ def score_widget(shown: pd.DataFrame, units: dict[str, str], within: dict[str, l
     uncertainty are underlined and named in a text column; with ``confirmed`` (metric -> runs
     whose bootstrap interval excludes zero, :data:`evaluation.bootstrap.BEST_RULE`), a metric
     it names marks only those runs."""
-    metrics = list(units)
-    # the text column only in a table where some run ties (a column of dashes says nothing)
-    within = within if within and any(any(within.get(m, [])) for m in metrics) else None
-    if within:
-        shown = shown.copy()
-        shown[WITHIN_COLUMN] = [
-            ", ".join(METRICS[m].label if m in METRICS else m for m in metrics if within.get(m, [False] * len(shown))[i]) or "–"
-            for i in range(len(shown))
-        ]
-    titles = {"Run": "Run"}
-    formatters: dict[str, Any] = {}
-    for m in metrics:
-        label = METRICS[m].label if m in METRICS else m
-        unit = units[m]
-        # Tabulator writes titles as HTML; units come from files, so escape them.
-        titles[m] = text_html(label) + (f"<br><small>{text_html(unit)}</small>" if unit and unit != "1" else "")
-        formatters[m] = (P_VALUE_FORMAT if m.endswith("pvalue")
-                         else NumberFormatter(format=number_format(shown[m], m), nan_format="–", text_align="right"))
-    tooltips = {m: METRICS[m].description for m in metrics if m in METRICS}
-    if within:
-        formatters[WITHIN_COLUMN] = {"type": "textarea"}  # wraps the list of metric names
-        tooltips[WITHIN_COLUMN] = "Metrics in which this run is within observational uncertainty of the best run"
-    marks = {m: best_rows(shown[m], m) for m in metrics}
-    for m, allowed in (confirmed or {}).items():
-        if m in marks:
-            marks[m] = [b and a for b, a in zip(marks[m], allowed, strict=True)]
+    return _widget(table_parts(shown, units, within, confirmed))[0]
 
-    def highlight(column: pd.Series) -> list[str]:
-        flags = marks.get(str(column.name), [False] * len(column))
-        tied = (within or {}).get(str(column.name), [False] * len(column))
-        return [_BEST_STYLE if f else _WITHIN_STYLE if t else "" for f, t in zip(flags, tied, strict=True)]
 
+def _widget(parts: dict[str, Any]) -> tuple[pn.widgets.Tabulator, _Marks]:
     widget = pn.widgets.Tabulator(
-        shown,
+        parts["frame"],
         show_index=False,
         disabled=True,
         selectable=False,
-        titles=titles,
-        formatters=formatters,
-        header_tooltips=tooltips,
+        titles=parts["titles"],
+        formatters=_formatters(parts),
+        header_tooltips=parts["tooltips"],
         frozen_columns=["Run"],
         layout="fit_columns",
         sizing_mode="stretch_width",
         theme="simple",
-        widths={"Run": 140, **({WITHIN_COLUMN: 190} if within else {})},
+        widths={"Run": 140, **({WITHIN_COLUMN: 190} if parts["within"] else {})},
+        hidden_columns=parts["hidden"],
         stylesheets=[TABLE_CSS],
     )
-    widget.style.apply(highlight, axis=0, subset=metrics)
-    return widget
+    marks = _Marks(parts["best"], parts["tied"])
+    widget.style.apply(marks, axis=0, subset=parts["metrics"])
+    return widget, marks
+
+
+class _Drawn:
+    """The score tables on the page and what the next drawing of the same shape changes in place."""
+
+    def __init__(self, shape: tuple, column: pn.Column, tables: list[tuple[pn.widgets.Tabulator, _Marks, dict[str, str | None]]],
+                 hints: dict[str, pn.pane.HTML], buttons: list[pn.widgets.FileDownload]) -> None:
+        self.shape, self.column, self.tables, self.hints, self.buttons = shape, column, tables, hints, buttons
+
+    def on_page(self, body: pn.Column, doc: Any) -> bool:
+        """Whether these tables are what the view shows, each with a model in the session's document
+        (a model left out of the document would take new values that never reach the page)."""
+        return (doc is not None and body.objects == [self.column]
+                and all(any(m.document is doc for m, _ in widget._models.values()) for widget, _, _ in self.tables))
+
+    def refill(self, specs: list[dict[str, Any]]) -> None:
+        """Every table showing the values of ``specs`` (same columns, titles and order rule): Panel
+        sends the new values and cell styles of the table models already on the page, and a
+        column's number format only where it changed."""
+        for i, ((widget, marks, formats), parts) in enumerate(zip(self.tables, specs, strict=True)):
+            marks.best, marks.tied = parts["best"], parts["tied"]
+            if parts["formats"] != formats:
+                _reformat(widget, parts)
+                self.tables[i] = (widget, marks, dict(parts["formats"]))
+            if parts["hidden"] != widget.hidden_columns:
+                widget.hidden_columns = parts["hidden"]
+            widget.value = parts["frame"]
+
+
+def _reformat(widget: pn.widgets.Tabulator, parts: dict[str, Any]) -> None:
+    """New number formats of the columns of a table on the page, as one property each.
+
+    Panel answers new ``formatters`` with new column models, and Tabulator in the browser then
+    builds its columns anew (a third of a region change); its cells read their formatter's
+    format whenever they are drawn, so the format of the column models already on the page is
+    changed instead, before the new values arrive.  The widget keeps the same formatters for
+    any model it makes later (without rebuilding the columns of the current one)."""
+    for model, _ in widget._models.values():  # Panel's models of this widget, one per page showing it
+        for column in model.columns:
+            fmt = parts["formats"].get(column.field)
+            if fmt is not None and isinstance(column.formatter, NumberFormatter) and column.formatter.format != fmt:
+                column.formatter.format = fmt
+    with param.parameterized.discard_events(widget):
+        widget.formatters = _formatters(parts)
 
 
 def sorted_runs(shown: pd.DataFrame, sort: str) -> tuple[pd.DataFrame, dict[str, str] | None]:
@@ -211,6 +290,8 @@ class ScoresView(ResultView):
 
     tab = "scores"
     title = "Scores"
+    #: The tables on the page, changed in place by a drawing of the same shape.
+    _kept: _Drawn | None = None
     explanation = (
         "Area-weighted statistics of each run against the reference for the selected region, "
         "season and period. The best value of each column is highlighted (bias: nearest zero; "
@@ -250,6 +331,12 @@ class ScoresView(ResultView):
         runs = relative_error_table(every[every["reference"] == request.reference], request.models)["runs"].max()
         data = {"tidy": mine, "every": every, "pairs": pairs, "alternatives": alternatives, "provenance": record, "left_out": left,
                 "runs": int(runs) if pd.notna(runs) else 0}
+        if not mine.empty:
+            # the shown table and its ties, kept with the rest: a change back to this selection only draws
+            shown, units = data["table"] = self.table(mine)
+            if pairs is not None:
+                flags = within_best(shown, pairs, list(units))
+                data["ties"] = {m: {run for run, f in zip(shown["Run"], flags[m], strict=True) if f} for m in units}
         products.put(view_key, data)
         return data
 
@@ -264,42 +351,74 @@ class ScoresView(ResultView):
     def draw(self, data: dict[str, Any], request: Request) -> pn.viewable.Viewable:
         tidy: pd.DataFrame = data["tidy"]
         if tidy.empty:
+            self._kept = None
             return pn.pane.HTML('<div class="gs-empty">No scores for this selection.</div>')
-        shown, units = self.table(tidy)
+        shown, units = data["table"] if "table" in data else self.table(tidy)
         shown, sorter = sorted_runs(shown, request.sort)
         # "best" only where the bootstrap interval against the best other run excludes zero
         confirmed = {m: [bool(v < 0) for v in pd.to_numeric(shown[bound], errors="coerce")]
                      for m, bound in GUARDED_BEST.items() if bound in shown.columns}
-        tables = []
+        ties = data.get("ties")
+        if ties is None and data.get("pairs") is not None:
+            flags = within_best(shown, data["pairs"], list(units))
+            ties = {m: {run for run, f in zip(shown["Run"], flags[m], strict=True) if f} for m in units}
+        specs: list[tuple[str | None, dict[str, Any]]] = []
         for heading, group in GROUPS.items():
             metrics = [m for m in group if m in units]
             if metrics:
-                tables.append(pn.pane.HTML(f'<div class="gs-section-title">{text_html(heading)}</div>', margin=(6, 10, 2, 10)))
-                within = within_best(shown, data["pairs"], metrics) if data.get("pairs") is not None else None
-                tables.append(self._sortable(score_widget(shown[["Run", *metrics]], {m: units[m] for m in metrics}, within, confirmed), sorter))
+                within = {m: [run in ties[m] for run in shown["Run"]] for m in metrics} if ties is not None else None
+                specs.append((heading, table_parts(shown[["Run", *metrics]], {m: units[m] for m in metrics}, within, confirmed)))
         others = [m for m in units if not any(m in g for g in GROUPS.values())]
         if others:
-            tables.append(self._sortable(score_widget(shown[["Run", *others]], {m: units[m] for m in others}), sorter))
+            specs.append((None, table_parts(shown[["Run", *others]], {m: units[m] for m in others})))
         region = parse_region(request.region)
-        context = (
-            f"Region {region_label(region)}: {region.definition}. Relative error compares each run's RMSE with the "
-            f"median over the {data['runs']} runs shown (Gleckler et al. 2008); ticking a run on or off changes it."
-        )
-        parts: list[Any] = [pn.pane.HTML(f'<div class="gs-hint">{text_html(context)}</div>', margin=(0, 10, 6, 10))]
-        if confirmed:
-            parts.append(pn.pane.HTML(f'<div class="gs-hint gs-best-rule">{text_html(BEST_RULE)}</div>', margin=(0, 10, 6, 10)))
-        if data.get("alternatives"):
-            rule = (
-                f"Observational uncertainty, from the references {', '.join([request.reference, *data['alternatives']])}: "
-                f"underlined values, named in the column '{WITHIN_COLUMN}', are within observational uncertainty of the "
-                f"best value. {RULE} The downloads hold every run against every reference."
-            )
-            parts.append(pn.pane.HTML(f'<div class="gs-hint gs-obs-rule">{text_html(rule)}</div>', margin=(0, 10, 6, 10)))
-        if data["left_out"]:
-            text = "Left out of this comparison: " + "; ".join(data["left_out"])
-            parts.append(pn.pane.HTML(f'<div class="gs-notice">{text_html(text)}</div>', margin=(0, 10, 6, 10)))
-        parts += [*tables, self._downloads(data, request)]
-        return pn.Column(*parts, sizing_mode="stretch_width")
+        hints = {
+            "context": (f"Region {region_label(region)}: {region.definition}. Relative error compares each run's RMSE with the "
+                        f"median over the {data['runs']} runs shown (Gleckler et al. 2008); ticking a run on or off changes it."),
+            "best": BEST_RULE if confirmed else "",
+            "obs": (f"Observational uncertainty, from the references {', '.join([request.reference, *data['alternatives']])}: "
+                    f"underlined values, named in the column '{WITHIN_COLUMN}', are within observational uncertainty of the "
+                    f"best value. {RULE} The downloads hold every run against every reference.") if data.get("alternatives") else "",
+            "left": "Left out of this comparison: " + "; ".join(data["left_out"]) if data["left_out"] else "",
+        }
+        shape = (tuple((heading, tuple(parts["frame"].columns), tuple(parts["titles"].values())) for heading, parts in specs),
+                 None if sorter is None else tuple(sorted(sorter.items())), tuple(k for k, v in hints.items() if v))
+        kept = self._kept
+        if kept is not None and kept.shape == shape and kept.on_page(self._body, self._doc):
+            # the same tables with other values (another region, say): changed in place, so that the
+            # browser redraws rows of the tables it has rather than building new ones
+            kept.refill([parts for _, parts in specs])
+            for name, text in hints.items():
+                if text:
+                    kept.hints[name].object = self._hint_html(name, text)
+            self._point_downloads(kept.buttons, data, request)
+            return kept.column
+        panes = {name: pn.pane.HTML(self._hint_html(name, text), margin=(0, 10, 6, 10)) for name, text in hints.items() if text}
+        parts: list[Any] = list(panes.values())
+        tables = []
+        for heading, spec in specs:
+            if heading is not None:
+                parts.append(pn.pane.HTML(f'<div class="gs-section-title">{text_html(heading)}</div>', margin=(6, 10, 2, 10)))
+            widget, marks = _widget(spec)
+            parts.append(self._sortable(widget, sorter))
+            tables.append((widget, marks, dict(spec["formats"])))
+        buttons = self._download_buttons()
+        self._point_downloads(buttons, data, request)
+        note = pn.pane.HTML('<span class="gs-hint">Download the table:</span>', margin=(12, 4, 0, 10))
+        column = pn.Column(*parts, pn.Row(note, *buttons), sizing_mode="stretch_width")
+        self._kept = _Drawn(shape, column, tables, panes, buttons)
+        return column
+
+    @staticmethod
+    def _hint_html(name: str, text: str) -> str:
+        css = {"context": "gs-hint", "best": "gs-hint gs-best-rule", "obs": "gs-hint gs-obs-rule", "left": "gs-notice"}[name]
+        return f'<div class="{css}">{text_html(text)}</div>'
+
+    def _show(self, *args: Any, **kwargs: Any) -> None:
+        # every change of a drawing in one message: the tables change together in the browser
+        # (sent one by one, each table's new rows were drawn in turn)
+        with pn.io.hold(self._doc):
+            super()._show(*args, **kwargs)
 
     def _sortable(self, widget: pn.widgets.Tabulator, sorter: dict[str, str] | None) -> pn.widgets.Tabulator:
         """``widget`` showing the link's sort on its column, and a header click put into the link
@@ -316,35 +435,39 @@ class ScoresView(ResultView):
         widget.param.watch(picked, "sorters")
         return widget
 
-    def _downloads(self, data: dict[str, Any], request: Request) -> pn.Row:
+    @staticmethod
+    def _download_buttons() -> list[pn.widgets.FileDownload]:
+        buttons = [
+            pn.widgets.FileDownload(
+                filename=f"scores.{fmt}",
+                label=label,
+                color="light",
+                width=120,
+                height=34,
+                description=text_tooltip(f"Download the table as {label} with its provenance"),
+                css_classes=[f"gs-download-{fmt}"],
+            )
+            for fmt, label in DOWNLOADS.items()
+        ]
+        # the CSV's provenance as the command line writes it beside its CSV (same name, same content)
+        return [*buttons, provenance_download({}, "scores.csv")]
+
+    def _point_downloads(self, buttons: list[pn.widgets.FileDownload], data: dict[str, Any], request: Request) -> None:
+        """The download buttons made for ``data`` (their callbacks and file names)."""
         tidy = data.get("every", data["tidy"])
         # the files of the sources in the downloaded table only (the comparison holds every run of the variable)
         record = provenance_for(data["provenance"], {request.reference, *tidy["model"], *tidy["reference"]})
         base = safe_filename("scores", request.variable, request.reference, request.region, request.season, request.period)
         results = self.results
-        buttons = []
-        for fmt, label in DOWNLOADS.items():
+        for fmt, button in zip(DOWNLOADS, buttons, strict=False):
 
             async def make(fmt: str = fmt) -> io.BytesIO:
                 payload = await results.run(lambda: table_bytes(tidy, fmt, provenance=record))
                 return io.BytesIO(payload)
 
-            buttons.append(
-                pn.widgets.FileDownload(
-                    callback=make,
-                    filename=f"{base}.{fmt}",
-                    label=label,
-                    color="light",
-                    width=120,
-                    height=34,
-                    description=text_tooltip(f"Download the table as {label} with its provenance"),
-                    css_classes=[f"gs-download-{fmt}"],
-                )
-            )
-        # the CSV's provenance as the command line writes it beside its CSV (same name, same content)
-        buttons.append(provenance_download(record, f"{base}.csv"))
-        note = pn.pane.HTML('<span class="gs-hint">Download the table:</span>', margin=(12, 4, 0, 10))
-        return pn.Row(note, *buttons)
+            button.param.update(callback=make, filename=f"{base}.{fmt}")
+        buttons[-1].param.update(callback=lambda: io.BytesIO(provenance_bytes(record)),
+                                 filename=sidecar_path(f"{base}.csv").name)
 
 
 def provenance_download(record: dict, csv_name: str) -> pn.widgets.FileDownload:
