@@ -1007,14 +1007,15 @@ class Comparison:
         run's masked cells (0 in ``ms_all``) are left untested afterwards: the numbers are
         those of :func:`evaluation.significance.difference_test` on the masked maps.
         """
-        from .significance import difference_statistics, fdr_significant, sample_moments
+        from .significance import FDR_LEVEL, difference_statistics, fdr_significant, sample_moments
 
         if self._prepared[against].kind == "climatology":
             return np.zeros(mask.shape, dtype=bool), np.zeros(mask.shape, dtype=bool)
         key = ("reference moments", years.tobytes())
         if key not in shared:
             shared[key] = sample_moments(shared[("reference", years.tobytes())][0])
-        pvalue = difference_statistics(sample_moments(ms_all), shared[key])[3]
+        # p-values that cannot pass the false-discovery control are not computed (see only_below)
+        pvalue = difference_statistics(sample_moments(ms_all), shared[key], only_below=FDR_LEVEL)[3]
         pvalue = np.where(mask, pvalue, np.nan)
         return fdr_significant(pvalue)[0], np.isfinite(pvalue)
 

@@ -84,9 +84,11 @@ def sample_moments(x: np.ndarray) -> SampleMoments:
     n = x.shape[0]
     mean = x.mean(axis=0)
     d = x - mean
-    denom = (d * d).sum(axis=0)
+    products = d * d
+    denom = products.sum(axis=0)
+    lagged = np.multiply(d[:-1], d[1:], out=products[:-1])  # the same products, in the buffer of the squares
     with np.errstate(invalid="ignore", divide="ignore"):
-        r1 = (d[:-1] * d[1:]).sum(axis=0) / denom
+        r1 = lagged.sum(axis=0) / denom
         var = denom / max(n - 1, 0)
     size = np.where(np.isfinite(r1) & (r1 > 0), n * (1.0 - r1) / (1.0 + r1), float(n))
     return SampleMoments(n, mean, var, np.where(np.isfinite(x).all(axis=0), size, np.nan))
@@ -145,9 +147,18 @@ def difference_test(a: xr.DataArray, b: xr.DataArray, *, dim: str = "year", adju
     return out
 
 
-def difference_statistics(ma: SampleMoments, mb: SampleMoments, *, adjust: bool = True) -> tuple[np.ndarray, ...]:
+def difference_statistics(ma: SampleMoments, mb: SampleMoments, *, adjust: bool = True, only_below: float | None = None
+                          ) -> tuple[np.ndarray, ...]:
     """``difference``, ``t``, ``dof``, ``pvalue``, ``n_eff_a``, ``n_eff_b`` of :func:`difference_test`
-    from the two samples' :class:`SampleMoments` (plain arrays, cells in the same order)."""
+    from the two samples' :class:`SampleMoments` (plain arrays, cells in the same order).
+
+    ``only_below``: the p-value is computed only where it can be at most ``only_below``
+    and is 1 at the other tested cells.  Student's t has heavier tails than the normal
+    distribution for any degrees of freedom, so ``|t|`` below the normal quantile
+    ``z(1 - only_below/2)`` gives a p-value above ``only_below``.  Benjamini–Hochberg at a
+    level of at most ``only_below`` then gives the same mask and threshold
+    (:func:`fdr_significant`: such p-values never pass, and the cells tested stay counted).
+    """
     na, nb = ma.n, mb.n
     if adjust:
         ea, eb = ma.size, mb.size
@@ -160,7 +171,12 @@ def difference_statistics(ma: SampleMoments, mb: SampleMoments, *, adjust: bool 
         dof = ea + eb - 2.0
         stderr = np.sqrt(pooled * (1.0 / ea + 1.0 / eb))
         t = np.where((dof > 0) & (stderr > 0) & (na > 1) & (nb > 1), diff / stderr, np.nan)
-        pvalue = np.where(np.isfinite(t), 2.0 * special.stdtr(np.where(dof > 0, dof, 1.0), -np.abs(t)), np.nan)
+        if only_below is None:
+            pvalue = np.where(np.isfinite(t), 2.0 * special.stdtr(np.where(dof > 0, dof, 1.0), -np.abs(t)), np.nan)
+        else:
+            pvalue = np.where(np.isfinite(t), 1.0, np.nan)
+            near = np.isfinite(t) & (np.abs(t) >= special.ndtri(1.0 - only_below / 2.0) * (1.0 - 1e-9))
+            pvalue[near] = 2.0 * special.stdtr(dof[near], -np.abs(t[near]))
     return diff, t, dof, pvalue, ea, eb
 
 

@@ -85,3 +85,26 @@ def test_gram_matrix_of_a_region_equals_the_direct_formula(cells: str) -> None:
     gram = np.einsum("ic,jc,c->ij", dk, dk, wk) / wk.sum()
     np.testing.assert_allclose(got.gram, gram, rtol=1e-12, atol=0)
     np.testing.assert_allclose(got.bias, np.einsum("ic,c->i", dk, wk) / wk.sum(), rtol=1e-12, atol=1e-15)
+
+
+@pytest.mark.parametrize("level", [0.10, 0.05])
+def test_p_values_left_out_above_the_level_give_the_benjamini_hochberg_mask_of_statsmodels(level: float) -> None:
+    from statsmodels.stats.multitest import multipletests
+
+    from evaluation.significance import fdr_significant
+
+    rng = np.random.default_rng(21)
+    years, cells = 12, 4000
+    ref = rng.standard_normal((years, cells))
+    run = rng.standard_normal((years, cells)) + np.where(np.arange(cells) < 600, 1.2, 0.0)  # a signal in some cells
+    _, t, _, pvalue, _, _ = difference_statistics(sample_moments(run), sample_moments(ref), adjust=False, only_below=level)
+    mask, _ = fdr_significant(pvalue, level=level)
+    # scipy.stats.ttest_ind p-values of every cell, then statsmodels' Benjamini-Hochberg
+    full = stats.ttest_ind(run, ref, axis=0).pvalue
+    expected = multipletests(full, alpha=level, method="fdr_bh")[0]
+    assert expected.sum() > 100  # the signal is found
+    np.testing.assert_array_equal(mask, expected)
+    computed = pvalue < 1.0
+    np.testing.assert_allclose(pvalue[computed], full[computed], rtol=1e-10)
+    assert (full[~computed] > level).all()  # only p-values above the level were left out
+    assert computed.sum() < cells  # and some were
