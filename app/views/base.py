@@ -239,6 +239,10 @@ class ResultView(Viewer):
         args = (request.reference, request.variable, request.period, request.level, request.target_grid)
         return await results.fetch(("alternatives",) + args, results.alternatives, *args)
 
+    def ready(self, request: Request) -> Any | None:
+        """What :meth:`load` would return, if it is at hand without computing (else None)."""
+        return None
+
     def draw(self, data: Any, request: Request) -> pn.viewable.Viewable:
         raise NotImplementedError
 
@@ -266,6 +270,11 @@ class ResultView(Viewer):
             parts.append(request.period)
         return " · ".join(parts)
 
+    def has_figure(self, data: Any, request: Request) -> bool:
+        """Whether the PNG/SVG downloads have a figure to draw (a view whose :meth:`figure` is
+        costly and not what the page shows answers without building it)."""
+        return self.figure(data, request) is not None
+
     def export_figure(self, data: Any, request: Request) -> hv.core.Dimensioned | None:
         """What the PNG/SVG downloads draw with matplotlib; by default :meth:`figure`."""
         return self.figure(data, request)
@@ -285,6 +294,16 @@ class ResultView(Viewer):
         # drawn from files of an older generation: drawn again, even if hidden meanwhile
         if not force and (self.results.generation, self.key(request)) == self._drawn:
             return
+        if not self._layout._models:
+            # Not on a page yet (the page being built, or a tab not shown before): numbers
+            # already computed are drawn now, into the page's first document, instead of an
+            # empty view that a second message fills.  Files that changed meanwhile are
+            # caught by the session's look at them, which draws again.
+            ready = self.ready(request)
+            if ready is not None:
+                self._generation += 1
+                self._show(("data", ready), request, self._generation, self.results.generation)
+                return
         pn.state.execute(self.refresh)
 
     async def refresh(self) -> None:
@@ -324,7 +343,7 @@ class ResultView(Viewer):
             try:
                 shown = self.draw(value, request)
                 self._last = (value, request)
-                self._figure_buttons.visible = self.figure(value, request) is not None
+                self._figure_buttons.visible = self.has_figure(value, request)
             except Exception as error:
                 log.exception("view %s could not draw %s", self.tab, request)
                 kind, value = "error", f"This view could not be drawn ({type(error).__name__}: {error})."
@@ -334,7 +353,8 @@ class ResultView(Viewer):
             shown = error_box(value)
             self._last = None
             self._figure_buttons.visible = False
-        self._body.objects = [shown]
+        if not (len(self._body.objects) == 1 and self._body.objects[0] is shown):  # a drawing updated in place is already there
+            self._body.objects = [shown]
         self._context.object = f'<div class="gs-hint"><b>Showing:</b> {text_html(self.context(request))}</div>'
         self._drawn = (files, self.key(request))
         for button in self._figure_buttons:
@@ -364,6 +384,7 @@ class ResultView(Viewer):
             if self._last is None:
                 raise InputError("nothing drawn yet", remedy="wait until the figure is on the page")
             data, request = self._last
+            load_matplotlib()  # first download of the process: before the figure gets its options
             figure = self.export_figure(data, request)
             buffer = io.BytesIO()
             # Plot building is not thread-safe (holoviz/holoviews#6162): this runs on the
@@ -377,4 +398,3 @@ class ResultView(Viewer):
 
     def __panel__(self) -> pn.viewable.Viewable:
         return self._layout
-            load_matplotlib()  # first download of the process: before the figure gets its options

@@ -19,7 +19,7 @@ import holoviews as hv
 import numpy as np
 import xarray as xr
 
-__all__ = ["coastline_path", "coastline_segments"]
+__all__ = ["coastline_lines", "coastline_path", "coastline_segments"]
 
 #: Polylines with fewer points than this are small islands and speckle; at 1 degree
 #: dropping them keeps ~50 lines (95 % of the ~4 500 points) and the picture stays clean.
@@ -57,6 +57,22 @@ def _joined() -> np.ndarray:
     # paths as a hundred datasets (a second per map), a single broken line in milliseconds.
     gap = np.full((1, 2), np.nan)
     return np.concatenate([part for seg in coastline_segments() for part in (seg, gap)])
+
+
+@functools.lru_cache(maxsize=1)
+def coastline_lines() -> dict[str, np.ndarray]:
+    """The coastlines as the columns ``x`` and ``y`` of one Bokeh line broken by NaN.
+
+    A Bokeh line glyph breaks at NaN, so one glyph on one data source draws every polyline
+    (a MultiLine would carry one list per polyline).  Single precision: a map is a few
+    hundred pixels wide, and the ~4 500 points travel to each page at half the size.
+    The arrays are shared by every page of the process and must not be changed.
+    """
+    joined = _joined().astype("float32")
+    x, y = np.ascontiguousarray(joined[:, 0]), np.ascontiguousarray(joined[:, 1])
+    x.flags.writeable = False
+    y.flags.writeable = False
+    return {"x": x, "y": y}
 
 
 def coastline_path() -> hv.Overlay:

@@ -15,20 +15,39 @@ from __future__ import annotations
 
 import io
 import math
+from collections.abc import Callable
 from typing import Any
 
 import holoviews as hv
 import numpy as np
 import panel as pn
 import xarray as xr
+from bokeh.events import SelectionGeometry
+from bokeh.layouts import gridplot
+from bokeh.models import (
+    BoxSelectTool,
+    BoxZoomTool,
+    ColorBar,
+    ColumnDataSource,
+    FixedTicker,
+    HoverTool,
+    LinearColorMapper,
+    PanTool,
+    PlainText,
+    Range1d,
+    ResetTool,
+    SaveTool,
+    WheelZoomTool,
+)
+from bokeh.plotting import figure as bokeh_figure
 
 from evaluation.export import field_bytes, provenance_for
 from evaluation.regions import parse_region
 from evaluation.significance import FDR_LEVEL
 
 from ..state import Request
-from .base import ResultView, figure_pane, plot_title, safe_filename, text_tooltip
-from .coastlines import coastline_path
+from .base import ResultView, plot_title, safe_filename, text_tooltip
+from .coastlines import coastline_lines, coastline_path
 from .look import DIVERGING, SEQUENTIAL
 from .results import MapField
 
@@ -179,11 +198,12 @@ def map_element(item: MapField, *, clim: tuple[float, float], units: str) -> hv.
     return element * coastline_path()
 
 
-def region_outline(region: str) -> hv.Overlay:
-    """Dashed rectangles around the selected region (none for global, land or ocean).
+def region_boxes(region: str) -> list[tuple[float, float, float, float]]:
+    """``(west, south, east, north)`` of the rectangles around the selected region.
 
-    A box whose west edge lies east of its east edge crosses the date line and is drawn as
-    two rectangles; longitudes are brought into [-180, 180) like the maps'.
+    None for global, land or ocean.  A box whose west edge lies east of its east edge
+    crosses the date line and is two rectangles; longitudes are brought into [-180, 180)
+    like the maps'.
     """
     r = parse_region(region)
     boxes: list[tuple[float, float, float, float]] = []
@@ -195,10 +215,15 @@ def region_outline(region: str) -> hv.Overlay:
             boxes.append((-180.0 if full else west, r.south, 180.0 if full else east, r.north))
         else:
             boxes += [(west, r.south, 180.0, r.north), (-180.0, r.south, east, r.north)]
+    return boxes
+
+
+def region_outline(region: str) -> hv.Overlay:
+    """Dashed rectangles around the selected region (:func:`region_boxes`), for the figure export."""
     layers = [
         hv.Bounds(b).opts(color="#111111", line_width=1.5, line_dash="dashed", backend="bokeh").opts(
             color="#111111", linewidth=1.0, linestyle="--", backend="matplotlib")
-        for b in boxes
+        for b in region_boxes(region)
     ]
     return hv.Overlay(layers)
 
@@ -239,6 +264,207 @@ def _title(kind: str, source: str, reference: str) -> str:
     }[kind]
 
 
+# ---------------------------------------------------------------------------- the page's maps
+# The page draws its maps as plain Bokeh models, built once per layout (the number and kind
+# of the maps) and updated in place when only their numbers change (season, period, region,
+# reference, variable): new arrays into the data sources, a new range into the colour mapper,
+# new titles, no new models.  Drawn through HoloViews, four maps were ~280 Bokeh models and
+# ~0.9 CPU-s of the server's event loop per drawing (71 % of that loop with ten sessions
+# open, py-spy, 2026-12-02), and every season or field picked drew them all again.
+# HoloViews still draws the PNG/SVG figure (matplotlib), from elements built only when a
+# download asks for it (MapsView.figure).
+
+_XTICKS = [-180, -120, -60, 0, 60, 120, 180]
+_YTICKS = [-90, -60, -30, 0, 30, 60, 90]
+#: The delimiters of TeX that Bokeh typesets in a title or label given as a string.
+_TEX = ("$$", "\\[", "\\]", "\\(", "\\)")
+
+
+def canvas_text(text: Any) -> str | PlainText:
+    """A name for a Bokeh title or colour-bar label, drawn as written.
+
+    Bokeh paints titles and labels on the canvas (never HTML), but typesets a string that
+    holds TeX delimiters (``$$...$$``, ``\\[...\\]``, ``\\(...\\)``) with MathJax; such a
+    name is wrapped in :class:`~bokeh.models.PlainText`, which Bokeh draws as it is.
+    """
+    text = str(text)
+    return PlainText(text=text) if any(d in text for d in _TEX) else text
+
+
+def _step(values: np.ndarray) -> float:
+    return float(values[1] - values[0]) if values.size > 1 else 1.0
+
+
+def image_columns(field: xr.DataArray) -> dict[str, list]:
+    """The columns of a Bokeh ``image`` glyph for a field on a regular grid.
+
+    ``field`` comes from :func:`display_grid` (latitude ascending, so the first row is
+    the southernmost, Bokeh's default origin).  Single precision: about seven digits, more
+    than a colour or a hover value shows, at half the bytes per map sent to each page.
+    """
+    lon = np.asarray(field["lon"].values, dtype="float64")
+    lat = np.asarray(field["lat"].values, dtype="float64")
+    dx, dy = _step(lon), _step(lat)
+    values = np.ascontiguousarray(field.transpose("lat", "lon").values, dtype="float32")
+    return {"image": [values], "x": [lon[0] - dx / 2], "y": [lat[0] - dy / 2], "dw": [dx * lon.size], "dh": [dy * lat.size]}
+
+
+def _edges(centres: np.ndarray, low: float, high: float) -> np.ndarray:
+    """Cell edges half-way between the centres (the outer ones as far out as the next)."""
+    if centres.size == 1:
+        return np.array([centres[0] - 0.5, centres[0] + 0.5])
+    middle = (centres[1:] + centres[:-1]) / 2
+    return np.clip(np.concatenate([[2 * centres[0] - middle[0]], middle, [2 * centres[-1] - middle[-1]]]), low, high)
+
+
+def quad_columns(field: xr.DataArray) -> dict[str, np.ndarray]:
+    """The columns of a Bokeh ``quad`` glyph, one rectangle per cell, for an uneven grid.
+
+    A Gaussian grid's rows are unevenly spaced; an image would misplace them
+    (holoviz/holoviews#1869 is the same limit), so each cell is drawn between the
+    mid-points of its neighbours' centres.
+    """
+    lon = np.asarray(field["lon"].values, dtype="float64")
+    lat = np.asarray(field["lat"].values, dtype="float64")
+    x, y = _edges(lon, -540.0, 540.0), _edges(lat, -90.0, 90.0)
+    left, bottom = np.meshgrid(x[:-1], y[:-1])
+    right, top = np.meshgrid(x[1:], y[1:])
+    values = np.asarray(field.transpose("lat", "lon").values, dtype="float32").ravel()
+    return {"left": left.ravel(), "right": right.ravel(), "bottom": bottom.ravel(), "top": top.ravel(), "value": values}
+
+
+def dot_columns(flags: xr.DataArray) -> dict[str, np.ndarray]:
+    """The dots of a significance flag field (:func:`stipple_points`), longitudes in -180..180."""
+    lon, lat = stipple_points(flags)
+    lon = np.where(lon >= 180.0, lon - 360.0, lon)
+    return {"x": np.asarray(lon, dtype="float32"), "y": np.asarray(lat, dtype="float32")}
+
+
+def _box_setter(selection: Any) -> Callable[[SelectionGeometry], None]:
+    """What the box-select tool does: the drawn box becomes the region.
+
+    A plain function of the selection, not a bound method of the view, so that the
+    figures' event callbacks hold nothing of the view (holoviz/panel#4116).
+    """
+
+    def set_box(event: SelectionGeometry) -> None:
+        geometry = event.geometry or {}
+        if not event.final or geometry.get("type") != "rect":
+            return
+        try:
+            west, east = sorted(float(geometry[k]) for k in ("x0", "x1"))
+            south, north = sorted(float(geometry[k]) for k in ("y0", "y1"))
+        except (KeyError, TypeError, ValueError):
+            return
+        south, north = max(-90.0, south), min(90.0, north)
+        west, east = max(-180.0, west), min(180.0, east)
+        if north - south < 1 or east - west < 1:
+            return
+        selection.region = f"box:{south:.0f},{north:.0f},{west:.0f},{east:.0f}"
+
+    return set_box
+
+
+class MapFigures:
+    """The Bokeh models of one layout of maps, and their update in place.
+
+    ``shape`` holds, per map, whether its values are signed (diverging palette), whether it
+    is stippled and whether its grid is regular (image) or not (one rectangle per cell);
+    another shape needs other models, anything else is an :meth:`update`.
+    """
+
+    def __init__(self, shape: tuple[tuple[bool, bool, bool], ...], selection: Any) -> None:
+        self.shape = shape
+        signed = shape[0][0]
+        x_range, y_range = Range1d(-180, 180), Range1d(-90, 90)  # shared by every map: linked zoom
+        x_ticks, y_ticks = FixedTicker(ticks=_XTICKS), FixedTicker(ticks=_YTICKS)
+        # one colour range for all maps of a kind (colour_range): one mapper; NaN transparent
+        self.mapper = LinearColorMapper(palette=DIVERGING if signed else SEQUENTIAL, low=-1.0, high=1.0, nan_color="rgba(0, 0, 0, 0)")
+        self.coast = ColumnDataSource(coastline_lines())
+        self.outline = ColumnDataSource({"left": [], "right": [], "bottom": [], "top": []})
+        set_box = _box_setter(selection)
+        self.figures: list[Any] = []
+        self.sources: list[ColumnDataSource] = []
+        self.dots: list[ColumnDataSource | None] = []
+        self.hovers: list[HoverTool] = []
+        self.bars: list[ColorBar] = []
+        for _signed, stippled, regular in shape:
+            fig = bokeh_figure(
+                x_range=x_range, y_range=y_range, tools=[], toolbar_location=None, sizing_mode="scale_width", width=560, height=290,
+                min_height=220, x_axis_label="Longitude (°E)", y_axis_label="Latitude (°N)",
+            )
+            fig.xaxis.ticker, fig.yaxis.ticker = x_ticks, y_ticks
+            fig.grid.visible = False
+            if regular:
+                source = ColumnDataSource({"image": [], "x": [], "y": [], "dw": [], "dh": []})
+                shown = fig.image(image="image", x="x", y="y", dw="dw", dh="dh", source=source, color_mapper=self.mapper)
+                value = "@image{%.4g}"
+                formatters = {"@image": "printf"}
+            else:
+                source = ColumnDataSource({"left": [], "right": [], "bottom": [], "top": [], "value": []})
+                shown = fig.quad(left="left", right="right", bottom="bottom", top="top", source=source, line_color=None,
+                                 fill_color={"field": "value", "transform": self.mapper})
+                value = "@value{%.4g}"
+                formatters = {"@value": "printf"}
+            fig.line("x", "y", source=self.coast, line_color="#ffffff", line_width=2.2, line_alpha=0.55)
+            fig.line("x", "y", source=self.coast, line_color="#1f2933", line_width=0.8, line_alpha=0.9)
+            fig.quad(left="left", right="right", bottom="bottom", top="top", source=self.outline, fill_alpha=0.0,
+                     line_color="#111111", line_width=1.5, line_dash="dashed")
+            dots = None
+            if stippled:
+                dots = ColumnDataSource({"x": [], "y": []})
+                fig.scatter("x", "y", source=dots, size=3, fill_color="#111111", line_color="#ffffff", line_width=0.4)
+            # Tooltip labels are set as text by Bokeh; only the value templates are HTML,
+            # and they hold our own words and placeholders, whose values Bokeh escapes.
+            hover = HoverTool(renderers=[shown], tooltips=[("Longitude", "$x{0.00} °E"), ("Latitude", "$y{0.00} °N"), ("", value)],
+                              formatters=formatters)
+            pan, wheel = PanTool(), WheelZoomTool()
+            fig.add_tools(pan, wheel, BoxZoomTool(), BoxSelectTool(renderers=[shown]), ResetTool(), SaveTool(), hover)
+            fig.toolbar.active_drag, fig.toolbar.active_scroll = pan, wheel
+            fig.on_event(SelectionGeometry, set_box)
+            bar = ColorBar(color_mapper=self.mapper, width=12)
+            fig.add_layout(bar, "right")
+            self.figures.append(fig)
+            self.sources.append(source)
+            self.dots.append(dots)
+            self.hovers.append(hover)
+            self.bars.append(bar)
+        self.grid = gridplot(self.figures, ncols=2 if len(self.figures) > 1 else 1, sizing_mode="stretch_width", toolbar_location="right",
+                             merge_tools=True)
+        self.grid.toolbar.logo = None
+        self.downloads: list[pn.widgets.FileDownload] = []
+        self.column: pn.Column | None = None
+
+    def update(self, fields: list[xr.DataArray], items: list[MapField], masks: list[xr.DataArray | None],
+               clim: tuple[float, float], region: str) -> None:
+        """New numbers, range, titles and outline into the existing models."""
+        self.mapper.update(low=clim[0], high=clim[1])
+        boxes = region_boxes(region)
+        self.outline.data = {"left": [b[0] for b in boxes], "right": [b[2] for b in boxes],
+                             "bottom": [b[1] for b in boxes], "top": [b[3] for b in boxes]}
+        for i, (field, item, mask) in enumerate(zip(fields, items, masks, strict=True)):
+            _signed, stippled, regular = self.shape[i]
+            self.sources[i].data = image_columns(field) if regular else quad_columns(field)
+            dots = self.dots[i]
+            if dots is not None and mask is not None:
+                dots.data = dot_columns(mask)
+            units = str(item.data.attrs.get("units", ""))
+            _set(self.figures[i].title, "text", canvas_text(item.title))
+            _set(self.bars[i], "title", canvas_text(units) if units else None)
+            label = f"{item.quantity} ({units})" if units else item.quantity
+            tooltips = self.hovers[i].tooltips
+            if tooltips[-1][0] != label:
+                self.hovers[i].tooltips = [*tooltips[:-1], (label, tooltips[-1][1])]
+
+
+def _set(model: Any, name: str, value: Any) -> None:
+    """Set a property only when it changes (a change is a message to the page)."""
+    old = getattr(model, name)
+    same = old == value if not isinstance(old, PlainText) else isinstance(value, PlainText) and old.text == value.text
+    if not same:
+        setattr(model, name, value)
+
+
 class MapsView(ResultView):
     """Maps of the selected field: reference and runs, or their differences."""
 
@@ -268,23 +494,50 @@ class MapsView(ResultView):
     def key(self, request: Request) -> Any:
         return (request.variable, request.level, request.reference, request.models, request.region, request.season, request.period, request.field)
 
-    async def load(self, request: Request) -> dict[str, Any]:
-        results = self.results
-        items = []
+    def _products(self, request: Request) -> list[tuple[str, str, bool, tuple, tuple | None]]:
+        """Per map: kind, source, signed, the arguments of its field and of its stippling (or None)."""
+        out = []
         for kind, source, signed in self._layout_of(request):
-            args = (request.reference, request.variable, request.period, request.season, kind, source, request.level, request.target_grid)
-            data = await results.fetch(("map",) + args, results.map_field, *args)
-            items.append(MapField(source=source, title=_title(kind, source, request.reference), data=data, signed=signed, quantity=_QUANTITY[kind]))
-        masks = []
-        for kind, source, _ in self._layout_of(request):
-            if kind not in _STIPPLED:
-                masks.append(None)
-                continue
-            args = (request.reference, request.variable, request.period, request.season, f"{kind}_significance", source, request.level, request.target_grid)
-            masks.append(await results.fetch(("map",) + args, results.map_field, *args))
+            common = (request.reference, request.variable, request.period, request.season)
+            tail = (source, request.level, request.target_grid)
+            mask = common + (f"{kind}_significance",) + tail if kind in _STIPPLED else None
+            out.append((kind, source, signed, common + (kind,) + tail, mask))
+        return out
+
+    def _data(self, request: Request, fields: list[xr.DataArray], masks: list[xr.DataArray | None]) -> dict[str, Any]:
+        items = [
+            MapField(source=source, title=_title(kind, source, request.reference), data=data, signed=signed, quantity=_QUANTITY[kind])
+            for (kind, source, signed, _, _), data in zip(self._products(request), fields, strict=True)
+        ]
         return {"items": items, "masks": masks}
 
+    async def load(self, request: Request) -> dict[str, Any]:
+        results = self.results
+        products = self._products(request)
+        fields = [await results.fetch(("map",) + args, results.map_field, *args) for _, _, _, args, _ in products]
+        masks = [None if args is None else await results.fetch(("map",) + args, results.map_field, *args) for *_, args in products]
+        return self._data(request, fields, masks)
+
+    def ready(self, request: Request) -> dict[str, Any] | None:
+        """The maps' numbers when every one is already computed (none is computed here)."""
+        cache = self.results.products
+        found = {}
+        for *_, args, mask in self._products(request):
+            for a in (args, mask):
+                if a is not None:
+                    value = cache.get(("map",) + a, None)
+                    if value is None:
+                        return None
+                    found[a] = value
+        products = self._products(request)
+        return self._data(request, [found[p[3]] for p in products], [None if p[4] is None else found[p[4]] for p in products])
+
+    def has_figure(self, data: dict[str, Any], request: Request) -> bool:
+        items: list[MapField] = data["items"]
+        return bool(items) and colour_range([i.data for i in items], signed=items[0].signed) is not None
+
     def figure(self, data: dict[str, Any], request: Request) -> hv.Layout | None:
+        """The maps as HoloViews elements, for the PNG/SVG export only (the page draws :class:`MapFigures`)."""
         items: list[MapField] = data["items"]
         if not items:
             return None
@@ -304,47 +557,41 @@ class MapsView(ResultView):
         return layout.opts(shared_axes=True, backend="bokeh").opts(title=plot_title(title), sublabel_format="", backend="matplotlib")
 
     def draw(self, data: dict[str, Any], request: Request) -> pn.viewable.Viewable:
-        figure = self.figure(data, request)
-        if figure is None:
+        items: list[MapField] = data["items"]
+        masks = data.get("masks") or [None] * len(items)
+        clim = colour_range([i.data for i in items], signed=items[0].signed) if items else None
+        if clim is None:
+            self._maps = None
             return pn.pane.HTML('<div class="gs-empty">No valid values in this field for the selected period and season.</div>')
-        plot = figure_pane(figure)  # the maps share their axes inside the layout
-        self._watch_box(plot)
-        masks = data.get("masks") or [None] * len(data["items"])
-        downloads = [self._field_download(item, request, mask) for item, mask in zip(data["items"], masks, strict=True)]
-        legend = []
-        if any(m is not None for m in masks):
-            legend.append(pn.pane.HTML(f'<div class="gs-hint gs-stipple-legend">{STIPPLE_LEGEND[0].upper() + STIPPLE_LEGEND[1:]}: {STIPPLE_RULE}</div>', margin=(0, 10, 4, 10)))
-        return pn.Column(
-            plot,
-            *legend,
-            pn.Row(pn.pane.HTML('<span class="gs-hint">Fields as CF NetCDF:</span>', margin=(12, 4)), *downloads),
-            sizing_mode="stretch_width",
-        )
-
-    # ------------------------------------------------------------------ box region
-    def _watch_box(self, plot: pn.pane.HoloViews) -> None:
-        # One stream per drawing, tied to the first map; it goes away with the drawing.
-        # A plain function, not a bound method of this view, so that the stream's
-        # subscriber list does not keep the view alive (holoviz/panel#4116).
-        selection = self.selection
-        overlay = plot.object
-        first = next(iter(overlay)) if isinstance(overlay, hv.Layout) else overlay
-        image = first.get(0) if isinstance(first, hv.Overlay) else first
-
-        def set_box(bounds: tuple[float, float, float, float] | None = None) -> None:
-            if bounds is None:
-                return
-            west, south, east, north = (float(v) for v in bounds)
-            south, north = max(-90.0, min(south, north)), min(90.0, max(south, north))
-            west, east = max(-180.0, west), min(180.0, east)
-            if north - south < 1 or east - west < 1:
-                return
-            selection.region = f"box:{south:.0f},{north:.0f},{west:.0f},{east:.0f}"
-
-        hv.streams.BoundsXY(source=image, subscribers=[set_box])
+        fields = [display_grid(i.data) for i in items]
+        shape = tuple((i.signed, m is not None, _regular(f["lon"].values) and _regular(f["lat"].values))
+                      for i, m, f in zip(items, masks, fields, strict=True))
+        maps: MapFigures | None = getattr(self, "_maps", None)
+        if maps is None or maps.shape != shape:  # another number or kind of maps: new models
+            maps = MapFigures(shape, self.selection)
+            maps.downloads = [self._field_download(item, request, mask) for item, mask in zip(items, masks, strict=True)]
+            legend = []
+            if any(m is not None for m in masks):
+                legend.append(pn.pane.HTML(f'<div class="gs-hint gs-stipple-legend">{STIPPLE_LEGEND[0].upper() + STIPPLE_LEGEND[1:]}: {STIPPLE_RULE}</div>', margin=(0, 10, 4, 10)))
+            maps.column = pn.Column(
+                pn.pane.Bokeh(maps.grid, sizing_mode="stretch_width"),
+                *legend,
+                pn.Row(pn.pane.HTML('<span class="gs-hint">Fields as CF NetCDF:</span>', margin=(12, 4)), *maps.downloads),
+                sizing_mode="stretch_width",
+            )
+            self._maps = maps
+        else:
+            for button, item, mask in zip(maps.downloads, items, masks, strict=True):
+                settings = self._download_settings(item, request, mask)
+                if button.data is not None:
+                    settings["data"] = None  # the file sent before is of other numbers
+                button.param.update(**settings)
+        maps.update(fields, items, masks, clim, request.region)
+        return maps.column
 
     # ------------------------------------------------------------------ NetCDF downloads
-    def _field_download(self, item: MapField, request: Request, mask: xr.DataArray | None = None) -> pn.widgets.FileDownload:
+    def _download_settings(self, item: MapField, request: Request, mask: xr.DataArray | None = None) -> dict[str, Any]:
+        """What a map's download button says and sends (set again when the maps are updated in place)."""
         results = self.results
         args = (request.reference, request.variable, request.period, request.region, request.season, request.level, request.target_grid)
 
@@ -355,16 +602,16 @@ class MapsView(ResultView):
             payload = await results.run(lambda: field_bytes(with_mask(item.data, mask, request.variable), provenance=mine))
             return io.BytesIO(payload)
 
-        filename = safe_filename(request.variable, item.title.replace(" ", "-"), request.season, request.period) + ".nc"
-        return pn.widgets.FileDownload(
-            callback=make,
-            filename=filename,
-            label=item.title,
-            color="light",
-            width=min(320, 60 + 8 * len(item.title)),
-            height=34,
+        return {
+            "callback": make,
+            "filename": safe_filename(request.variable, item.title.replace(" ", "-"), request.season, request.period) + ".nc",
+            "label": item.title,
+            "width": min(320, 60 + 8 * len(item.title)),
             # the title holds run and reference names (folder names, manifest): text only
-            description=text_tooltip(f"Download '{item.title}' as CF NetCDF with provenance"),
-            css_classes=["gs-download-nc"],
-        )
+            "description": text_tooltip(f"Download '{item.title}' as CF NetCDF with provenance"),
+        }
 
+    def _field_download(self, item: MapField, request: Request, mask: xr.DataArray | None = None) -> pn.widgets.FileDownload:
+        return pn.widgets.FileDownload(
+            **self._download_settings(item, request, mask), color="light", height=34, css_classes=["gs-download-nc"],
+        )
