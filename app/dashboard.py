@@ -10,7 +10,7 @@ import panel as pn
 
 from .state import TABS, Selection
 from .views.about import About
-from .views.base import ResultView
+from .views.base import ResultView, on_document
 from .views.budget import BudgetView, budget_available
 from .views.controls import Controls
 from .views.cycle import CycleView
@@ -40,24 +40,56 @@ def available_tabs(results: Results) -> list[str]:
     return [v.tab for v in VIEWS if v not in needs or needs[v](results)]
 
 
+#: What a tab that is not always offered needs, as the notice says when it is gone.
+_NEEDS = {SectionView.tab: "a variable on vertical levels", BudgetView.tab: "the four fluxes of the energy budget"}
+
+
 def build(selection: Selection, results: Results) -> pn.template.BaseTemplate:
     """The whole page of one session."""
     load_extensions()
-    views = [view(selection=selection, results=results) for view in VIEWS if view.tab in selection.param.tab.objects]
-    tabs = pn.Tabs(*[(TABS[v.tab], v) for v in views], dynamic=True, sizing_mode="stretch_width", margin=(0, 4), css_classes=["gs-tabs"])
-    order = [v.tab for v in views]
+    made: dict[str, ResultView] = {}
+
+    def view(tab: str) -> ResultView:  # made when its tab is first offered
+        if tab not in made:
+            made[tab] = next(v for v in VIEWS if v.tab == tab)(selection=selection, results=results)
+        return made[tab]
+
+    order = list(selection.param.tab.objects)
+    tabs = pn.Tabs(*[(TABS[t], view(t)) for t in order], dynamic=True, sizing_mode="stretch_width", margin=(0, 4), css_classes=["gs-tabs"])
     tabs.active = order.index(selection.tab)
 
     def tab_picked(event) -> None:
-        selection.tab = order[event.new]
+        if event.new < len(order):
+            selection.tab = order[event.new]
 
     def tab_set(event) -> None:
         tabs.active = order.index(event.new)
-        for view in views:
-            view.update()
+        for shown in made.values():
+            shown.update()
+
+    def offer_tabs() -> None:
+        """The files changed: offer the tabs the collection can fill now (on the document)."""
+        wanted = available_tabs(results)
+        if wanted == order:
+            return
+        gone = selection.tab not in wanted
+        before = selection.tab
+        order[:] = wanted
+        selection.param.tab.objects = list(wanted)
+        selection.param.tab.default = wanted[0]
+        tabs[:] = [(TABS[t], view(t)) for t in wanted]
+        if gone:
+            selection.tab = wanted[0]  # its watcher shows that tab and draws it
+            selection.notify(f"No longer in the collection: {_NEEDS.get(before, 'what the ' + TABS[before] + ' tab needs')} "
+                             f"(the {TABS[before]} tab is gone; showing {TABS[wanted[0]]}).")
+        else:
+            tabs.active = order.index(selection.tab)
 
     tabs.param.watch(tab_picked, "active")
     selection.param.watch(tab_set, "tab")
+    doc = pn.state.curdoc
+    # refresh_options (after each new look at the files) bumps `choices`
+    selection.param.watch(lambda *events: on_document(doc, offer_tabs), "choices")
 
     template = page_template(
         title="gridscore",
