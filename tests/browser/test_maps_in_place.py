@@ -13,6 +13,7 @@ smallest and largest value of both fields (numpy ``nanmin``/``nanmax``).
 
 from __future__ import annotations
 
+import re
 import time
 from pathlib import Path
 
@@ -130,4 +131,36 @@ def test_a_season_change_updates_the_maps_in_place(browser, tmp_path: Path) -> N
         assert "season=JJA" in page.url  # the link follows
         assert session.errors() == []
         session.close()
+    results.close()
+
+
+def test_cached_maps_come_with_the_first_document(browser, tmp_path: Path) -> None:
+    """A page opened on maps another page has already computed gets them in its first
+    document (Bokeh's PULL-DOC-REPLY message holds the image glyphs), not in a later patch."""
+    root = tmp_path / "c"
+    ref = _write(root / "references" / "ref" / "data.nc", 0.0)
+    _write(root / "runs" / "a" / "data.nc", 1.5)
+    expected = _climatology(ref, "ANN")
+    results = Results(Collection.from_path(root))
+    address = "/?field=model_mean&season=ANN&period=2001-2003"
+    with serving(results) as url:
+        first = open_dashboard(browser, url + address)
+        wait_for_view(first.page, "maps")
+        _maps(first.page, season="ANN")
+        first.close()
+
+        context = browser.new_context(viewport={"width": 1500, "height": 1000})
+        page = context.new_page()
+        frames: list[str] = []
+        page.on("websocket", lambda ws: ws.on("framereceived", lambda payload: frames.append(payload if isinstance(payload, str) else "")))
+        page.goto(url + address, wait_until="domcontentloaded")
+        wait_for_view(page, "maps")
+        drawn = _maps(page, season="ANN")
+        _check(drawn[1], expected)
+        # Bokeh's protocol sends a message as header, metadata and content frames
+        header = next(i for i, f in enumerate(frames) if '"msgtype":"PULL-DOC-REPLY"' in f.replace(" ", ""))
+        content = frames[header + 2]
+        images = re.findall(r'"glyph":\{"type":"object","name":"Image","id":"[^"]+"', content)  # the renderers' glyphs
+        assert len(images) == 2, re.findall(r'.{60}"name":"Image".{60}', content)
+        context.close()
     results.close()
