@@ -945,6 +945,11 @@ class Comparison:
         r, clim_r = shared[key] if shared is not None else (r, r.mean(axis=0))
         clim_m = m.mean(axis=0)  # NaN in any year gives NaN, as climatology()
         mask = np.isfinite(clim_m) & np.isfinite(clim_r)
+        if mask.all():
+            # nothing to set to 0: read-only views of the arrays as they are (the reference's serves every run)
+            m, r = m.view(), r.view()
+            m.flags.writeable = r.flags.writeable = False
+            return years, m, r, clim_m, clim_r, mask
         return years, np.where(mask, m, 0.0), np.where(mask, r, 0.0), clim_m, clim_r, mask
 
     def _score_runs(self, scored: list[Source], season: str, against: str, regions: list[str], area: np.ndarray,
