@@ -171,8 +171,11 @@ def _loaded_season_means(da: xr.DataArray, steps: np.ndarray, labels: np.ndarray
     for i, year in enumerate(years):
         this = labels == year
         w = weights[this]
+        months = steps[this]
+        # consecutive months (a whole year, DJF across the new year): a view, not a copy, before float64
+        chosen = values[months[0]:months[-1] + 1] if np.all(np.diff(months) == 1) else values[months]
         # sum over the months of w * x, NaN in any month giving NaN (skipna=False), over sum(w)
-        out[i] = np.tensordot(w, values[steps[this]].astype("float64"), axes=1) / w.sum()
+        out[i] = np.tensordot(w, chosen.astype("float64"), axes=1) / w.sum()
     coords = {name: c for name, c in da.coords.items() if "time" not in c.dims}
     dims = [d for d in da.dims if d != "time"]
     result = xr.DataArray(out, dims=["year", *dims], coords={**coords, "year": years})  # unnamed, as the groupby quotient
