@@ -55,6 +55,7 @@ __all__ = [
     "RESAMPLES",
     "SEED",
     "ErrorMoments",
+    "banded_error_moments",
     "block_weights",
     "confirmed_best",
     "difference_intervals",
@@ -62,6 +63,7 @@ __all__ = [
     "expanded_tail",
     "lag1_autocorrelation",
     "resampled_scores",
+    "row_grams",
     "wilks_block_length",
 ]
 
@@ -209,6 +211,32 @@ def error_moments(difference: np.ndarray, weights: np.ndarray, years: np.ndarray
     # (years x cells) products with one BLAS thread, which the gridscore command sets; a
     # threaded BLAS on a shared machine spent ~80x the CPU time (benchmarks/significance.py).
     return ErrorMoments(np.asarray(years, dtype="float64"), dw @ d.T, dw.sum(axis=1))
+
+
+def row_grams(difference: np.ndarray, weights: np.ndarray, rows: int) -> np.ndarray:
+    """``(row, year, year)``: each row's ``D_row diag(u_row) D_rowᵀ`` of a ``(year, cell)`` field
+    whose cells are ``rows`` rows of equal length (a latitude-longitude map, row-major).
+
+    A region whose weights are ``f[row] × u`` (a band of latitudes: its fraction of each
+    cell depends on the row only) has the Gram matrix ``Σ f[row] G_row / Σw``
+    (:func:`banded_error_moments`): one pass over the cells serves every such region,
+    instead of one pass per region.  ``difference`` must be finite (0 times NaN is NaN).
+    """
+    n = difference.shape[0]
+    d = np.asarray(difference, dtype="float64").reshape(n, rows, -1).transpose(1, 0, 2)  # (row, year, cell of the row)
+    u = np.nan_to_num(np.asarray(weights, dtype="float64"), nan=0.0).reshape(rows, 1, -1)
+    return np.matmul(d * u, d.transpose(0, 2, 1))
+
+
+def banded_error_moments(grams: np.ndarray, row_fraction: np.ndarray, difference: np.ndarray, weights: np.ndarray,
+                         years: np.ndarray) -> ErrorMoments:
+    """:func:`error_moments` of a region whose cell weights ``weights`` are ``row_fraction[row]``
+    times the weights ``grams`` were made with (:func:`row_grams`): the same matrices up to
+    rounding (the sum over cells is taken row by row)."""
+    w = np.nan_to_num(np.asarray(weights, dtype="float64"), nan=0.0)
+    total = w.sum()
+    gram = np.tensordot(np.asarray(row_fraction, dtype="float64"), grams, axes=1) / total
+    return ErrorMoments(np.asarray(years, dtype="float64"), gram, np.asarray(difference, dtype="float64") @ w / total)
 
 
 def resampled_scores(moments: ErrorMoments, draws: np.ndarray) -> tuple[np.ndarray, np.ndarray]:

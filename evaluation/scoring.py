@@ -959,13 +959,21 @@ class Comparison:
 
         A run without a season in years the reference has is removed from ``scored`` and
         recorded as an omission.  ``moments`` (region -> run) collects what the bootstrap
-        of :func:`evaluation.bootstrap.difference_intervals` needs.
+        of :func:`evaluation.bootstrap.difference_intervals` needs; the regions whose
+        fraction of each cell depends on its latitude only (the whole map, latitude bands)
+        share one pass over the cells (:func:`evaluation.bootstrap.row_grams`).
         """
-        from .bootstrap import error_moments
+        from .bootstrap import banded_error_moments, error_moments, row_grams
         from .trends import detrend, ols_trend
 
         values: dict[str, dict[str, dict[str, float]]] = {r: {} for r in regions}
         shared: dict = {}  # the reference's arrays and moments, made once for every run
+        rows = self._target_grid.sizes["lat"]
+        by_row = {}  # region -> its fraction of the cells of each latitude row, when that is all it depends on
+        for region in regions:
+            f = fraction[region].reshape(rows, -1)
+            if f.shape[1] > 1 and (f == f[:, :1]).all():
+                by_row[region] = f[:, 0]
         for m in list(scored):
             years, ms_all, rs_all, clim_m, clim_r, mask = self._arrays(m.name, season, against, shared)
             if years.size == 0:
@@ -976,6 +984,7 @@ class Comparison:
                 continue
             significant, tested = self._significant_cells(ms_all, years, mask, against, shared)
             difference = ms_all - rs_all if moments is not None else None  # once for every region
+            grams = row_grams(difference, area * mask, rows) if moments is not None and len(by_row) > 1 else None
             for region in regions:
                 w = area * fraction[region] * mask
                 stats = pattern_stats(clim_m, clim_r, w, where=f"{m.name}, {region}, {season}")
@@ -1003,9 +1012,11 @@ class Comparison:
                 tested_w = w * tested
                 stats["bias_signif_area"] = float((tested_w * significant).sum() / tested_w.sum()) if tested_w.sum() > 0 else float("nan")
                 if moments is not None:
-                    moments.setdefault(region, {})[m.name] = error_moments(difference, w, years)
+                    moments.setdefault(region, {})[m.name] = (
+                        banded_error_moments(grams, by_row[region], difference, w, years) if grams is not None and region in by_row
+                        else error_moments(difference, w, years))
                 values[region][m.name] = stats
-            del ms_all, rs_all, difference
+            del ms_all, rs_all, difference, grams
         return values
 
     def _significant_cells(self, ms_all: np.ndarray, years: np.ndarray, mask: np.ndarray, against: str, shared: dict

@@ -108,3 +108,22 @@ def test_p_values_left_out_above_the_level_give_the_benjamini_hochberg_mask_of_s
     np.testing.assert_allclose(pvalue[computed], full[computed], rtol=1e-10)
     assert (full[~computed] > level).all()  # only p-values above the level were left out
     assert computed.sum() < cells  # and some were
+
+
+def test_gram_matrices_of_latitude_bands_from_row_sums_equal_the_direct_formula() -> None:
+    from evaluation.bootstrap import banded_error_moments, row_grams
+
+    rng = np.random.default_rng(17)
+    years, nlat, nlon = 20, 12, 24
+    d = rng.standard_normal((years, nlat * nlon))
+    lat = np.linspace(-82.5, 82.5, nlat)
+    area = np.repeat(np.cos(np.deg2rad(lat)), nlon) * (rng.random(nlat * nlon) > 0.1)  # some cells masked (weight 0)
+    grams = row_grams(d, area, nlat)
+    bands = {"whole map": np.ones(nlat), "tropics": (np.abs(lat) < 30).astype(float),
+             "a band partly covering its edge rows": np.clip((lat + 40.0) / 15.0, 0.0, 1.0) * (lat < 50)}
+    for name, f in bands.items():
+        w = area * np.repeat(f, nlon)
+        got = banded_error_moments(grams, f, d, w, np.arange(years))
+        # G = D diag(w) D^T / sum(w) and D w / sum(w), written out with einsum
+        np.testing.assert_allclose(got.gram, np.einsum("ic,jc,c->ij", d, d, w) / w.sum(), rtol=1e-12, atol=0, err_msg=name)
+        np.testing.assert_allclose(got.bias, np.einsum("ic,c->i", d, w) / w.sum(), rtol=1e-12, atol=1e-15, err_msg=name)
