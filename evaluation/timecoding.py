@@ -392,7 +392,8 @@ def _climatological_steps(ds: xr.Dataset, name: str, values: np.ndarray) -> bool
     over years``) — a climatology written without climatology bounds."""
     if values.size == 0 or values.size > 12 or len({t.year for t in values}) != 1 or len({t.month for t in values}) != values.size:
         return False
-    for var in ds.data_vars.values():
+    for v in ds.data_vars:
+        var = ds.variables[v]  # not ds[v]: a DataArray gathers every coordinate (slow for thousands of variables)
         methods = _text(var.attrs.get("cell_methods", "")).lower()
         if name in var.dims and ("within years" in methods or "over years" in methods):
             return True
@@ -627,11 +628,13 @@ class MonthlyMeans(BackendArray):
         axis = self.axis - sum(isinstance(k, (int, np.integer)) for k in other[:self.axis])
         w = self.weights[lo:hi].reshape([-1 if i == axis else 1 for i in range(values.ndim)])
         offsets = self.starts[months] - lo
-        if np.all(w == 1.0):
-            # steps of equal length (one day each; no bounds): w x is x, summed in float64 without a float64 copy
-            total = np.add.reduceat(values, offsets, axis=axis, dtype="float64")
-        else:
-            total = np.add.reduceat(values.astype("float64") * w, offsets, axis=axis)
+        if not np.all(w == 1.0):
+            values = values.astype("float64") * w
+        # else steps of equal length (one day each; no bounds): w x is x, summed in float64 without a float64 copy.
+        # One reduction per month: the same sums, in the same order, as numpy.add.reduceat, about 3x faster
+        ends = np.r_[offsets[1:], values.shape[axis]]
+        total = np.stack([np.add.reduce(values[(slice(None),) * axis + (slice(a, b),)], axis=axis, dtype="float64")
+                          for a, b in zip(offsets, ends, strict=True)], axis=axis)
         norm = np.add.reduceat(self.weights[lo:hi], offsets).reshape([-1 if i == axis else 1 for i in range(values.ndim)])
         return total / norm
 
