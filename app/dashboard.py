@@ -47,15 +47,25 @@ _NEEDS = {SectionView.tab: "a variable on vertical levels", BudgetView.tab: "the
 def build(selection: Selection, results: Results) -> pn.template.BaseTemplate:
     """The whole page of one session."""
     load_extensions()
+    # A view is made when its tab is first shown; until then its tab holds an empty column.
+    # Making all nine views (about 120 Panel objects, their download buttons the dearest) was
+    # 0.2-0.8 CPU-s of the event loop per page, for tabs most pages never open.
     made: dict[str, ResultView] = {}
+    holders: dict[str, pn.Column] = {}
 
-    def view(tab: str) -> ResultView:  # made when its tab is first offered
+    def holder(tab: str) -> pn.Column:
+        if tab not in holders:
+            holders[tab] = pn.Column(sizing_mode="stretch_width", margin=0)
+        return holders[tab]
+
+    def show(tab: str) -> None:
         if tab not in made:
             made[tab] = next(v for v in VIEWS if v.tab == tab)(selection=selection, results=results)
-        return made[tab]
+            holder(tab).objects = [made[tab]]
 
     order = list(selection.param.tab.objects)
-    tabs = pn.Tabs(*[(TABS[t], view(t)) for t in order], dynamic=True, sizing_mode="stretch_width", margin=(0, 4), css_classes=["gs-tabs"])
+    show(selection.tab)
+    tabs = pn.Tabs(*[(TABS[t], holder(t)) for t in order], dynamic=True, sizing_mode="stretch_width", margin=(0, 4), css_classes=["gs-tabs"])
     tabs.active = order.index(selection.tab)
 
     def tab_picked(event) -> None:
@@ -63,6 +73,7 @@ def build(selection: Selection, results: Results) -> pn.template.BaseTemplate:
             selection.tab = order[event.new]
 
     def tab_set(event) -> None:
+        show(event.new)
         tabs.active = order.index(event.new)
         for shown in made.values():
             shown.update()
@@ -77,7 +88,7 @@ def build(selection: Selection, results: Results) -> pn.template.BaseTemplate:
         order[:] = wanted
         selection.param.tab.objects = list(wanted)
         selection.param.tab.default = wanted[0]
-        tabs[:] = [(TABS[t], view(t)) for t in wanted]
+        tabs[:] = [(TABS[t], holder(t)) for t in wanted]
         if gone:
             selection.tab = wanted[0]  # its watcher shows that tab and draws it
             selection.notify(f"No longer in the collection: {_NEEDS.get(before, 'what the ' + TABS[before] + ' tab needs')} "
