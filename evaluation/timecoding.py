@@ -535,7 +535,7 @@ def to_monthly(ds: xr.Dataset, *, file: str | None = None) -> xr.Dataset:
         complete = {k for k, c in covered.items() if abs(c - _month_days(k // 12, k % 12 + 1, cal)) < 1e-6}
     else:
         weights = np.ones(dates.size)
-        step = float(np.median([(b - a).total_seconds() / 86400.0 for a, b in zip(dates[:-1], dates[1:], strict=True)])) if dates.size > 1 else 1.0
+        step = nominal  # the median step in days, as above
         complete = {k for k in np.unique(key) if int((key == k).sum()) == int(round(_month_days(k // 12, k % 12 + 1, cal) / step))}
     steps = np.flatnonzero(np.isin(key, sorted(complete)))
     months = np.array(sorted(complete), dtype="int64")
