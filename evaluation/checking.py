@@ -162,7 +162,7 @@ def check_file(path: str) -> FileReport:
             ]  # 2-D coordinates
             # CF flag variables (CF 1.10 section 3.5: flag_values/flag_meanings, no units) are
             # status masks beside a field, such as the stippling of a map download: not scored
-            flags = sorted(str(k) for k, var in raw.data_vars.items() if "flag_meanings" in var.attrs)
+            flags = sorted(str(k) for k in raw.data_vars if "flag_meanings" in raw.variables[k].attrs)
             report.variables = [v for v in report.variables if v["name"] not in flags]
             report.notes += [f"variable '{name}' is a CF flag variable (a mask beside the data), not scored" for name in flags]
             report.notes += list(desc.notes)
@@ -173,8 +173,8 @@ def check_file(path: str) -> FileReport:
                 # 'Time' of one step, a time without units): the variable does not read as timed
                 v["unplaced"] = [
                     {"name": str(d), "size": int(raw.sizes[d]), "has_coordinate": d in raw.variables}
-                    for d in raw[v["name"]].dims
-                    if d not in desc.dims and (d not in raw.variables or "units" not in raw[d].attrs)
+                    for d in raw.variables[v["name"]].dims
+                    if d not in desc.dims and (d not in raw.variables or "units" not in raw.variables[d].attrs)
                 ]
         ds = io.open_source([path], source=path)
     except InputError as err:
@@ -198,6 +198,8 @@ def check_file(path: str) -> FileReport:
     ]
     _check_variables(report, set(refused))
     for name in ds.data_vars:
+        if not {"valid_range", "valid_min", "valid_max"} & set(ds.variables[name].attrs):
+            continue
         try:
             low, high = io.valid_limits(ds[name])
         except InputError as err:
@@ -235,10 +237,10 @@ def _as_opened(entry: dict, ds: xr.Dataset) -> dict:
     (a ``month`` climatology dimension has become time; a single level has been squeezed)."""
     if entry["name"] not in ds.data_vars:
         return entry
-    da = ds[entry["name"]]
+    da = ds.variables[entry["name"]]  # not ds[name]: a DataArray gathers every coordinate
     levels = ""
     for dim in (d for d in da.dims if str(d).startswith("level")):
-        coord = ds[dim]
+        coord = ds.variables[dim]
         levels = f"{', '.join(f'{x:g}' for x in coord.values)} {coord.attrs.get('units', '')}".strip()
     return {**entry, "has_time": "time" in da.dims, "levels": levels, "unplaced": [] if "time" in da.dims else entry.get("unplaced", [])}
 

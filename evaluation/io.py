@@ -185,17 +185,19 @@ def _listing(path: str) -> dict[str, dict[str, str]]:
             cells = int(np.prod([ds.sizes[d] for d in horizontal])) if horizontal else 0
             steps = str(_raw_steps_per_month(ds))  # sizes dask chunks; here, not in one more open of the file
             out = {}
-            for name, var in ds.data_vars.items():
+            time_axis = find_axis(ds, "time")  # once: it looks at every variable
+            for name in ds.data_vars:
+                var = ds.variables[name]  # not ds[name]: a DataArray gathers every coordinate
                 if horizontal and set(horizontal) <= set(var.dims):
                     out[str(name)] = {
                         "standard_name": str(var.attrs.get("standard_name", "")),
                         "units": str(var.attrs.get("units", "")),
                         "long_name": str(var.attrs.get("long_name", "")),
-                        "has_time": str(any(find_axis(ds, "time") == d for d in var.dims)),
+                        "has_time": str(time_axis is not None and time_axis in var.dims),
                         "cells": str(cells),
                         "steps_per_month": steps,
                         "bytes": str(_decoded_bytes(var)),
-                        **_level_listing(ds, var, (*horizontal, find_axis(ds, "time"))),
+                        **_level_listing(ds, var, (*horizontal, time_axis)),
                     }
     except InputError:
         raise
@@ -542,7 +544,7 @@ def normalise(ds: xr.Dataset, *, source: str | os.PathLike[str] | None = None, f
     horizontal = desc.dims
     own = {*horizontal, time_name}
 
-    keep = [v for v in ds.data_vars if desc.holds(ds[v]) and v not in (desc.lat, desc.lon) and not _is_position(ds[v])]
+    keep = [v for v in ds.data_vars if desc.holds(ds.variables[v]) and v not in (desc.lat, desc.lon) and not _is_position(ds.variables[v])]
     out = _with_cell_measures(ds, ds[keep], keep, desc)
     # coordinates on other dimensions go; so do the file's own centre variables on the
     # horizontal dimensions (2-D lat/lon, latCell ...): the grid module writes canonical ones
@@ -587,9 +589,9 @@ def _vertical(ds: xr.Dataset, out: xr.Dataset) -> tuple[xr.Dataset, dict[str, st
     refused: dict[str, str] = {}
     kept: dict[str, object] = {}
     for v in list(out.data_vars):
-        extra = [d for d in out[v].dims if d not in ("time", *_HORIZONTAL_DIMS)]
+        extra = [d for d in out.variables[v].dims if d not in ("time", *_HORIZONTAL_DIMS)]
         if not extra:
-            text = scalar_level(out[v])  # a CF scalar coordinate (height = 2 m) names the one level
+            text = scalar_level(out, v)  # a CF scalar coordinate (height = 2 m) names the one level
             if text:
                 out[v].attrs["gridscore_single_level"] = text
             continue
@@ -638,7 +640,7 @@ def _with_cell_measures(ds: xr.Dataset, out: xr.Dataset, keep: list, desc: grids
     names an area variable (m²) on the grid's dimensions; the grid module computes the
     area otherwise."""
     for v in keep:
-        m = re.search(r"area:\s*(\S+)", _attr(ds[v], "cell_measures") or "")
+        m = re.search(r"area:\s*(\S+)", _attr(ds.variables[v], "cell_measures") or "")
         if m and m.group(1) in ds.variables:
             area = ds[m.group(1)]
             if set(area.dims) == set(desc.dims) and str(area.attrs.get("units", "m2")).replace(" ", "") in ("m2", "m^2", "m**2"):

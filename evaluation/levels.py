@@ -241,13 +241,17 @@ def describe_vertical(ds: xr.Dataset, dim: str) -> VerticalAxis | None:
     return VerticalAxis(dim, values, units, positive or KINDS[kind].positive, kind)
 
 
-def scalar_level(var: xr.DataArray) -> str:
-    """The level a CF scalar coordinate of ``var`` names (``height = 2 m``, ``plev = 50000 Pa``;
-    cf-conventions 5.7), as :meth:`VerticalAxis.labels` writes it, or '' when it has none."""
-    for name, coord in var.coords.items():
-        if coord.ndim != 0 or name in var.dims:
+def scalar_level(ds: xr.Dataset, name: str) -> str:
+    """The level that a CF scalar coordinate named in the ``coordinates`` attribute of
+    variable ``name`` gives (``height = 2 m``, ``plev = 50000 Pa``; cf-conventions 5.7), as
+    :meth:`VerticalAxis.labels` writes it, or '' when it has none.  Only the variable's own
+    ``coordinates`` count: xarray attaches a dataset's scalar coordinates to every variable."""
+    var = ds.variables[name]
+    for coord_name in str(var.encoding.get("coordinates", var.attrs.get("coordinates", ""))).split():
+        coord = ds.variables.get(coord_name)
+        if coord is None or coord.ndim != 0:
             continue
-        axis = describe_vertical(xr.Dataset(coords={name: ((name,), [coord.values], coord.attrs)}), str(name))
+        axis = describe_vertical(xr.Dataset(coords={coord_name: ((coord_name,), [coord.values], coord.attrs)}), coord_name)
         if axis is not None and axis.kind is not None:
             return axis.labels()[0]
     return ""
