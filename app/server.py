@@ -480,6 +480,8 @@ def serve(
             "Anyone who can reach this port can use the dashboard; add --password to require one.",
             file=sys.stderr,
         )
+    # Panel's and HoloViews' set-up while the collection is still being opened on its own thread
+    load_extensions()
     results = load_results(path) if opened is None else opened.result()
     if not results.variables():
         print("gridscore: WARNING: no variable is held by both a model run and a reference; "
