@@ -28,7 +28,7 @@ from .cache import Cache, default_cache
 from .errors import InputError
 from .export import TIDY_COLUMNS
 from .grids import REGRID_METHODS, describe_method, grid_of, regrid, same_grid
-from .grids.target import parse_target_grid, regular_grid, regular_near
+from .grids.target import covered_part, parse_target_grid, regular_grid, regular_near
 from .levels import LEVEL_DIM, interpolate_levels, parse_level, section_scores, section_weights, select_level
 from .metrics import METRICS, pattern_stats, relative_errors, weighted_mean, zonal_mean
 from .names import repeated
@@ -529,7 +529,9 @@ class Comparison:
             describe_method(self._grids[name].attrs["grid_kind"], self.regrid_method)  # refuses e.g. bilinear from a mesh
         if choice.is_resolution:
             assert choice.dlat is not None and choice.dlon is not None
-            return regular_grid(choice.dlat, choice.dlon), f"global regular {choice.dlat:g}° x {choice.dlon:g}° grid"
+            # a regional rotated or curvilinear primary: its edge cells count with the part it covers
+            grid = covered_part(regular_grid(choice.dlat, choice.dlon), self._grids[self.reference.name])
+            return grid, f"global regular {choice.dlat:g}° x {choice.dlon:g}° grid"
         name = choice.source or self.reference.name
         if name not in self._grids or name not in self._sources:
             raise InputError(f"the target grid '{name}' is not a source of this comparison", remedy="use --target-grid reference or a spacing such as 2.5x2.5")

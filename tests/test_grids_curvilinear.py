@@ -139,7 +139,8 @@ def test_one_cell_wide_without_bounds_is_refused(tmp_path):
         io.open_source(str(write_curvilinear(tmp_path / "w.nc", lat=lat2, lon=lon2, years=1)))
 
 
-def test_a_regional_grid_weights_the_target_cells_on_its_edge_by_the_part_it_covers(tmp_path, monkeypatch):
+@pytest.mark.parametrize("target", [[], ["--target-grid", "1x1"]], ids=["box around the domain", "global 1x1"])
+def test_a_regional_grid_weights_the_target_cells_on_its_edge_by_the_part_it_covers(tmp_path, monkeypatch, target):
     """The default target of a regional curvilinear reference is a regular box around it; a
     box cell on the domain's edge is partly outside, and its value is the mean of the covered
     part. The area mean must weight that cell by the covered part only, so it equals the mean
@@ -160,7 +161,7 @@ def test_a_regional_grid_weights_the_target_cells_on_its_edge_by_the_part_it_cov
     area = np.array([[abs(geod.polygon_area_perimeter(lon_v[j, i], lat_v[j, i])[0]) for i in range(lat.shape[1])] for j in range(lat.shape[0])])
     expected = float((ring * area).sum() / area.sum())  # area-weighted mean over the source cells (common practice)
     out = tmp_path / "s.csv"
-    assert main(["score", "--reference", f"ref={path}", "--model", f"run={path}", "--variable", "pr", "--season", "JAN", "--output", str(out)]) == 0
+    assert main(["score", "--reference", f"ref={path}", "--model", f"run={path}", "--variable", "pr", "--season", "JAN", "--output", str(out), *target]) == 0
     table = pd.read_csv(out)
     mean = float(table.loc[table["metric"] == "mean", "value"].iloc[0])
     # the overlaps are of cells sampled along their edges (about 1e-5 of a cell's area); counting

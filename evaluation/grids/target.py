@@ -24,7 +24,7 @@ from ..errors import InputError
 from .regular import cell_area
 from .spherical import EARTH_RADIUS
 
-__all__ = ["TargetChoice", "SPACINGS", "parse_target_grid", "regular_grid", "regular_near"]
+__all__ = ["TargetChoice", "SPACINGS", "parse_target_grid", "regular_grid", "regular_near", "covered_part"]
 
 #: Spacings (degrees) offered for a grid close to an irregular one: each divides 180 and 360.
 SPACINGS = (0.1, 0.125, 0.2, 0.25, 0.5, 0.75, 1.0, 1.25, 1.5, 2.0, 2.5, 3.0, 4.0, 5.0, 7.5, 10.0)
@@ -122,20 +122,21 @@ def regular_near(grid: xr.Dataset) -> tuple[xr.Dataset, float]:
     shifted = np.where(lon < 0, lon + 360.0, lon)
     if east - west > 180.0 and float(np.nanmax(shifted) - np.nanmin(shifted)) < east - west:
         west, east = -180.0, 180.0  # the cells straddle the dateline: keep every longitude
-    return _covered_part(regular_grid(d, d, south=south, north=north, west=west, east=east), grid), mean
+    return covered_part(regular_grid(d, d, south=south, north=north, west=west, east=east), grid), mean
 
 
-def _covered_part(target: xr.Dataset, grid: xr.Dataset) -> xr.Dataset:
+def covered_part(target: xr.Dataset, grid: xr.Dataset) -> xr.Dataset:
     """``target`` whose ``cell_area`` (the area weight of every score) is only the part of
     each cell that the regional ``grid``'s cells cover.
 
     A target cell on the edge of a regional domain is partly outside it; its remapped value
     is the mean over the covered part, so weighting it by the whole cell would count the
     domain's edge too much (measured: 4 % on the global mean of a 62x59 regional model's
-    precipitation).  Meshes keep whole cells (their regional map bins cell centres).
+    precipitation).  Meshes keep whole cells (their regional map bins cell centres); so does
+    a target that ``grid`` covers whole (a global grid: nothing to cut).
     """
     kind = grid.attrs.get("grid_kind")
-    if kind not in ("rotated", "curvilinear"):
+    if kind not in ("rotated", "curvilinear") or float(np.nansum(grid["cell_area"].values)) > 0.99 * 4 * np.pi * EARTH_RADIUS**2:
         return target
     from .remap_polygons import covered_area
 
