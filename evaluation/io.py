@@ -342,7 +342,7 @@ def open_source(
     files = expand_paths(paths, source=source)
     if variables:
         wanted = files_holding(files, variables, source=source)
-        fixed = [p for p in files if any(m["has_time"] == "False" for m in _listing(p).values())]
+        fixed = [p for p in files if _fixed_fields_only(p) or any(m["has_time"] == "False" for m in _listing(p).values())]
         files_to_open = sorted(set(wanted) | set(fixed))
         if not wanted:
             for p in files:
@@ -356,7 +356,7 @@ def open_source(
             )
     else:
         files_to_open = files
-    timed = [p for p in files_to_open if any(m["has_time"] == "True" for m in _listing(p).values())]
+    timed = [p for p in files_to_open if not _fixed_fields_only(p) and any(m["has_time"] == "True" for m in _listing(p).values())]
     untimed = [p for p in files_to_open if p not in timed]
     steps_per_month = _steps_per_month(timed[0]) if timed and chunks is None else 1.0
     plain = without_dask and chunks is None and _plain_read(timed, steps_per_month)
@@ -390,7 +390,14 @@ def open_source(
                         )
                     )
             for p in untimed:
-                parts.append(timecoding.decode(xr.open_dataset(p, chunks=None if plain else {}, **raw), file=p))
+                part = xr.open_dataset(p, chunks=None if plain else {}, **raw)
+                if _fixed_fields_only(p):
+                    # a land fraction stamped with one time step (as regional models write it):
+                    # a fixed field, whatever its stamp, beside the source's own time axis
+                    step = find_axis(part, "time")
+                    if step is not None and part.sizes.get(step) == 1:
+                        part = part.isel({step: 0}, drop=True)
+                parts.append(timecoding.decode(part, file=p))
     except InputError:
         raise
     except Exception as exc:
@@ -399,6 +406,12 @@ def open_source(
     ds.attrs.setdefault("gridscore_files", "\n".join(files_to_open))
     out = normalise(ds, source=source or (files_to_open[0] if len(files_to_open) == 1 else None), files=files_to_open)
     return timecoding.canonical(out)
+
+
+def _fixed_fields_only(path: str) -> bool:
+    """Whether every gridded variable of the file is a fixed field (:data:`FIXED_FIELDS`)."""
+    listing = _listing(path)
+    return bool(listing) and all(m["standard_name"] in FIXED_FIELDS for m in listing.values())
 
 
 def _decoded_bytes(var: xr.DataArray) -> int:
