@@ -369,7 +369,7 @@ def scores_key(
 
         level_label = parse_level(level).label()
     return Cache.key(
-        kind="scores-v8",  # v8: a regional rotated/curvilinear target weights its edge cells by the covered part; v7: significance rows (bias_signif_area, bootstrap intervals); v6: the provenance lists the files read
+        kind="scores-v9",  # v9: a land fraction file stamped with one time step shapes land/ocean; v8: a regional rotated/curvilinear target weights its edge cells by the covered part; v7: significance rows (bias_signif_area, bootstrap intervals); v6: the provenance lists the files read
         # every reference in order (the primary first), then the runs
         sources=[(s.name, s.role, [vars(f) for f in file_identity(expand_paths(s.paths, source=s.name))], sorted(s.names_in_files(variable).items()))
                  for s in [reference, *alternatives, *models]],
