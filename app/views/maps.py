@@ -25,11 +25,13 @@ import xarray as xr
 from bokeh.events import SelectionGeometry
 from bokeh.layouts import gridplot
 from bokeh.models import (
+    BasicTickFormatter,
     BoxSelectTool,
     BoxZoomTool,
     ColorBar,
     ColumnDataSource,
     FixedTicker,
+    Grid,
     HoverTool,
     LinearColorMapper,
     PanTool,
@@ -377,7 +379,7 @@ class MapFigures:
         self.shape = shape
         signed = shape[0][0]
         x_range, y_range = Range1d(-180, 180), Range1d(-90, 90)  # shared by every map: linked zoom
-        x_ticks, y_ticks = FixedTicker(ticks=_XTICKS), FixedTicker(ticks=_YTICKS)
+        x_ticks, y_ticks, formatter = FixedTicker(ticks=_XTICKS), FixedTicker(ticks=_YTICKS), BasicTickFormatter()
         # one colour range for all maps of a kind (colour_range): one mapper; NaN transparent
         self.mapper = LinearColorMapper(palette=DIVERGING if signed else SEQUENTIAL, low=-1.0, high=1.0, nan_color="rgba(0, 0, 0, 0)")
         self.coast = ColumnDataSource(coastline_lines())
@@ -394,7 +396,8 @@ class MapFigures:
                 min_height=220, x_axis_label="Longitude (°E)", y_axis_label="Latitude (°N)",
             )
             fig.xaxis.ticker, fig.yaxis.ticker = x_ticks, y_ticks
-            fig.grid.visible = False
+            fig.xaxis.formatter = fig.yaxis.formatter = formatter
+            fig.center = [r for r in fig.center if not isinstance(r, Grid)]  # no grid lines on a map (as before)
             if regular:
                 source = ColumnDataSource({"image": [], "x": [], "y": [], "dw": [], "dh": []})
                 shown = fig.image(image="image", x="x", y="y", dw="dw", dh="dh", source=source, color_mapper=self.mapper)
@@ -422,6 +425,9 @@ class MapFigures:
             fig.add_tools(pan, wheel, BoxZoomTool(), BoxSelectTool(renderers=[shown]), ResetTool(), SaveTool(), hover)
             fig.toolbar.active_drag, fig.toolbar.active_scroll = pan, wheel
             fig.on_event(SelectionGeometry, set_box)
+            for renderer in fig.renderers:  # nothing on a map is drawn selected or muted: no glyph models for those looks
+                renderer.nonselection_glyph = None
+                renderer.muted_glyph = None
             bar = ColorBar(color_mapper=self.mapper, width=12)
             fig.add_layout(bar, "right")
             self.figures.append(fig)
