@@ -16,10 +16,12 @@ on the page, given new values (the same Bokeh models), not new tables.  Outside 
 
 from __future__ import annotations
 
+import io
 from pathlib import Path
 
 import cftime
 import numpy as np
+import pandas as pd
 import pytest
 import xarray as xr
 
@@ -188,6 +190,15 @@ def test_every_table_shows_the_new_region_in_place(browser, collection, screensh
     # the same table models, given the tropics' values (no new tables built)
     assert {k: t["id"] for k, t in now.items()} == ids
     assert page.locator(".gs-view-scores").get_by_text("Region Tropics", exact=False).count() >= 1
+    # the download buttons, kept too, give the tropics' table under the tropics' name
+    with page.expect_download(timeout=60_000) as info:
+        page.locator(".gs-download-csv").first.locator("button, a").first.click()
+    assert "tropics" in info.value.suggested_filename
+    table = pd.read_csv(io.BytesIO(Path(info.value.path()).read_bytes()))
+    assert set(table["region"]) == {"tropics"}
+    for run, mean in tropics.items():  # the numpy means again, in the file
+        (value,) = table[(table["model"] == run) & (table["reference"] == "ref") & (table["metric"] == "mean")]["value"]
+        assert value == pytest.approx(mean, rel=1e-9)
 
     # back to a region seen before: from the cache, again in the same tables
     page.locator(".gs-region select").select_option(label="Global")
