@@ -26,6 +26,8 @@ from collections.abc import Iterable, Sequence
 
 import numpy as np
 import xarray as xr
+from xarray.backends import BackendArray
+from xarray.core import indexing
 
 from . import grids, timecoding
 from .errors import InputError
@@ -405,7 +407,10 @@ def open_source(
     ds = parts[0] if len(parts) == 1 else xr.merge(parts, compat="override", join="override", combine_attrs="drop_conflicts")
     ds.attrs.setdefault("gridscore_files", "\n".join(files_to_open))
     out = normalise(ds, source=source or (files_to_open[0] if len(files_to_open) == 1 else None), files=files_to_open)
-    return timecoding.canonical(out)
+    # the valid range is applied to each step as read, before sub-monthly steps become monthly
+    # means (a month with a value out of range is then missing, as with any missing step) and
+    # while a packed variable still has its scale_factor/add_offset
+    return timecoding.canonical(_with_valid_ranges(out))
 
 
 def _fixed_fields_only(path: str) -> bool:
@@ -551,7 +556,8 @@ def normalise(ds: xr.Dataset, *, source: str | os.PathLike[str] | None = None, f
     Never mutates ``ds``; returns a new dataset.  Data variables without the horizontal
     dimensions (e.g. time bounds) are dropped.
     """
-    where = source if source is not None else (files[0] if files else None)
+    # the files, so that a refusal names what to fix (a source's name is not a file)
+    where = list(files) if files else source
     desc = grids.describe(ds, where=where)
     time_name = find_axis(ds, "time")
     horizontal = desc.dims
@@ -698,10 +704,10 @@ def get_variable(ds: xr.Dataset, name: str, *, source: str | None = None) -> xr.
     files do not store it.  Raises :class:`InputError` listing the variables found.
     """
     if name in ds.data_vars:
-        return _with_pressure(ds, _one_level_dim(_within_valid_range(ds[name])))
+        return _with_pressure(ds, _one_level_dim(_ranged(ds, ds[name])))
     for vname, var in ds.data_vars.items():
         if _matches(var.variable, str(vname), name):
-            return _with_pressure(ds, _one_level_dim(_within_valid_range(var).rename(name)))
+            return _with_pressure(ds, _one_level_dim(_ranged(ds, var).rename(name)))
     refused = ds.attrs.get(REFUSED_ATTR, {})
     if name in refused:
         raise InputError(
@@ -732,17 +738,21 @@ def valid_limits(da: xr.DataArray) -> tuple[float | None, float | None]:
     Limits written in the packed type of a packed variable (cf-conventions 8.1) are
     unpacked with its ``scale_factor``/``add_offset``, widened by half a packing step.
     """
-    attrs = da.attrs
-    given = [np.ravel(attrs[k]) for k in ("valid_range", "valid_min", "valid_max") if k in attrs]
+    # a limit that is text or NaN is not applied, as netCDF4-python (the netCDF library's
+    # Python reader) does not apply it: text "cannot be safely cast" (it warns), and no value
+    # compares beyond NaN; gridscore check notes both (ignored_limits)
+    attrs = {k: np.ravel(da.attrs[k]) for k in _LIMIT_ATTRS if k in da.attrs and _numeric(da.attrs[k])}
+    given = list(attrs.values())
     if not given:
         return None, None
     lo = hi = None
-    if "valid_range" in attrs and np.ravel(attrs["valid_range"]).size == 2:
-        lo, hi = (float(v) for v in np.ravel(attrs["valid_range"]))
-    if "valid_min" in attrs and np.ravel(attrs["valid_min"]).size == 1:
-        lo = float(np.ravel(attrs["valid_min"])[0])
-    if "valid_max" in attrs and np.ravel(attrs["valid_max"]).size == 1:
-        hi = float(np.ravel(attrs["valid_max"])[0])
+    if "valid_range" in attrs and attrs["valid_range"].size == 2:
+        lo, hi = (float(v) for v in attrs["valid_range"])
+    if "valid_min" in attrs and attrs["valid_min"].size == 1:
+        lo = float(attrs["valid_min"][0])
+    if "valid_max" in attrs and attrs["valid_max"].size == 1:
+        hi = float(attrs["valid_max"][0])
+    lo, hi = (None if v is None or np.isnan(v) else v for v in (lo, hi))
     scale, offset = da.encoding.get("scale_factor"), da.encoding.get("add_offset")
     packed = np.dtype(da.encoding.get("dtype", da.dtype))
     if scale is not None or offset is not None:
@@ -767,20 +777,127 @@ def valid_limits(da: xr.DataArray) -> tuple[float | None, float | None]:
     return lo, hi
 
 
+_LIMIT_ATTRS = ("valid_range", "valid_min", "valid_max")
+
+#: Attribute of a variable whose valid range :func:`open_source` has applied: [lowest, highest]
+#: (-inf/inf where none), so that it is not applied again to monthly means made from its steps.
+RANGE_ATTR = "gridscore_valid_range"
+
+#: Dataset attribute: variable -> (problem, remedy, file) of a valid range that cannot be applied.
+RANGE_REFUSED_ATTR = "gridscore_range_refused"
+
+
+def _numeric(value) -> bool:
+    return np.asarray(value).dtype.kind in "iuf"
+
+
+def ignored_limits(name: str, attrs: dict) -> list[str]:
+    """One note per valid-range attribute (of variable ``name`` with ``attrs``) that
+    :func:`valid_limits` does not apply (text, or NaN), as netCDF4-python does not apply it either."""
+    notes = []
+    for key in _LIMIT_ATTRS:
+        if key not in attrs:
+            continue
+        if not _numeric(attrs[key]):
+            notes.append(f"variable '{name}' has a {key} that is text, not a number: it is not applied (the netCDF library "
+                         f"does not apply it either) — write {key} as numbers of the variable's type, or remove it")
+        elif np.isnan(np.ravel(attrs[key]).astype("float64")).any():
+            notes.append(f"variable '{name}' has a {key} of NaN: no value is read as missing for that limit (as the "
+                         f"netCDF library reads it) — write the limit as a number, or remove it")
+    return notes
+
+
+def valid_range_of(ds: xr.Dataset, name: str) -> tuple[float | None, float | None]:
+    """(lowest, highest) valid value of data variable ``name`` of an opened source, as
+    :func:`open_source` applied it (it may no longer be computable from monthly means of
+    packed steps).  Raises :class:`InputError` when the range cannot be applied."""
+    refused = ds.attrs.get(RANGE_REFUSED_ATTR, {})
+    if name in refused:
+        problem, remedy, file = refused[name]
+        raise InputError(problem, file=file or ds.attrs.get("gridscore_files", "").split("\n")[0] or None, remedy=remedy)
+    if RANGE_ATTR in ds.variables[name].attrs:
+        lo, hi = (float(v) for v in ds.variables[name].attrs[RANGE_ATTR])
+        return (None if np.isinf(lo) else lo), (None if np.isinf(hi) else hi)
+    return valid_limits(ds[name])
+
+
+def _with_valid_ranges(ds: xr.Dataset) -> xr.Dataset:
+    """``ds`` with each data variable's valid range applied (:func:`_within_valid_range`); a
+    range that cannot be applied is kept under :data:`RANGE_REFUSED_ATTR`, refused when the
+    variable is asked for (other variables of the file can still be read)."""
+    ranged, refused = {}, {}
+    for name, var in ds.data_vars.items():
+        if not set(_LIMIT_ATTRS) & set(var.attrs):
+            continue
+        try:
+            ranged[name] = _within_valid_range(var)
+        except InputError as err:
+            refused[name] = (err.problem, err.remedy, err.file)
+    if not ranged and not refused:
+        return ds
+    out = ds.assign(ranged)
+    for name, var in ranged.items():
+        out[name].encoding = dict(var.encoding)
+    if refused:
+        out.attrs[RANGE_REFUSED_ATTR] = {**out.attrs.get(RANGE_REFUSED_ATTR, {}), **refused}
+    return out
+
+
+def _ranged(ds: xr.Dataset, da: xr.DataArray) -> xr.DataArray:
+    """``da`` (a data variable of ``ds``) with its valid range applied, unless already applied."""
+    refused = ds.attrs.get(RANGE_REFUSED_ATTR, {})
+    if da.name in refused:
+        valid_range_of(ds, str(da.name))
+    return da if RANGE_ATTR in da.attrs else _within_valid_range(da)
+
+
 def _within_valid_range(da: xr.DataArray) -> xr.DataArray:
     """``da`` with values outside its CF valid range missing (xarray does not apply it;
-    the netCDF library and cf-conventions 2.5.1 do)."""
+    the netCDF library and cf-conventions 2.5.1 do).
+
+    Values still in the file (opened without dask) stay there: they are masked as they are
+    read (:class:`_WithinRange`), so that only the parts used are read.
+    """
     lo, hi = valid_limits(da)
     if lo is None and hi is None:
         return da
-    inside = True
-    if lo is not None:
-        inside = da >= lo
-    if hi is not None:
-        inside = (da <= hi) & inside
-    out = da.where(inside)
+    if da.chunks is None and not da.variable._in_memory:
+        data = indexing.LazilyIndexedArray(_WithinRange(da.variable, lo, hi))
+        out = da.copy(data=data)
+    else:
+        inside = True
+        if lo is not None:
+            inside = da >= lo
+        if hi is not None:
+            inside = (da <= hi) & inside
+        out = da.where(inside)
     out.attrs, out.encoding = dict(da.attrs), dict(da.encoding)
+    out.attrs[RANGE_ATTR] = np.array([-np.inf if lo is None else lo, np.inf if hi is None else hi])
     return out
+
+
+class _WithinRange(BackendArray):
+    """The values of a variable still in the file with those outside [lo, hi] missing, masked
+    as each part is read (the same values and type as ``DataArray.where``)."""
+
+    def __init__(self, variable: xr.Variable, lo: float | None, hi: float | None) -> None:
+        self.variable, self.lo, self.hi = variable, lo, hi
+        self.shape = variable.shape
+        kind = np.dtype(variable.dtype)
+        # xarray's promotion for missing values: floats keep their type, small integers become float32
+        self.dtype = kind if kind.kind == "f" else np.dtype("float32" if kind.itemsize <= 2 else "float64")
+
+    def __getitem__(self, key: indexing.ExplicitIndexer) -> np.ndarray:
+        return indexing.explicit_indexing_adapter(key, self.shape, indexing.IndexingSupport.OUTER, self._read)
+
+    def _read(self, key: tuple) -> np.ndarray:
+        values = np.asarray(self.variable[key].values)
+        out = values.astype(self.dtype, copy=True)
+        if self.lo is not None:
+            out[values < self.lo] = np.nan
+        if self.hi is not None:
+            out[values > self.hi] = np.nan
+        return out
 
 
 def _with_pressure(ds: xr.Dataset, da: xr.DataArray) -> xr.DataArray:

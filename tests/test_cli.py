@@ -334,3 +334,20 @@ def test_a_run_given_as_a_climatology_of_some_months_is_refused_naming_its_month
     err = capsys.readouterr().err.strip().splitlines()
     assert len(err) == 1 and "jan-jul.nc" in err[0], err
     assert "climatology of JAN, JUL only" in err[0] and "12-month" not in err[0], err
+
+
+def test_a_refused_time_axis_names_the_file_not_the_source(tmp_path, capsys):
+    # a climatology written with a bare number as its time (no units, CF conventions 1.10 §4.4):
+    # the one line must name the file to change, not only the name the source was given
+    import xarray as xr
+
+    from app.cli import main
+
+    grid = {"lat": ("lat", np.arange(-75.0, 90.0, 30.0), {"units": "degrees_north"}),
+            "lon": ("lon", np.arange(15.0, 360.0, 30.0), {"units": "degrees_east"})}
+    xr.Dataset({"tas": (("time", "lat", "lon"), np.full((1, 6, 12), 280.0), {"units": "K"})},
+               coords={"time": ("time", [120.0]), **grid}).to_netcdf(tmp_path / "bare-time.nc")
+    run = str(write_cf(tmp_path / "run.nc", dlat=30.0, years=1))
+    assert main(["score", "--reference", str(tmp_path / "bare-time.nc"), "--model", f"run={run}", "--variable", "tas"]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and err[0].startswith(f"gridscore: {tmp_path / 'bare-time.nc'}: the time coordinate has no units"), err
