@@ -826,9 +826,11 @@ def _with_valid_ranges(ds: xr.Dataset) -> xr.Dataset:
     range that cannot be applied is kept under :data:`RANGE_REFUSED_ATTR`, refused when the
     variable is asked for (other variables of the file can still be read)."""
     ranged, refused = {}, {}
-    for name, var in ds.data_vars.items():
-        if not set(_LIMIT_ATTRS) & set(var.attrs):
+    for name in ds.data_vars:
+        # ds.variables, not ds[name]: a DataArray gathers every coordinate (a file of thousands of variables)
+        if not set(_LIMIT_ATTRS) & set(ds.variables[name].attrs):
             continue
+        var = ds[name]
         try:
             ranged[name] = _within_valid_range(var)
         except InputError as err:
