@@ -200,12 +200,16 @@ def check_file(path: str) -> FileReport:
     for name in ds.data_vars:
         if not {"valid_range", "valid_min", "valid_max"} & set(ds.variables[name].attrs):
             continue
+        report.notes += io.ignored_limits(str(name), ds.variables[name].attrs)
         try:
-            low, high = io.valid_limits(ds[name])
+            low, high = io.valid_range_of(ds, str(name))  # as applied to the steps (daily packed values too)
         except InputError as err:
             report.problems.append(_sentence(err))
             continue
-        if low is not None or high is not None:
+        if low is not None and high is not None and low > high:
+            report.notes.append(f"variable '{name}' has a valid range whose lowest value {low:g} is above its highest {high:g}: "
+                                "every value is read as missing (as the netCDF library reads it) — write the range as [lowest, highest]")
+        elif low is not None or high is not None:
             shown = f"[{low:g}, {high:g}]" if low is not None and high is not None else (f"below {low:g}" if low is not None else f"above {high:g}")
             report.notes.append(
                 f"variable '{name}' has a valid range: values {'outside ' if shown.startswith('[') else ''}{shown} are read as missing (cf-conventions 2.5.1)"

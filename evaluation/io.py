@@ -801,6 +801,9 @@ def ignored_limits(name: str, attrs: dict) -> list[str]:
         if not _numeric(attrs[key]):
             notes.append(f"variable '{name}' has a {key} that is text, not a number: it is not applied (the netCDF library "
                          f"does not apply it either) — write {key} as numbers of the variable's type, or remove it")
+        elif np.ravel(attrs[key]).size != (2 if key == "valid_range" else 1):
+            notes.append(f"variable '{name}' has a {key} of {np.ravel(attrs[key]).size} values: it is not applied (nor by the "
+                         f"netCDF library) — write {'[lowest, highest]' if key == 'valid_range' else 'one value'}, or remove it")
         elif np.isnan(np.ravel(attrs[key]).astype("float64")).any():
             notes.append(f"variable '{name}' has a {key} of NaN: no value is read as missing for that limit (as the "
                          f"netCDF library reads it) — write the limit as a number, or remove it")
