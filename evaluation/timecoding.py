@@ -546,9 +546,12 @@ def to_monthly(ds: xr.Dataset, *, file: str | None = None) -> xr.Dataset:
     sub = ds.drop_vars([INTERVAL], errors="ignore").isel(time=steps)
     w = xr.DataArray(weights[steps], dims="time")
     label = xr.DataArray(key[steps], dims="time", name="month_key")
-    # the complete months one after the other, with no step between them left out: each month a
-    # run of steps, so that values still in the file can be reduced a few months at a time
-    runs = steps.size > 0 and steps[-1] - steps[0] + 1 == steps.size and bool(np.all(np.diff(key[steps]) >= 0))
+    # each complete month one run of steps in the file, the months in order (months left out
+    # between them are skipped), so that values still in the file can be reduced a few months at a time
+    first_of = np.r_[0, np.flatnonzero(np.diff(key[steps])) + 1] if steps.size else np.zeros(0, "int64")
+    starts = steps[first_of] if steps.size else first_of
+    ends = np.r_[steps[first_of[1:] - 1], steps[-1]] + 1 if steps.size else first_of
+    runs = steps.size > 0 and bool(np.all(np.diff(key[steps]) >= 0)) and int(np.sum(ends - starts)) == steps.size
     out = {}
     for name, var in sub.data_vars.items():
         if "time" not in var.dims:
@@ -556,12 +559,20 @@ def to_monthly(ds: xr.Dataset, *, file: str | None = None) -> xr.Dataset:
             continue
         if runs and var.chunks is None and not var.variable._in_memory:
             # opened without dask (evaluation.io.open_source): the means are made when the months are read
-            starts = np.r_[0, np.flatnonzero(np.diff(key[steps])) + 1]
-            data = MonthlyMeans(ds[name].variable, var.get_axis_num("time"), int(steps[0]), starts, weights[steps])
+            data = MonthlyMeans(ds[name].variable, var.get_axis_num("time"), starts, ends, weights)
             mean = xr.DataArray(xr.Variable(var.dims, indexing.LazilyIndexedArray(data), attrs=dict(var.attrs)),
                                 coords={c: v for c, v in var.coords.items() if "time" not in v.dims})
             out[name] = mean.assign_coords(time=("time", new_time, tattrs))
             continue
+        if steps.size == 0:  # no complete month: an empty time axis (xarray cannot group nothing)
+            empty = var.astype("float64")
+            empty.attrs = dict(var.attrs)
+            out[name] = empty.drop_vars("time", errors="ignore").assign_coords(time=("time", new_time, tattrs))
+            continue
+        if var.chunks is None and not var.variable._in_memory:
+            # values still in the file in an order MonthlyMeans cannot read month by month: a month of
+            # steps a chunk, never every step in float64 at once
+            var = var.chunk({"time": max(1, int(round(31 / nominal)))})
         x = var.astype("float64")
         total = (x * w).groupby(label).sum("time", skipna=False)
         norm = w.groupby(label).sum("time")
@@ -578,19 +589,20 @@ class MonthlyMeans(BackendArray):
     """Monthly means of sub-monthly values still in the file, made when they are read.
 
     ``daily`` is the variable as opened without dask (xarray's lazily indexed file array);
-    month ``i`` is the weighted mean of its steps ``first + starts[i] … first + starts[i+1] - 1``
-    along ``axis`` with ``weights`` (one per step from ``first`` on).  Reading a range of
+    month ``i`` is the weighted mean of its steps ``starts[i] … ends[i] - 1`` along ``axis``
+    with ``weights`` (one per step of ``daily``); steps between one month's end and the next
+    month's start (an incomplete month) are not used.  Reading a range of
     months reads only their steps, a few months at a time (about ``$GRIDSCORE_CHUNK_MB`` of
     float64 a block), so the memory is the block and the means, never every step: the same
     numbers as :func:`to_monthly`'s dask reduction (``sum(w x) / sum(w)`` in float64, NaN in
     any step giving NaN), without dask's import, task graph and joining of chunks.
     """
 
-    def __init__(self, daily: xr.Variable, axis: int, first: int, starts: np.ndarray, weights: np.ndarray) -> None:
-        self.daily, self.axis, self.first = daily, axis, first
+    def __init__(self, daily: xr.Variable, axis: int, starts: np.ndarray, ends: np.ndarray, weights: np.ndarray) -> None:
+        self.daily, self.axis = daily, axis
         self.starts = np.asarray(starts, dtype="int64")
+        self.ends = np.asarray(ends, dtype="int64")
         self.weights = np.asarray(weights, dtype="float64")
-        self.ends = np.r_[self.starts[1:], self.weights.size]
         shape = list(daily.shape)
         shape[axis] = self.starts.size
         self.shape, self.dtype = tuple(shape), np.dtype("float64")
@@ -623,19 +635,21 @@ class MonthlyMeans(BackendArray):
     def _months(self, months: np.ndarray, other: tuple) -> np.ndarray:
         """The means of consecutive ``months``, read at once."""
         lo, hi = int(self.starts[months[0]]), int(self.ends[months[-1]])
-        index = tuple(slice(self.first + lo, self.first + hi) if i == self.axis else k for i, k in enumerate(other))
+        index = tuple(slice(lo, hi) if i == self.axis else k for i, k in enumerate(other))
         values = np.asarray(self.daily[index].values)
         axis = self.axis - sum(isinstance(k, (int, np.integer)) for k in other[:self.axis])
         w = self.weights[lo:hi].reshape([-1 if i == axis else 1 for i in range(values.ndim)])
-        offsets = self.starts[months] - lo
+        offsets, ends = self.starts[months] - lo, self.ends[months] - lo
         if not np.all(w == 1.0):
             values = values.astype("float64") * w
         # else steps of equal length (one day each; no bounds): w x is x, summed in float64 without a float64 copy.
         # One reduction per month: the same sums, in the same order, as numpy.add.reduceat, about 3x faster
-        ends = np.r_[offsets[1:], values.shape[axis]]
         total = np.stack([np.add.reduce(values[(slice(None),) * axis + (slice(a, b),)], axis=axis, dtype="float64")
                           for a, b in zip(offsets, ends, strict=True)], axis=axis)
-        norm = np.add.reduceat(self.weights[lo:hi], offsets).reshape([-1 if i == axis else 1 for i in range(values.ndim)])
+        # each month's weights summed in order (numpy.add.reduceat over [start, end] pairs, the steps
+        # of a month left out in between skipped); the 0 appended lets the last end be an index
+        bounds = np.stack([offsets, ends], axis=1).ravel()
+        norm = np.add.reduceat(np.r_[self.weights[lo:hi], 0.0], bounds)[::2].reshape([-1 if i == axis else 1 for i in range(values.ndim)])
         return total / norm
 
 

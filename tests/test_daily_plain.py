@@ -65,3 +65,94 @@ def test_steps_weighted_by_their_bounds_equal_pandas(tmp_path) -> None:
     # pandas.DataFrame.resample: equal steps, so the weighted mean is the plain mean
     expected = pd.DataFrame(data.reshape(steps.size, -1), index=steps).resample("MS").mean().to_numpy()
     np.testing.assert_allclose(_opened(str(path)).values.reshape(3, -1), expected, rtol=1e-13, atol=0)
+
+
+def _pandas_complete_months(data: np.ndarray, days: pd.DatetimeIndex) -> np.ndarray:
+    """pandas' calendar-month means (DataFrame.resample, month starts) of the months whose every
+    day is present: a month missing a day has no exact mean and is left out."""
+    frame = pd.DataFrame(data.reshape(days.size, -1), index=days)
+    counts = frame.resample("MS").size()
+    complete = counts.to_numpy() == counts.index.days_in_month.to_numpy()
+    return frame.resample("MS").mean().to_numpy()[complete]
+
+
+@pytest.mark.parametrize("chunk_mb", ["64", "0.0001"])
+def test_a_missing_day_mid_series_leaves_its_month_out_and_the_others_are_read_month_by_month(tmp_path, monkeypatch, chunk_mb) -> None:
+    """One day missing in July 2001: the complete months are no longer one unbroken run of
+    steps, yet each is still read on its own (the steps read are counted), not every day at once."""
+    from evaluation import timecoding
+
+    monkeypatch.setenv("GRIDSCORE_CHUNK_MB", chunk_mb)
+    all_days = pd.date_range("2001-01-01", "2004-12-31", freq="D")
+    keep = all_days != pd.Timestamp("2001-07-20")
+    days = all_days[keep]
+    data = 280.0 + 5.0 * np.random.default_rng(21).standard_normal((days.size, 3, 4))
+    t = (days - pd.Timestamp("2001-01-01")).days.to_numpy().astype("float64")
+    path = write_raw(tmp_path / "tas_gap.nc", t, {"units": "days since 2001-01-01", "calendar": "standard", "standard_name": "time", "axis": "T"}, data)
+    expected = _pandas_complete_months(data, days)
+    assert expected.shape[0] == 47  # 48 months, July 2001 left out
+    steps_read = []
+    original = timecoding.MonthlyMeans._months
+    monkeypatch.setattr(timecoding.MonthlyMeans, "_months",
+                        lambda self, months, other: steps_read.append(int(self.ends[months[-1]] - self.starts[months[0]])) or original(self, months, other))
+    da = _opened(str(path))
+    np.testing.assert_allclose(da.values.reshape(47, -1), expected, rtol=1e-13, atol=0)
+    assert sum(steps_read) <= days.size  # every day read at most once (July 2001's 30 days perhaps with its neighbours)
+    steps_read.clear()
+    one_year = da.isel(time=slice(20, 32)).values  # 2002-10 ... 2003-09: only these months' days
+    np.testing.assert_allclose(one_year.reshape(12, -1), expected[20:32], rtol=1e-13, atol=0)
+    assert sum(steps_read) == (pd.Timestamp("2003-10-01") - pd.Timestamp("2002-10-01")).days
+
+
+@pytest.mark.parametrize("chunk_mb", ["64", "0.0001"])
+@pytest.mark.parametrize("without_dask", [True, False], ids=["no-dask", "dask"])
+def test_steps_of_unequal_length_are_weighted_by_their_bounds(tmp_path, monkeypatch, chunk_mb, without_dask) -> None:
+    # steps of 6 h and 18 h in turn, their lengths from time bounds: each month's mean weights
+    # every value by its step's length (numpy.average with those weights over pandas' calendar months)
+    monkeypatch.setenv("GRIDSCORE_CHUNK_MB", chunk_mb)
+    lengths = np.tile([0.25, 0.75], 180)  # 180 days: 2003-01-01 ... 2003-06-29
+    edges = np.r_[0.0, np.cumsum(lengths)]
+    t = (edges[:-1] + edges[1:]) / 2
+    data = 250.0 + 10.0 * np.random.default_rng(5).standard_normal((t.size, 3, 4))
+    path = write_raw(tmp_path / "tas_uneq.nc", t, {"units": "days since 2003-01-01", "calendar": "standard", "standard_name": "time", "axis": "T"},
+                     data, bounds=np.stack([edges[:-1], edges[1:]], axis=1))
+    month = (pd.Timestamp("2003-01-01") + pd.to_timedelta(t, unit="D")).to_period("M")
+    expected = np.array([np.average(data[month == m].reshape(int((month == m).sum()), -1), axis=0, weights=lengths[month == m])
+                         for m in pd.unique(month)])[:5]  # January ... May complete; June lacks its last day
+    da = io.open_source(str(path), variables=["tas"], without_dask=without_dask)["tas"].transpose("time", "lat", "lon")
+    assert (da.chunks is None) == without_dask
+    np.testing.assert_allclose(da.values.reshape(-1, 12), expected, rtol=1e-13, atol=0)
+    np.testing.assert_allclose(da.isel(time=slice(None, None, 2)).values.reshape(-1, 12), expected[::2], rtol=1e-13, atol=0)
+
+
+def test_a_daily_file_that_completes_no_month_is_refused_in_one_line(tmp_path, capsys) -> None:
+    from app.cli import main
+
+    path = write_raw(tmp_path / "tas_20d.nc", np.arange(20.0) + 0.5, {"units": "days since 2001-01-01", "calendar": "standard"},
+                     np.zeros((20, 3, 4)))
+    assert io.open_source(str(path), without_dask=True)["tas"].sizes["time"] == 0  # no month to mean (no exception)
+    assert main(["score", "--reference", f"ref={path}", "--model", f"run={path}", "--variable", "tas", "--output", str(tmp_path / "s.csv")]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and "tas_20d.nc" in err[0] and "Traceback" not in err[0]
+
+
+def test_steps_still_in_the_file_out_of_month_order_are_reduced_by_dask_chunks(tmp_path) -> None:
+    """to_monthly given lazily read steps whose months are not each one run (here February's
+    days before January's; open_source refuses such a file, other callers may not): a month of
+    steps a dask chunk, not every step in float64 at once; the means still equal pandas'."""
+    import xarray as xr
+
+    from evaluation import timecoding
+
+    days = pd.date_range("2001-01-01", "2001-02-28", freq="D")
+    data = 280.0 + np.random.default_rng(4).standard_normal((days.size, 3, 4))
+    order = np.r_[np.arange(31, days.size), np.arange(31)]  # February, then January
+    t = (days - days[0]).days.to_numpy().astype("float64")[order]
+    path = write_raw(tmp_path / "tas_swapped.nc", t, {"units": "days since 2001-01-01", "calendar": "standard"}, data[order])
+    with xr.open_dataset(path, decode_times=False) as raw:
+        decoded = timecoding.decode(raw)
+        assert decoded["tas"].chunks is None and not decoded["tas"].variable._in_memory
+        out = timecoding.to_monthly(decoded)["tas"]
+        assert out.chunks is not None  # dask, a month a chunk
+        expected = pd.DataFrame(data.reshape(days.size, -1), index=days).resample("MS").mean().to_numpy()  # pandas' monthly means
+        np.testing.assert_allclose(out.values.reshape(2, -1), expected, rtol=1e-13, atol=0)
