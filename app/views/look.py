@@ -8,6 +8,7 @@ trends) in a diverging palette centred on zero.
 from __future__ import annotations
 
 import functools
+import threading
 
 import holoviews as hv
 import panel as pn
@@ -145,18 +146,31 @@ def page_template(**options: object) -> pn.template.BaseTemplate:
     return template
 
 
-@functools.cache
+#: Set once HoloViews' matplotlib backend is loaded; the lock lets one first call load it
+#: while another waits (two pages' first downloads at once on the server's threads).
+_MATPLOTLIB_LOADED = threading.Event()
+_MATPLOTLIB_LOCK = threading.Lock()
+
+
 def load_matplotlib() -> None:
     """Load HoloViews' matplotlib backend (for the PNG/SVG downloads) once per process.
 
     Call it before the figure to export is built: HoloViews drops, without a word, the
     options an element is given for a backend that is not loaded yet.  Bokeh stays the
-    backend of the page.
+    backend of the page (loading makes matplotlib the current backend for a moment).
     """
-    import matplotlib
+    if _MATPLOTLIB_LOADED.is_set():
+        return
+    with _MATPLOTLIB_LOCK:
+        if _MATPLOTLIB_LOADED.is_set():
+            return
+        import matplotlib
 
-    # No display on a server: the file-only backend, chosen before pyplot is imported.
-    matplotlib.use("Agg")
-    load_extensions()
-    hv.extension("matplotlib", logo=False)
-    hv.Store.set_current_backend("bokeh")
+        # No display on a server: the file-only backend, chosen before pyplot is imported.
+        matplotlib.use("Agg")
+        load_extensions()
+        try:
+            hv.extension("matplotlib", logo=False)
+        finally:
+            hv.Store.set_current_backend("bokeh")
+        _MATPLOTLIB_LOADED.set()
