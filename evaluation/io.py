@@ -747,11 +747,13 @@ def valid_limits(da: xr.DataArray) -> tuple[float | None, float | None]:
         return None, None
     lo = hi = None
     if "valid_range" in attrs and attrs["valid_range"].size == 2:
+        # valid_range first, valid_min/valid_max only without one (netCDF4-python's order)
         lo, hi = (float(v) for v in attrs["valid_range"])
-    if "valid_min" in attrs and attrs["valid_min"].size == 1:
-        lo = float(attrs["valid_min"][0])
-    if "valid_max" in attrs and attrs["valid_max"].size == 1:
-        hi = float(attrs["valid_max"][0])
+    else:
+        if "valid_min" in attrs and attrs["valid_min"].size == 1:
+            lo = float(attrs["valid_min"][0])
+        if "valid_max" in attrs and attrs["valid_max"].size == 1:
+            hi = float(attrs["valid_max"][0])
     lo, hi = (None if v is None or np.isnan(v) else v for v in (lo, hi))
     scale, offset = da.encoding.get("scale_factor"), da.encoding.get("add_offset")
     packed = np.dtype(da.encoding.get("dtype", da.dtype))

@@ -54,8 +54,9 @@ def _netcdf_library(path, name="pr"):
         {"valid_max": np.float32(500.0)},
         {"valid_min": np.float32(0.0)},
         {"valid_min": np.float32(0.0), "valid_max": np.float32(500.0)},
+        {"valid_range": np.array([0.0, 500.0], "float32"), "valid_max": np.float32(300.0)},  # the range wins
     ],
-    ids=["valid_range", "valid_max", "valid_min", "both"],
+    ids=["valid_range", "valid_max", "valid_min", "both", "range-and-max"],
 )
 def test_values_outside_the_valid_range_are_missing_as_the_netcdf_library_reads_them(tmp_path, attrs):
     path = _write(tmp_path / "p.nc", _values(), attrs)
