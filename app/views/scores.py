@@ -137,10 +137,12 @@ class _Marks:
 
 def table_parts(shown: pd.DataFrame, units: dict[str, str], within: dict[str, list[bool]] | None = None,
                 confirmed: dict[str, list[bool]] | None = None) -> dict[str, Any]:
-    """What one table shows, before any widget is made: the frame (with the text column of ties),
-    the column titles, each metric's number format, the header tooltips and the marked cells.
-
-    See :func:`score_widget` for ``within`` and ``confirmed``."""
+    """What one table of runs × metrics shows, before any widget is made: the frame, the column
+    titles, each metric's number format, the header tooltips and the marked cells (the best
+    values); with ``within`` (:func:`within_best`), the values tied with the best within
+    observational uncertainty are underlined and named in a text column; with ``confirmed``
+    (metric -> runs whose bootstrap interval excludes zero, :data:`evaluation.bootstrap.BEST_RULE`),
+    a metric it names marks only those runs."""
     metrics = list(units)
     # the text column is shown only in a table where some run ties (a column of dashes says
     # nothing); it is there, hidden and empty, in the others, so that every region's table has
@@ -180,16 +182,6 @@ def _formatters(parts: dict[str, Any]) -> dict[str, Any]:
     if parts["within"]:
         formatters[WITHIN_COLUMN] = {"type": "textarea"}  # wraps the list of metric names
     return formatters
-
-
-def score_widget(shown: pd.DataFrame, units: dict[str, str], within: dict[str, list[bool]] | None = None,
-                 confirmed: dict[str, list[bool]] | None = None) -> pn.widgets.Tabulator:
-    """A sortable table of runs × metrics with formatted numbers and the best values marked;
-    with ``within`` (:func:`within_best`), the values tied with the best within observational
-    uncertainty are underlined and named in a text column; with ``confirmed`` (metric -> runs
-    whose bootstrap interval excludes zero, :data:`evaluation.bootstrap.BEST_RULE`), a metric
-    it names marks only those runs."""
-    return _widget(table_parts(shown, units, within, confirmed))[0]
 
 
 def _widget(parts: dict[str, Any]) -> tuple[pn.widgets.Tabulator, _Marks]:
