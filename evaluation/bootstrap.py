@@ -20,9 +20,10 @@ drawn, over ``n``).  The drawn climatology of the error is ``aᵀD`` with ``D`` 
 
     RMSE² = aᵀ G a,   G = Dᵀ diag(w) D / Σw        bias = aᵀ (D w / Σw)
 
-The ``n × n`` matrix ``G`` is built once per run and region (``n² × cells`` operations);
-each of the :data:`RESAMPLES` draws then costs ``n²``, whatever the grid size.  This is
-exact, not an approximation.
+The ``n × n`` matrix ``G`` is built once per run and region (``n² × cells`` operations;
+the whole map and the latitude bands share one pass, :func:`row_grams`); each of the
+:data:`RESAMPLES` draws then costs ``n²``, whatever the grid size.  This is exact, not an
+approximation.
 
 References
 ----------
