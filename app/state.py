@@ -626,9 +626,17 @@ class Selection(param.Parameterized):
             return
         self.span = None
 
-    def _choice_changed(self, event: param.parameterized.Event) -> None:
+    def _choice_changed(self, *events: param.parameterized.Event) -> None:
+        # param hands a watcher of several parameters all the events of one
+        # ``param.update(a=..., b=...)`` at once: each is checked, then one request is made.
         if self._busy or self.span is None:
             return
+        if [event for event in events if self._choice_accepted(event)]:
+            self.publish()
+
+    def _choice_accepted(self, event: param.parameterized.Event) -> bool:
+        """Check one changed choice; ``False`` when it was put back (with a notice) or
+        set again in its canonical spelling (which publishes on its own)."""
         if event.name == "region":
             try:
                 canonical = parse_region(event.new).id
@@ -637,10 +645,10 @@ class Selection(param.Parameterized):
                 with param.parameterized.discard_events(self):
                     self.region = event.old
                 self.param.trigger("region")
-                return
+                return False
             if canonical != event.new:
                 self.region = canonical  # re-enters with the canonical spelling
-                return
+                return False
         if event.name == "period":
             try:
                 asked = parse_period(event.new)
@@ -651,10 +659,10 @@ class Selection(param.Parameterized):
                 with param.parameterized.discard_events(self):
                     self.period = event.old
                 self.param.trigger("period")
-                return
+                return False
             if str(asked) != event.new:
                 self.period = str(asked)
-                return
+                return False
         if event.name == "sort":
             try:
                 parse_sort(event.new)
@@ -662,11 +670,11 @@ class Selection(param.Parameterized):
                 self.notify(f"{_sentence(error.problem)}; kept the previous order.")
                 with param.parameterized.discard_events(self):
                     self.sort = event.old
-                return
+                return False
         if event.name == "models" and not event.new:
             self.notify("Pick at least one model run; kept the previous choice.")
             with param.parameterized.discard_events(self):
                 self.models = list(event.old)
             self.param.trigger("models")
-            return
-        self.publish()
+            return False
+        return True

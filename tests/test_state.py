@@ -249,6 +249,19 @@ def test_season_changes_what_is_computed(results: Results) -> None:
     assert {item.data.attrs["season"] for item in load(MapsView, selection, results)["items"]} == {"SON"}
 
 
+def test_several_choices_set_at_once_make_one_request_with_all_of_them(results: Results) -> None:
+    # param delivers the events of one ``param.update`` call to a watcher of several
+    # parameters together (param documentation, "Dependencies and watchers": batched events)
+    selection = settled(results)
+    requests = []
+    selection.param.watch(lambda event: requests.append(event.new), "request")
+    selection.param.update(season="JJA", field="difference", region="not a region")
+    assert len(requests) == 1
+    assert (requests[0].season, requests[0].field) == ("JJA", "difference")
+    assert requests[0].region == selection.param.region.default  # the bad one is put back, with a notice
+    assert set(load(ScoresView, selection, results)["tidy"]["season"]) == {"JJA"}
+
+
 def test_period_changes_what_is_computed(results: Results) -> None:
     selection = settled(results)
     span = selection.span
