@@ -429,7 +429,7 @@ def main(argv: Sequence[str] | None = None) -> int:
         return 130
     except BrokenPipeError:
         # the reader went away (`gridscore check --json | head`): nothing to report; stdout
-        # goes to devnull so that the flush at exit does not fail again (the recipe of
+        # goes to devnull so that the flush at exit does not fail again (the way shown in
         # Python's signal module documentation, "Note on SIGPIPE")
         devnull = os.open(os.devnull, os.O_WRONLY)
         os.dup2(devnull, sys.stdout.fileno())

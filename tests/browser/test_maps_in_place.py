@@ -65,7 +65,7 @@ def _write(path: Path, offset: float) -> Path:
 
 
 def _climatology(path: Path, season: str) -> np.ndarray:
-    """Month-length-weighted season means per year, averaged over the years (xarray docs' recipe)."""
+    """Month-length-weighted season means per year, averaged over the years (as the xarray documentation's example computes them)."""
     with xr.open_dataset(path) as ds:
         tas = ds["tas"].load()
     tas = tas if season == "ANN" else tas.where(tas["time"].dt.season == season, drop=True)
