@@ -96,3 +96,19 @@ def test_a_second_warm_returns_the_running_one(tiny: Path) -> None:
         first.result(timeout=300)
     finally:
         results.close()
+
+
+def test_the_error_of_a_stopped_thread_pool_is_told_from_a_failure() -> None:
+    # The standard library's own error (Python docs, concurrent.futures: submit after
+    # shutdown raises RuntimeError), as a background step meets it when the server stops.
+    from concurrent.futures import ThreadPoolExecutor
+
+    from app.views.results import stopping
+
+    pool = ThreadPoolExecutor(max_workers=1)
+    pool.shutdown()
+    with pytest.raises(RuntimeError) as raised:
+        pool.submit(print)
+    assert stopping(raised.value)
+    assert not stopping(RuntimeError("dictionary changed size during iteration"))
+    assert not stopping(ValueError("cannot schedule new futures after shutdown"))

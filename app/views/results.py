@@ -69,6 +69,19 @@ def overview_args(reference: str, period: str, region: str, season: str, target_
     return (reference, period, regions, seasons, target_grid)
 
 
+
+def stopping(error: BaseException) -> bool:
+    """Whether ``error`` is the one a thread pool raises once the process is stopping.
+
+    A step of the background scoring still running when the server is stopped (Ctrl+C,
+    a terminate) finds the pools of the reading library shut down; that is the end of
+    the work, not a failure to report with a traceback.  The standard library gives no
+    other sign than its message (concurrent.futures: "cannot schedule new futures after
+    shutdown" / "after interpreter shutdown").
+    """
+    return isinstance(error, RuntimeError) and "cannot schedule new futures after" in str(error)
+
+
 class BoundedCache:
     """A thread-safe least-recently-used mapping with a fixed number of entries.
 
@@ -519,8 +532,11 @@ class Results:
                 job()
             except InputError:
                 pass
-            except Exception:  # a bug must not stop the server; the log has details
-                log.exception("background step failed")
+            except Exception as error:  # a bug must not stop the server; the log has details
+                if stopping(error):
+                    log.debug("background step left: the server is stopping")
+                else:
+                    log.exception("background step failed")
             finally:
                 self.background = ""  # between two steps the worker may run a session's work
 
