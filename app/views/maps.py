@@ -53,7 +53,7 @@ from .coastlines import coastline_lines, coastline_path
 from .look import DIVERGING, SEQUENTIAL
 from .results import MapField
 
-__all__ = ["MapsView", "colour_range", "display_grid", "map_element", "region_outline", "stipple_points", "STIPPLE_LEGEND"]
+__all__ = ["MapsView", "colour_range", "display_grid", "map_extent", "map_element", "region_outline", "stipple_points", "STIPPLE_LEGEND"]
 
 #: More cells than this per map are averaged in blocks for display (a 0.25° grid has
 #: about a million); the download always carries the full field.
@@ -367,6 +367,48 @@ def _box_setter(selection: Any) -> Callable[[SelectionGeometry], None]:
     return set_box
 
 
+def _ticks(low: float, high: float) -> list[float]:
+    """Round degrees within ``low``..``high``, about four to seven of them."""
+    step = next((d for d in (1, 2, 5, 10, 20, 30, 60) if (high - low) / d <= 7), 60)
+    return [float(t) for t in np.arange(np.ceil(low / step) * step, high + 1e-9, step)]
+
+
+def map_extent(columns: list[dict[str, Any]]) -> tuple[float, float, float, float]:
+    """West, east, south and north of what the maps show, widened to the 2:1 shape of a
+    whole-globe map (equal degrees across and up, as the globe is drawn).
+
+    A regional grid (a limited-area model's domain on its own target grid) fills its box
+    instead of lying as a small patch on the globe; a global one gives the globe.
+    ``columns`` are :func:`image_columns` or :func:`quad_columns` of the maps.
+    """
+    west, east, south, north = 180.0, -180.0, 90.0, -90.0
+    for c in columns:
+        if "image" in c:
+            if not c["x"]:
+                continue
+            lefts, rights = [c["x"][0]], [c["x"][0] + c["dw"][0]]
+            bottoms, tops = [c["y"][0]], [c["y"][0] + c["dh"][0]]
+        else:
+            if len(c["left"]) == 0:
+                continue
+            lefts, rights, bottoms, tops = c["left"], c["right"], c["bottom"], c["top"]
+        west, east = min(west, float(np.min(lefts))), max(east, float(np.max(rights)))
+        south, north = min(south, float(np.min(bottoms))), max(north, float(np.max(tops)))
+    west, east, south, north = max(west, -180.0), min(east, 180.0), max(south, -90.0), min(north, 90.0)
+    if east <= west or north <= south:
+        return -180.0, 180.0, -90.0, 90.0
+    width, height = east - west, north - south
+    if width < 2 * height:  # widen the longitudes about the centre, within the globe
+        width = min(2 * height, 360.0)
+        middle = min(max((west + east) / 2, -180.0 + width / 2), 180.0 - width / 2)
+        west, east = middle - width / 2, middle + width / 2
+    else:  # widen the latitudes about the centre, within the poles
+        height = min(width / 2, 180.0)
+        middle = min(max((south + north) / 2, -90.0 + height / 2), 90.0 - height / 2)
+        south, north = middle - height / 2, middle + height / 2
+    return west, east, south, north
+
+
 class MapFigures:
     """The Bokeh models of one layout of maps, and their update in place.
 
@@ -379,7 +421,9 @@ class MapFigures:
         self.shape = shape
         signed = shape[0][0]
         x_range, y_range = Range1d(-180, 180), Range1d(-90, 90)  # shared by every map: linked zoom
+        self.ranges, self.extent = (x_range, y_range), (-180.0, 180.0, -90.0, 90.0)
         x_ticks, y_ticks, formatter = FixedTicker(ticks=_XTICKS), FixedTicker(ticks=_YTICKS), BasicTickFormatter()
+        self.tickers = (x_ticks, y_ticks)
         # one colour range for all maps of a kind (colour_range): one mapper; NaN transparent
         self.mapper = LinearColorMapper(palette=DIVERGING if signed else SEQUENTIAL, low=-1.0, high=1.0, nan_color="rgba(0, 0, 0, 0)")
         self.coast = ColumnDataSource(coastline_lines())
@@ -448,9 +492,17 @@ class MapFigures:
         boxes = region_boxes(region)
         self.outline.data = {"left": [b[0] for b in boxes], "right": [b[2] for b in boxes],
                              "bottom": [b[1] for b in boxes], "top": [b[3] for b in boxes]}
-        for i, (field, item, mask) in enumerate(zip(fields, items, masks, strict=True)):
-            _signed, stippled, regular = self.shape[i]
-            self.sources[i].data = image_columns(field) if regular else quad_columns(field)
+        columns = [image_columns(field) if self.shape[i][2] else quad_columns(field) for i, field in enumerate(fields)]
+        extent = map_extent(columns)
+        if extent != self.extent:  # only a new box moves the view (a reader's zoom is kept otherwise)
+            self.extent = extent
+            x_range, y_range = self.ranges
+            x_range.update(start=extent[0], end=extent[1], reset_start=extent[0], reset_end=extent[1])
+            y_range.update(start=extent[2], end=extent[3], reset_start=extent[2], reset_end=extent[3])
+            self.tickers[0].ticks = _ticks(extent[0], extent[1]) if extent[:2] != (-180.0, 180.0) else _XTICKS
+            self.tickers[1].ticks = _ticks(extent[2], extent[3]) if extent[2:] != (-90.0, 90.0) else _YTICKS
+        for i, (_field, item, mask) in enumerate(zip(fields, items, masks, strict=True)):
+            self.sources[i].data = columns[i]
             dots = self.dots[i]
             if dots is not None and mask is not None:
                 dots.data = dot_columns(mask)

@@ -178,3 +178,8 @@ def served_sample(sample_manifest: Path) -> Iterator[str]:
     with serving(results) as url:
         yield url
     results.close()
+
+
+#: Every model of the page's Bokeh documents, as one JavaScript array expression (the
+#: documents' model list is ``all_models`` in Bokeh 3.x, ``_all_models`` before).
+PAGE_MODELS_JS = "Bokeh.documents.flatMap(doc => Array.from(doc.all_models ?? doc._all_models?.values() ?? []))"

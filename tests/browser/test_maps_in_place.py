@@ -24,7 +24,7 @@ import xarray as xr
 from app.views.results import Results
 from evaluation.catalog import Collection
 
-from .conftest import open_dashboard, serving, wait_for_view
+from .conftest import PAGE_MODELS_JS, open_dashboard, serving, wait_for_view
 
 pytestmark = pytest.mark.browser
 
@@ -32,26 +32,23 @@ pytestmark = pytest.mark.browser
 #: or a text model), image (row 0 = southernmost) and colour range, sorted by title.
 MAPS_JS = """() => {
   const out = [];
-  for (const doc of Bokeh.documents) {
-    const models = doc.all_models ?? doc._all_models?.values() ?? [];
-    for (const m of models) {
-      if (!m.renderers || !m.title) continue;
-      const r = m.renderers.find(r => r.glyph && r.glyph.type === "Image");
-      if (!r) continue;
-      const data = r.data_source.data;
-      const column = data instanceof Map ? data.get("image") : data.image;
-      if (!column || column.length === 0) continue;
-      const image = column[0];
-      const text = m.title.text;
-      out.push({
-        title: typeof text === "string" ? text : text.text,
-        title_type: typeof text === "string" ? "str" : text.type,
-        ids: [m.id, r.id, r.data_source.id, r.glyph.color_mapper.id],
-        shape: Array.from(image.shape),
-        values: Array.from(image, v => Number.isNaN(v) ? null : v),
-        range: [r.glyph.color_mapper.low, r.glyph.color_mapper.high],
-      });
-    }
+  for (const m of """ + PAGE_MODELS_JS + """) {
+    if (!m.renderers || !m.title) continue;
+    const r = m.renderers.find(r => r.glyph && r.glyph.type === "Image");
+    if (!r) continue;
+    const data = r.data_source.data;
+    const column = data instanceof Map ? data.get("image") : data.image;
+    if (!column || column.length === 0) continue;
+    const image = column[0];
+    const text = m.title.text;
+    out.push({
+      title: typeof text === "string" ? text : text.text,
+      title_type: typeof text === "string" ? "str" : text.type,
+      ids: [m.id, r.id, r.data_source.id, r.glyph.color_mapper.id],
+      shape: Array.from(image.shape),
+      values: Array.from(image, v => Number.isNaN(v) ? null : v),
+      range: [r.glyph.color_mapper.low, r.glyph.color_mapper.high],
+    });
   }
   return out.sort((a, b) => a.title.localeCompare(b.title));
 }"""

@@ -11,22 +11,19 @@ import pytest
 from app.views.maps import STIPPLE_LEGEND
 from evaluation.bootstrap import BEST_RULE
 
-from .conftest import open_dashboard, wait_for_view
+from .conftest import PAGE_MODELS_JS, open_dashboard, wait_for_view
 
 pytestmark = pytest.mark.browser
 
 #: Glyph types of the page's Bokeh documents, with the number of points of each Scatter.
 _GLYPHS_JS = """() => {
   const found = [];
-  for (const doc of Bokeh.documents) {
-    const models = doc.all_models ?? doc._all_models?.values() ?? [];
-    for (const m of models) {
-      if (m.type === "GlyphRenderer") {
-        const data = m.data_source && m.data_source.data;
-        const column = data ? (data instanceof Map ? [...data.values()][0] : Object.values(data)[0]) : null;
-        const n = column ? column.length : -1;
-        found.push([m.glyph.type, n]);
-      }
+  for (const m of """ + PAGE_MODELS_JS + """) {
+    if (m.type === "GlyphRenderer") {
+      const data = m.data_source && m.data_source.data;
+      const column = data ? (data instanceof Map ? [...data.values()][0] : Object.values(data)[0]) : null;
+      const n = column ? column.length : -1;
+      found.push([m.glyph.type, n]);
     }
   }
   return found;
