@@ -313,6 +313,10 @@ class ResultView(Viewer):
             return
         self._generation += 1
         generation = self._generation
+        # What is on the page is no longer what was asked last: a request that goes back to
+        # it while this one loads (a period moved and moved back) must be drawn again, or
+        # this older answer, the newest started, would stay on the page.
+        self._drawn = None
         on_document(self._doc, lambda: setattr(self._body, "loading", True))
         files = self.results.generation
         try:
