@@ -631,7 +631,8 @@ class Selection(param.Parameterized):
         # ``param.update(a=..., b=...)`` at once: each is checked, then one request is made.
         if self._busy or self.span is None:
             return
-        if [event for event in events if self._choice_accepted(event)]:
+        accepted = [self._choice_accepted(event) for event in events]  # every event checked
+        if any(accepted):
             self.publish()
 
     def _choice_accepted(self, event: param.parameterized.Event) -> bool:

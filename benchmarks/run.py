@@ -58,7 +58,7 @@ import tempfile
 import time
 from pathlib import Path
 
-from serving import free_port, wait_until_live
+from serving import SHADOW_FIND_JS, free_port, wait_until_live
 
 HERE = Path(__file__).resolve().parent
 ROOT = HERE.parent
@@ -533,19 +533,11 @@ def _overview_time(browser, url: str) -> dict:
         page.close()
 
 
-#: The score table's rows differ from ``before`` (and, given ``expected``, are all
-#: ``expected``), read inside the page; Panel's components live in shadow DOM, which the
-#: walk enters as Playwright's CSS locators do (".gs-view-scores .tabulator-row").
+#: The score table's rows (".gs-view-scores .tabulator-row") differ from ``before`` (and,
+#: given ``expected``, are all ``expected``), read inside the page.
 ROWS_CHANGED_JS = """
-([before, expected]) => {
-  const find = (root, selector, out) => {
-    for (const el of root.querySelectorAll(selector)) out.push(el);
-    for (const el of root.querySelectorAll("*")) if (el.shadowRoot) find(el.shadowRoot, selector, out);
-    return out;
-  };
-  const views = find(document, ".gs-view-scores", []);
-  const rows = views.flatMap(v => v.shadowRoot ? find(v.shadowRoot, ".tabulator-row", find(v, ".tabulator-row", [])) : find(v, ".tabulator-row", []))
-    .map(r => r.textContent);
+([before, expected]) => {""" + SHADOW_FIND_JS + """
+  const rows = within(find(document, ".gs-view-scores", []), ".tabulator-row").map(r => r.textContent);
   const same = (a, b) => a.length === b.length && a.every((x, i) => x === b[i]);
   return rows.length > 0 && !same(rows, before) && (expected === null || same(rows, expected));
 }

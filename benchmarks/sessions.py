@@ -49,7 +49,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 import psutil
-from serving import free_port, wait_until_live
+from serving import SHADOW_FIND_JS, free_port, wait_until_live
 
 HERE = Path(__file__).resolve().parent
 ROOT = HERE.parent
@@ -150,16 +150,9 @@ class Server:
 #: and ~20 ms of browser CPU: polled every 50 ms by ten pages, that was more CPU than the
 #: server's (measured with CDP Performance.getMetrics and the processes' CPU times).
 MAPS_DRAWN_JS = """
-([minus, maps, season]) => {
-  const find = (root, selector, out) => {
-    for (const el of root.querySelectorAll(selector)) out.push(el);
-    for (const el of root.querySelectorAll("*")) if (el.shadowRoot) find(el.shadowRoot, selector, out);
-    return out;
-  };
+([minus, maps, season]) => {""" + SHADOW_FIND_JS + """
   const views = find(document, ".gs-view-maps", []);
   if (views.length === 0 || views.some(v => v.classList.contains("pn-loading"))) return false;
-  // descendants of any of `elements`, in their light DOM and their shadow roots ("A B" in Playwright)
-  const within = (elements, selector) => elements.flatMap(e => e.shadowRoot ? find(e.shadowRoot, selector, find(e, selector, [])) : find(e, selector, []));
   if (season && !find(document, ".gs-hint", []).some(h => h.textContent.includes(` · ${season} · `))) return false;
   const labels = within(within(views, ".gs-download-nc"), "button").map(b => b.textContent);
   if (labels.length !== maps || labels.some(t => t.includes(" minus ") !== minus)) return false;

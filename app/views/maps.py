@@ -499,8 +499,7 @@ class MapFigures:
             x_range, y_range = self.ranges
             x_range.update(start=extent[0], end=extent[1], reset_start=extent[0], reset_end=extent[1])
             y_range.update(start=extent[2], end=extent[3], reset_start=extent[2], reset_end=extent[3])
-            self.tickers[0].ticks = _ticks(extent[0], extent[1]) if extent[:2] != (-180.0, 180.0) else _XTICKS
-            self.tickers[1].ticks = _ticks(extent[2], extent[3]) if extent[2:] != (-90.0, 90.0) else _YTICKS
+            self.tickers[0].ticks, self.tickers[1].ticks = _ticks(extent[0], extent[1]), _ticks(extent[2], extent[3])
         for i, (_field, item, mask) in enumerate(zip(fields, items, masks, strict=True)):
             self.sources[i].data = columns[i]
             dots = self.dots[i]
