@@ -1254,6 +1254,10 @@ def score_table(
                      cache=store or False, alternatives=alternatives, ensembles=ensembles)
     table = cmp.scores(regions=regions, seasons=seasons)
     prov = cmp.provenance(regions=regions, seasons=seasons)
+    if store is not None:
+        # the background writes (Cache.put_later) are stored and evicted within the bound when
+        # this returns: a caller in this process saw an entry above the bound mid-write
+        store.flush()
     if store is not None and key is not None:
         store.put_json(key, {"table": table.to_dict(orient="list"), "provenance": prov})
     return table, prov

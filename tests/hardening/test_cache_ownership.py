@@ -72,6 +72,34 @@ def test_eviction_in_its_own_folder_removes_only_entries(capsys, data_folder: Pa
     assert (cache / MARKER).read_text().startswith("Signature: 8a477f597d28d172789f06886806bc55")  # CACHEDIR.TAG spec
 
 
+def test_background_writes_are_done_and_evicted_when_the_command_returns(capsys, data_folder: Path, tmp_path: Path, monkeypatch) -> None:
+    """The race behind an entry left above the bound: the command returned while the
+    background writer still held season means; a slowed writer makes it certain."""
+    import threading
+    import time
+
+    import evaluation.cache as cache_module
+
+    original = cache_module._write_classic
+    background = []
+
+    def slow_write(da, path):
+        if threading.current_thread().name.startswith("gridscore-cache-writer"):
+            background.append(path)
+            time.sleep(0.3)
+        original(da, path)
+
+    monkeypatch.setattr(cache_module, "_write_classic", slow_write)
+    cache = tmp_path / "cache"
+    monkeypatch.setenv("GRIDSCORE_CACHE", str(cache))
+    monkeypatch.setenv("GRIDSCORE_CACHE_LIMIT_MB", "0.000001")  # smaller than any entry
+    assert _score(capsys, data_folder).code == 0
+    assert background  # the season means went through the background writer
+    # common practice (a size bound): nothing stored or half-written above it once the command is done
+    assert not [p.name for p in cache.iterdir() if p.name.startswith(("gs-", ".gs-tmp-"))]
+    assert Cache(cache)._read_index() == {}
+
+
 def test_a_foreign_file_in_the_cache_folder_is_refused(capsys, tmp_path: Path) -> None:
     cache = Cache(tmp_path / "cache")
     cache.put_json("0" * 32, {"a": 1})
