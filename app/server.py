@@ -360,9 +360,83 @@ def _drop_messages_of_closed_pages() -> None:
     WSHandler.on_close = on_close
 
 
+#: Scripts Panel lists for every page and what a page must hold to need them (see
+#: :func:`serve_needed_scripts`): Bokeh's bundles by component name, Panel's by file name.
+TEX_BUNDLE, WEBGL_BUNDLE, ESM_SHIM = "bokeh-mathjax", "bokeh-gl", "es-module-shims"
+#: The delimiters of TeX that Bokeh typesets in a text model with math on.
+_TEX_DELIMITERS = ("$$", "\\[", "\\(")
+
+
+def needed_scripts(models: Any) -> dict[str, bool]:
+    """Which optional scripts a page of these Bokeh ``models`` runs.
+
+    ``bokeh-mathjax`` (1.8 MB) typesets TeX: needed by a ``MathText`` model, or a text
+    model (a Bokeh or Panel HTML/Markdown model) whose ``disable_math`` is off and whose text
+    holds a TeX delimiter; Panel's HTML panes have math off, so a name such as ``$$x$$``
+    stays text.  ``bokeh-gl`` draws plots whose ``output_backend`` is ``"webgl"`` (without
+    it Bokeh falls back to the canvas, with a warning).  ``es-module-shims`` imports the
+    code of Panel's ``ReactiveESM`` components.
+    """
+    from bokeh.models import Markup, Plot
+    from bokeh.models.text import MathText
+    from panel.models.esm import ReactiveESM
+
+    tex = webgl = esm = False
+    for model in models:
+        if isinstance(model, MathText) or (isinstance(model, Markup) and not model.disable_math
+                                            and any(d in str(model.text or "") for d in _TEX_DELIMITERS)):
+            tex = True
+        elif isinstance(model, Plot) and model.output_backend == "webgl":
+            webgl = True
+        elif isinstance(model, ReactiveESM):
+            esm = True
+    return {TEX_BUNDLE: tex, WEBGL_BUNDLE: webgl, ESM_SHIM: esm}
+
+
+def serve_needed_scripts() -> None:
+    """Hand each page only the optional scripts its document needs (:func:`needed_scripts`).
+
+    Panel 1.9.4 lists for every page Bokeh's TeX bundle (1.8 MB, kept whenever the page holds
+    any HTML pane, math on or off), Bokeh's WebGL bundle and the module shim of its ESM
+    components; a gridscore page needs none of them (its plots are drawn on a canvas,
+    :func:`~app.views.look.load_extensions`).  Parsing and running them cost Chromium
+    0.4 CPU-s of the 2.2 a page took to its first maps (benchmarks/page_cost.py).
+    ``bokeh-tables`` stays: Panel's Tabulator describes its columns with Bokeh's
+    ``TableColumn``, a model defined only in that bundle.
+
+    Panel offers no option for this: its page handler (``server_html_page_for_session`` in
+    ``panel/io/server.py``) calls ``bundle_resources(doc.roots, resources)``, whose
+    ``enable_mathjax`` argument and Bokeh's ``Resources.clone(components=...)`` are the public
+    parts used here.  The call is wrapped by name in that module;
+    tests/test_page_scripts.py fails when Panel no longer calls it so or the page still
+    lists a script left out.  Scripts cannot be added to an open page: a model that needs one
+    and appears only after the page loaded (a tab built later) runs without it, which for
+    these three means plain text, a canvas plot, or a console error the browser tests see.
+    """
+    import panel.io.server as panel_server
+
+    original = panel_server.bundle_resources
+    if getattr(original, "_gridscore_scripts", False):
+        return
+
+    def bundle_resources(roots, resources, *args, **kwargs):
+        document = roots[0].document if roots else None
+        needed = needed_scripts(document.models if document is not None else ())
+        components = [c for c in resources.components if needed.get(c, True)]
+        kwargs["enable_mathjax"] = needed[TEX_BUNDLE]
+        bundle = original(roots, resources.clone(components=components), *args, **kwargs)
+        if not needed[ESM_SHIM]:
+            bundle.js_files = [url for url in bundle.js_files if f"/{ESM_SHIM}" not in str(url)]
+        return bundle
+
+    bundle_resources._gridscore_scripts = True  # type: ignore[attr-defined]
+    panel_server.bundle_resources = bundle_resources
+
+
 def _prepare(results: Results) -> None:
     load_extensions()
     _drop_messages_of_closed_pages()
+    serve_needed_scripts()
     coastline_segments()  # read the land fraction once, on this thread, before sessions start
     # Everything made so far (modules, the collection's listing) lives as long as the server:
     # kept out of the cyclic garbage collector's passes.  Panel collects after every closed
