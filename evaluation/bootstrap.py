@@ -39,6 +39,7 @@ Wilks, D. S. (1997): Resampling hypothesis tests for autocorrelated fields.  J. 
 
 from __future__ import annotations
 
+import functools
 from collections.abc import Mapping
 from dataclasses import dataclass
 from typing import TYPE_CHECKING
@@ -164,6 +165,16 @@ def block_weights(n: int, block: int, *, resamples: int = RESAMPLES, seed: int =
     flat = index + n * np.arange(resamples)[:, None]
     counts = np.bincount(flat.ravel(), minlength=resamples * n).reshape(resamples, n)
     return counts / float(n)
+
+
+@functools.lru_cache(maxsize=16)
+def _shared_draws(n: int, block: int, resamples: int, seed: int) -> np.ndarray:
+    """:func:`block_weights`, read-only, made once per process for each ``(n, block)``: every
+    region, season and reference of a request draws the same years (the same seed), and a
+    request of 6 regions x 5 seasons made them 59 times for 7 distinct (years, block)."""
+    draws = block_weights(n, block, resamples=resamples, seed=seed)
+    draws.flags.writeable = False
+    return draws
 
 
 @dataclass(frozen=True)
@@ -304,7 +315,7 @@ def difference_intervals(
         r1 = lag1_autocorrelation(series)
         block = wilks_block_length(n, r1)
         if block not in draws:
-            draws[block] = block_weights(n, block, resamples=resamples, seed=seed)
+            draws[block] = _shared_draws(n, block, resamples, seed)
         for k in (name, other):
             if (k, block) not in drawn:
                 drawn[(k, block)] = resampled_scores(moments[k], draws[block])

@@ -151,3 +151,24 @@ def test_sessions_share_one_look_at_the_files_off_the_event_loop(collection: Pat
     table = results.product(("scores", *args), results.scores, *args)
     assert float(table.query("model == 'a' and metric == 'bias'")["value"].item()) == pytest.approx(6.0, abs=1e-4)
     results.close()
+
+
+def test_a_large_file_rewritten_at_equal_size_and_old_time_changes_its_sample(tmp_path: Path) -> None:
+    """Above the size hashed whole, the content sample is its head, tail and raw blocks at
+    fixed offsets: new values at equal size and the old modification time still change it,
+    a touch that keeps the bytes does not (common practice: an identity of the content)."""
+    from evaluation import request
+
+    big = {"dlat": 2.0, "years": 2, "start_year": 2001}
+    target = write_cf(tmp_path / "big.nc", offset=0.0, **big)
+    st = target.stat()
+    assert st.st_size > request._SAMPLE_WHOLE  # the sampled path, not the whole-file hash
+    before = request._content_sample(str(target), st.st_size)
+    new = write_cf(tmp_path / "new.nc", offset=5.0, **big)
+    assert new.stat().st_size == st.st_size
+    shutil.copyfile(new, target)
+    os.utime(target, ns=(st.st_atime_ns, st.st_mtime_ns))
+    assert request._content_sample(str(target), st.st_size) != before
+    shutil.copyfile(tmp_path / "new.nc", tmp_path / "same.nc")
+    os.utime(tmp_path / "same.nc", ns=(1, 1))
+    assert request._content_sample(str(tmp_path / "same.nc"), st.st_size) == request._content_sample(str(new), st.st_size)
