@@ -26,7 +26,15 @@ sent**, from the page's websocket opening to the arrival of Bokeh's ``PULL-DOC-R
 
 The server's resident memory (the process and its children, psutil) is sampled every
 0.2 s, and the CPU seconds of the server and of the browsers in each round are recorded; the load average of the machine (``uptime``) is recorded beside the times, since
-the browsers share the machine's cores with the server.
+the browsers share the machine's cores with the server.  For each page, until its first
+maps: the seconds its renderer's main thread was busy and ran scripts (CDP
+``Performance.getMetrics`` TaskDuration and ScriptDuration; wall time of the tasks, so they
+grow when the cores are shared) and the websocket messages it received; beside them the browsers' CPU per page, which tells how much of a page's cost
+grows with the number of pages at once.
+
+Each page is a cold, separate visitor (a new browser context: no HTTP or code cache shared
+with the other pages); benchmarks/page_cost.py measures what one page costs the browser,
+cold and returning.
 
 Run: ``python benchmarks/sessions.py`` (``--sessions 1 5 10 20``; ``--profile FILE``
 samples the server with py-spy under the largest N).  The table is printed and written into
@@ -45,6 +53,7 @@ import subprocess
 import sys
 import tempfile
 import time
+from collections.abc import Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -72,6 +81,11 @@ class Outcome:
     input_kept: bool | None = None  # None: the page never drew its first maps, so the inputs were not checked
     page_served: float = float("nan")  # seconds from navigation to the page's HTML (the session built)
     document_sent: float = float("nan")  # seconds from the websocket opening to the document's arrival
+    # wall seconds the page's renderer main thread was busy until its first maps (CDP TaskDuration),
+    # and running scripts (ScriptDuration): CPU time where the cores are free, more where they are shared
+    main_thread: float = float("nan")
+    scripts: float = float("nan")
+    frames: int = 0  # websocket messages the page received until its first maps
     error: str = ""
 
 
@@ -94,15 +108,17 @@ def _uptime() -> str:
 
 
 class Server:
-    """``gridscore serve`` on a free port with a fresh cache folder; RSS sampled meanwhile."""
+    """``gridscore serve`` on a free port with a fresh cache folder; RSS sampled meanwhile.
 
-    def __init__(self, manifest: Path, scratch: Path) -> None:
+    ``start`` is the command before ``serve`` (benchmarks/page_cost.py starts a variant)."""
+
+    def __init__(self, manifest: Path, scratch: Path, start: Sequence[str] = (sys.executable, "-m", "app.cli")) -> None:
         self.port = free_port()
         cache = scratch / f"cache-{self.port}"
         env = {**os.environ, "GRIDSCORE_CACHE": str(cache)}
         self.log = open(scratch / f"server-{self.port}.log", "w")  # noqa: SIM115 (closed in stop)
         self.process = subprocess.Popen(
-            [sys.executable, "-m", "app.cli", "serve", str(manifest), "--port", str(self.port)],
+            [*start, "serve", str(manifest), "--port", str(self.port)],
             cwd=ROOT, env=env, stdout=self.log, stderr=subprocess.STDOUT, start_new_session=True,
         )
         self.url = f"http://localhost:{self.port}/"
@@ -190,6 +206,8 @@ def _time_document(page, outcome: Outcome) -> None:
             reply = "PULL-DOC-REPLY" in payload if isinstance(payload, str) else b"PULL-DOC-REPLY" in payload
             if reply and outcome.document_sent != outcome.document_sent:
                 outcome.document_sent = time.monotonic() - opened[0]
+            if outcome.first_maps != outcome.first_maps:
+                outcome.frames += 1
 
         ws.on("framereceived", frame)
 
@@ -202,6 +220,8 @@ async def _session(browser, url: str, runs: int, start: asyncio.Event) -> Outcom
     try:
         page = await context.new_page()
         _time_document(page, outcome)
+        cdp = await context.new_cdp_session(page)
+        await cdp.send("Performance.enable")
         await start.wait()
         begin = time.monotonic()
         deadline = begin + TIMEOUT_S
@@ -217,6 +237,8 @@ async def _session(browser, url: str, runs: int, start: asyncio.Event) -> Outcom
                 outcome.input_kept = False
             raise
         outcome.first_maps = time.monotonic() - begin
+        metrics = {m["name"]: m["value"] for m in (await cdp.send("Performance.getMetrics"))["metrics"]}
+        outcome.main_thread, outcome.scripts = metrics["TaskDuration"], metrics["ScriptDuration"]
         # the input: the map field "Run mean", while the other pages still load
         changed = time.monotonic()
         await page.locator(".gs-field input[value='0']").check(timeout=60_000)  # options in order: model_mean first
@@ -308,8 +330,9 @@ def _table(rounds: list[Round], machine: str) -> str:
     lines = [
         "| sessions | median to first maps (s) | max to first maps (s) | maps within the time limit | inputs kept "
         "| page served, median (s) | websocket to document, median / max (s) "
-        "| peak server RSS (MB) | server CPU (s) | browsers CPU (s) | load (1/5/15 min) at end |",
-        "|---:|---:|---:|---:|---:|---:|---:|---:|---:|---:|---|",
+        "| peak server RSS (MB) | server CPU (s) | browsers CPU (s) | browsers CPU per page (s) "
+        "| a page's main thread busy / in scripts to first maps, wall, median (s) | messages to first maps, median | load (1/5/15 min) at end |",
+        "|---:|---:|---:|---:|---:|---:|---:|---:|---:|---:|---:|---:|---:|---|",
     ]
     for r in rounds:
         times = r.times()
@@ -324,8 +347,11 @@ def _table(rounds: list[Round], machine: str) -> str:
         sent = [o.document_sent for o in r.outcomes if o.document_sent == o.document_sent]
         waits = (f"| {statistics.median(served):.2f} " if served else "| – ") + (
             f"| {statistics.median(sent):.2f} / {max(sent):.2f} " if sent else "| – ")
+        drawn = [o for o in r.outcomes if o.main_thread == o.main_thread]
+        page = (f"| {statistics.median(o.main_thread for o in drawn):.2f} / {statistics.median(o.scripts for o in drawn):.2f} "
+                f"| {statistics.median(o.frames for o in drawn):.0f} ") if drawn else "| – | – "
         lines.append(f"| {r.sessions} | {med} | {top} | {len(times)}/{len(r.outcomes)} | {kept}/{checked} {waits}| {r.peak_rss_mb:.0f} "
-                     f"| {r.server_cpu:.0f} | {r.browser_cpu:.0f} | {r.load} |")
+                     f"| {r.server_cpu:.0f} | {r.browser_cpu:.0f} | {r.browser_cpu / max(1, len(r.outcomes)):.1f} {page}| {r.load} |")
     by_n = {r.sessions: r for r in rounds}
     ratio = ""
     if 1 in by_n and max(by_n) > 1 and by_n[1].times() and by_n[max(by_n)].outcomes:
