@@ -22,13 +22,17 @@ import holoviews as hv
 import numpy as np
 import pandas as pd
 import panel as pn
+from bokeh.layouts import row as bokeh_row
+from bokeh.models import BasicTickFormatter, ColumnDataSource, FixedTicker, Grid, HoverTool, Range1d
+from bokeh.plotting import figure as bokeh_figure
 
 from evaluation.regions import REGIONS, parse_region
 from evaluation.relative import relative_error_table, run_order
 
 from ..state import OVERVIEW_BY, Request
-from .base import ResultView, figure_pane, on_document, plot_title, text_html
+from .base import ResultView, on_document, plot_title, text_html
 from .look import BETTER, INK, MUTED, WORSE
+from .maps import canvas_text
 from .results import OVERVIEW_SEASONS, overview_args
 
 __all__ = ["OverviewView", "axis_cap", "describe", "overview_table", "row_positions", "shorten"]
@@ -134,6 +138,32 @@ def _ordered_parts(table: pd.DataFrame, by: str) -> list[str]:
     present = list(dict.fromkeys(table["part"]))
     canonical = list(_SEASONS) if by == "season" else list(REGIONS) if by == "region" else []
     return [p for p in canonical if p in present] + [p for p in present if p not in canonical]
+
+
+#: What hovering a dot shows (columns of the dots' data).
+_TOOLTIPS = [
+    ("Run", "@{model}"), ("Variable", "@{label}"), ("Where, when", "@{where}"), ("Reference", "@{reference}"), ("Period", "@{period}"),
+    ("RMSE", "@{rmse_text}"), ("Median RMSE", "@{median_text}"), ("Runs in the median", "@{n_runs}"),
+    ("Relative error", "@{rel_text}"), ("Rank", "@{rank_text}"),
+]
+
+
+def _layout(table: pd.DataFrame, by: str) -> tuple:
+    """The figure's arrangement: runs (ranked), parts, variable labels, row positions
+    (:func:`row_positions`), parts per run, the panels' height, the label panel's and a
+    variable panel's width, the axis cap and the x range."""
+    runs = run_order(table)
+    parts = _ordered_parts(table, by) if by in ("season", "region") else [""]
+    labels = list(dict.fromkeys(table["label"]))
+    y, centre, ylim = row_positions(runs, parts)
+    k = len(parts)
+    row_px = 30 if k == 1 else 15 if k <= 5 else 14  # 8 pt sub-row names need 13 px
+    height = int(row_px * (ylim[1] - ylim[0]))
+    # run names take NAME_PX; sub-row names what the longest needs (8 pt, about 6 px a character)
+    label_width = NAME_PX + (0 if k == 1 else 12 + 6 * max(len(_part_label(by, p)) for p in parts))
+    panel_width = int(np.clip((WIDTH - label_width) / len(labels) - 18, 60, 220))
+    cap = axis_cap(table["rel_error"])
+    return runs, parts, labels, y, centre, ylim, k, height, label_width, panel_width, cap, (-cap * 1.12, cap * 1.12)
 
 
 def describe(table: pd.DataFrame, request: Request, *, short: bool = False) -> str:
@@ -265,18 +295,7 @@ class OverviewView(ResultView):
         if table.empty:
             return None
         by = data["by"]
-        runs = run_order(table)
-        parts = _ordered_parts(table, by) if by in ("season", "region") else [""]
-        labels = list(dict.fromkeys(table["label"]))
-        y, centre, ylim = row_positions(runs, parts)
-        k = len(parts)
-        row_px = 30 if k == 1 else 15 if k <= 5 else 14  # 8 pt sub-row names need 13 px
-        height = int(row_px * (ylim[1] - ylim[0]))
-        # run names take NAME_PX; sub-row names what the longest needs (8 pt, about 6 px a character)
-        label_width = NAME_PX + (0 if k == 1 else 12 + 6 * max(len(_part_label(by, p)) for p in parts))
-        panel_width = int(np.clip((WIDTH - label_width) / len(labels) - 18, 60, 220))
-        cap = axis_cap(table["rel_error"])
-        xlim = (-cap * 1.12, cap * 1.12)
+        runs, parts, labels, y, centre, ylim, k, height, label_width, panel_width, cap, xlim = _layout(table, by)
 
         # the label panel: rank and run name at the band's centre, sub-row names on the right
         names = pd.DataFrame({"x": 0.02, "y": [centre[r] for r in runs], "text": [shorten(f"{i}. {r}") for i, r in enumerate(runs, 1)]})
@@ -312,11 +331,7 @@ class OverviewView(ResultView):
             inside = finite[np.abs(finite["rel_error"]) <= cap]
             outside = finite[np.abs(finite["rel_error"]) > cap]
             hover = ["y", "model", "label", "where", "reference", "period", "rmse_text", "median_text", "n_runs", "rel_text", "rank_text", "colour"]
-            tooltips = [
-                ("Run", "@{model}"), ("Variable", "@{label}"), ("Where, when", "@{where}"), ("Reference", "@{reference}"), ("Period", "@{period}"),
-                ("RMSE", "@{rmse_text}"), ("Median RMSE", "@{median_text}"), ("Runs in the median", "@{n_runs}"),
-                ("Relative error", "@{rel_text}"), ("Rank", "@{rank_text}"),
-            ]
+            tooltips = _TOOLTIPS
             # every layer's first dimensions are (shown, y): the axes are labelled after them
             # (HoloViews finds a dimension by its label too: every label differs)
             x, yd = hv.Dimension("shown", label="relative error", range=xlim), hv.Dimension("y", label="row")
@@ -403,8 +418,111 @@ class OverviewView(ResultView):
     def figure_name(self, request: Request) -> str:
         return super().figure_name(request).replace(f"_{request.variable}_", f"_by-{request.overview_by}_")
 
+    def has_figure(self, data: dict[str, Any], request: Request) -> bool:
+        return not data["table"].empty  # what :meth:`figure` draws (without building it again)
+
     def draw(self, data: dict[str, Any], request: Request) -> pn.viewable.Viewable:
-        figure = self.figure(data, request)
-        if figure is None:
+        if data["table"].empty:
             return pn.pane.HTML('<div class="gs-empty">No relative errors for this selection.</div>')
-        return figure_pane(figure)
+        return pn.pane.Bokeh(bokeh_overview(data["table"], data["by"]), sizing_mode="stretch_width")
+
+
+def _label_glyph(fig: Any, frame: pd.DataFrame, **looks: Any) -> None:
+    """Texts at (x, y) of ``frame`` (centred vertically, as HoloViews' labels)."""
+    fig.text("x", "y", text="text", source=ColumnDataSource({c: frame[c].tolist() for c in ("x", "y", "text")}),
+             text_baseline="middle", **looks)
+
+
+def _no_looks(fig: Any) -> None:
+    """Nothing on the overview is drawn selected or muted: no glyph models for those looks."""
+    for renderer in fig.renderers:
+        renderer.nonselection_glyph = None
+        renderer.muted_glyph = None
+
+
+def bokeh_overview(table: pd.DataFrame, by: str) -> Any:
+    """The figure of :meth:`OverviewView.figure` as plain Bokeh models, for the page.
+
+    The same panels, rows, colours, marks and hover columns as the HoloViews figure (which
+    the PNG/SVG export draws with matplotlib), built directly: HoloViews took 1.1-1.8 CPU-s of
+    the server's event loop for one overview (ranges computed for each of about 40 layers)
+    and made about 600 models for the page.
+    """
+    runs, parts, labels, y, centre, ylim, k, height, label_width, panel_width, cap, xlim = _layout(table, by)
+    y_range = Range1d(*ylim)  # every panel's rows at the same heights
+    formatter, ticker = BasicTickFormatter(), FixedTicker(ticks=[-cap, 0, cap])
+
+    def panel(title: str, width: int, x_range: tuple[float, float], *, x_axis: bool = True) -> Any:
+        # no y axis, no grid lines, no tools: no models for them
+        fig = bokeh_figure(frame_width=width, frame_height=height, x_range=Range1d(*x_range), y_range=y_range, tools=[],
+                           toolbar_location=None, title=canvas_text(title), y_axis_location=None,
+                           x_axis_location="below" if x_axis else None)
+        fig.title.text_font_size = "10pt"
+        fig.center = [r for r in fig.center if not isinstance(r, Grid)]
+        return fig
+
+    names = pd.DataFrame({"x": 0.02, "y": [centre[r] for r in runs], "text": [shorten(f"{i}. {r}") for i, r in enumerate(runs, 1)]})
+    first = panel(" ", label_width, (0, 1), x_axis=False)
+    first.outline_line_color = None
+    _label_glyph(first, names, text_align="left", text_font_size="10pt", text_color=INK, text_font_style="bold")
+    if k > 1:
+        subs = pd.DataFrame({"x": 0.98, "y": [y[(r, p)] for r in runs for p in parts], "text": [_part_label(by, p) for _ in runs for p in parts]})
+        _label_glyph(first, subs, text_align="right", text_font_size="8pt", text_color="#4b5563")
+    _no_looks(first)
+    figures = [first]
+
+    bands = [(y[(r, parts[-1])] - 0.5, y[(r, parts[0])] + 0.5) for i, r in enumerate(runs) if i % 2 == 0]
+    hover = ["model", "label", "where", "reference", "period", "rmse_text", "median_text", "n_runs", "rel_text", "rank_text", "colour"]
+    for index, label in enumerate(labels):
+        block = table[table["label"] == label]
+        value = block["rel_error"].to_numpy(dtype="float64")
+        finite = np.isfinite(value)
+        shown = np.clip(value, -cap, cap)
+        rows = pd.DataFrame({
+            "shown": shown, "y": [y[(m, p)] for m, p in zip(block["model"], block["part"], strict=True)],
+            "model": block["model"].astype(str), "label": block["label"].astype(str),
+            "where": [f"{parse_region(r).label}, {s}" for r, s in zip(block["region"], block["season"], strict=True)],
+            "reference": block["reference"].astype(str), "period": block["period"].astype(str),
+            "rmse_text": [_number(v, u) for v, u in zip(block["rmse"], block["units"], strict=True)],
+            "median_text": [_number(v, u) for v, u in zip(block["median_rmse"], block["units"], strict=True)],
+            "n_runs": block["runs"].astype(int).to_numpy(),
+            "rel_text": [_signed(v) for v in value],
+            "rank_text": [f"{int(rk)} of {n}" if np.isfinite(rk) else "—" for rk, n in zip(block["rank"], block["runs"], strict=True)],
+            "colour": np.where(value < 0, BETTER, np.where(value > 0, WORSE, INK)),
+            "rel_error": value, "tied": block["tied"].astype(bool).to_numpy(), "part": block["part"].astype(str),
+        })[finite]
+        fig = panel(label, panel_width, xlim)
+        fig.xaxis.ticker, fig.xaxis.formatter = ticker, formatter
+        fig.xaxis.major_label_text_font_size = "8pt"
+        fig.xaxis.axis_label = "" if index else "relative error"
+        fig.xaxis.axis_label_text_font_size = "8pt"
+        if bands:
+            fig.quad(left=xlim[0], right=xlim[1], bottom=[b[0] for b in bands], top=[b[1] for b in bands], color=_BAND, line_width=0)
+        fig.segment(x0=[0.0], y0=[ylim[0]], x1=[0.0], y1=[ylim[1]], color=INK, line_width=1)
+        stems = ColumnDataSource({"x0": np.zeros(len(rows)), "y": rows["y"].to_numpy(), "x1": rows["shown"].to_numpy(), "colour": rows["colour"].tolist()})
+        fig.segment(x0="x0", y0="y", x1="x1", y1="y", source=stems, color="colour", line_width=2 if k > 1 else 3)
+        dots = []
+        inside, outside = rows[np.abs(rows["rel_error"]) <= cap], rows[np.abs(rows["rel_error"]) > cap]
+        columns = ["shown", "y", *hover]
+        dots.append(fig.scatter("shown", "y", source=ColumnDataSource({c: inside[c].tolist() for c in columns}),
+                                color="colour", size=7 if k > 1 else 10, line_color="white"))
+        for side, turn in ((outside[outside["rel_error"] > 0], -90), (outside[outside["rel_error"] < 0], 90)):
+            if side.empty:
+                continue
+            # an arrow head pointing off the axis
+            dots.append(fig.scatter("shown", "y", source=ColumnDataSource({c: side[c].tolist() for c in columns}), color="colour",
+                                    marker="triangle", angle=turn, angle_units="deg", size=10 if k > 1 else 13))
+        present = set(zip(rows["model"], rows["part"], strict=True))
+        # a run without the variable: "n/a" at the left edge, off the centre line
+        gaps = pd.DataFrame([(xlim[0] + 0.04 * cap, y[(r, p)], "n/a") for r in runs for p in parts if (r, p) not in present], columns=["x", "y", "text"])
+        if not gaps.empty:
+            _label_glyph(fig, gaps, text_color=MUTED, text_font_size="8pt", text_align="left")
+        tied = rows[rows["tied"]]
+        if not tied.empty:
+            marks = pd.DataFrame({"x": tied["shown"] + np.where(tied["shown"] < 0, -0.16, 0.16) * cap, "y": tied["y"], "text": "≈"})
+            _label_glyph(fig, marks, text_color=INK, text_font_size="11pt", text_align="center")
+        # Tooltip labels are set as text by Bokeh; the value templates are our own placeholders, whose values Bokeh escapes.
+        fig.add_tools(HoverTool(renderers=dots, tooltips=_TOOLTIPS))
+        _no_looks(fig)
+        figures.append(fig)
+    return bokeh_row(figures)
