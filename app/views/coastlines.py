@@ -40,10 +40,14 @@ def coastline_segments() -> tuple[np.ndarray, ...]:
     Read once per process (the result is cached).  Cells whose land fraction is NaN
     would open gaps in the contour; the bundled file has none.
     """
+    from evaluation.io import _OPEN_LOCK
+
     path = resources.files("evaluation") / "data" / "land_fraction_1deg.nc"
     with resources.as_file(path) as local:
-        # netCDF-C is not thread-safe; this runs once at server start-up, on one thread.
-        with xr.open_dataset(local) as ds:
+        # netCDF-C is not thread-safe (pydata/xarray#4100): this runs at server start-up while
+        # the collection's files are being opened on another thread, so it takes the lock
+        # every open of the core takes.
+        with _OPEN_LOCK, xr.open_dataset(local) as ds:
             lon = ds["lon"].values
             lat = ds["lat"].values
             frac = ds["sftlf"].values
