@@ -294,17 +294,37 @@ class ResultView(Viewer):
         # drawn from files of an older generation: drawn again, even if hidden meanwhile
         if not force and (self.results.generation, self.key(request)) == self._drawn:
             return
-        if not self._layout._models:
-            # Not on a page yet (the page being built, or a tab not shown before): numbers
-            # already computed are drawn now, into the page's first document, instead of an
-            # empty view that a second message fills.  Files that changed meanwhile are
-            # caught by the session's look at them, which draws again.
-            ready = self.ready(request)
-            if ready is not None:
-                self._generation += 1
-                self._show(("data", ready), request, self._generation, self.results.generation)
+        ready = self.ready(request)
+        if ready is not None:
+            self._generation += 1
+            generation, files = self._generation, self.results.generation
+            if not self._layout._models:
+                # Not on a page yet (the page being built, or a tab not shown before): numbers
+                # already computed are drawn now, into the page's first document, instead of an
+                # empty view that a second message fills.  Files that changed meanwhile are
+                # caught by the session's look at them, which draws again.
+                self._show(("data", ready), request, generation, files)
                 return
+            # On the page: drawn in the next tick, without the loading state and the look at the
+            # files first (the look's thread hop, two ticks and the "Computing…" message took
+            # 10-70 ms of a cached change of region at load 3); the look follows, and files
+            # that changed meanwhile draw the view again from the new files.
+            self._drawn = None  # a request back to what is on the page meanwhile draws it again (see refresh)
+            on_document(self._doc, lambda: self._show(("data", ready), request, generation, files))
+            pn.state.execute(functools.partial(self._look_after, files))
+            return
         pn.state.execute(self.refresh)
+
+    async def _look_after(self, files: int) -> None:
+        """After drawing numbers at hand from generation ``files`` of the input files: the shared
+        look at the files, and the view drawn again if they changed."""
+        try:
+            now = await self.results.fresh()
+        except Exception:  # the session's own look reports a failing look
+            log.exception("view %s could not look at the input files", self.tab)
+            return
+        if now != files:
+            on_document(self._doc, self.update)
 
     async def refresh(self) -> None:
         """Load the current request off the loop, then draw it; a newer refresh wins."""

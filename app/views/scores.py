@@ -39,15 +39,20 @@ __all__ = ["ScoresView", "best_rows", "number_format", "provenance_download", "w
 #: Table downloads offered: exporter format -> button label.
 DOWNLOADS = {"csv": "CSV", "xlsx": "Excel", "md": "Markdown", "tex": "LaTeX"}
 #: Compact numeric table: wrapped header titles, tabular figures.
+#: A best value (bold in its cell, see :func:`_formatters`): the whole cell tinted; a value within
+#: observational uncertainty of the best (italic): underlined, and named in the "≈ best" column.
 TABLE_CSS = """
 :host .tabulator-col-title { white-space: normal !important; text-overflow: clip !important; line-height: 1.2;
   padding-right: 14px !important; }
 :host .tabulator-cell { font-variant-numeric: tabular-nums; font-size: 13px; }
 :host .tabulator-col { font-size: 12px; }
+:host .tabulator-cell:has(> div[style*="font-weight: bold"]) { background-color: #d7f0ec; color: #0b4f4c; }
+:host .tabulator-cell > div[style*="font-weight: bold"] { font-weight: 700 !important; }
+:host .tabulator-cell > div[style*="font-style: italic"] { text-decoration: underline dotted; }
 """
-_BEST_STYLE = "background-color: #d7f0ec; font-weight: 700; color: #0b4f4c"
-#: A value within observational uncertainty of the best: underlined, and named in the "≈ best" column.
-_WITHIN_STYLE = "text-decoration: underline dotted; font-style: italic"
+#: The hidden column that says how a metric's cells are marked: its values are the cells' font
+#: style ("bold": best, "italic": within observational uncertainty of the best, "normal").
+MARK = "{} mark"
 #: The text column that names, per run, the metrics it ties with the best within observational uncertainty.
 WITHIN_COLUMN = "≈ best (obs. uncertainty)"
 
@@ -122,19 +127,6 @@ def within_best(shown: pd.DataFrame, pairs: pd.DataFrame, metrics: list[str]) ->
     return marks
 
 
-class _Marks:
-    """The style function of one table: the cells it marks, replaced when the table is given the
-    values of another selection in place (Panel applies the function again to the new values)."""
-
-    def __init__(self, best: dict[str, list[bool]], tied: dict[str, list[bool]]) -> None:
-        self.best, self.tied = best, tied
-
-    def __call__(self, column: pd.Series) -> list[str]:
-        flags = self.best.get(str(column.name), [False] * len(column))
-        tied = self.tied.get(str(column.name), [False] * len(column))
-        return [_BEST_STYLE if f else _WITHIN_STYLE if t else "" for f, t in zip(flags, tied, strict=True)]
-
-
 def table_parts(shown: pd.DataFrame, units: dict[str, str], within: dict[str, list[bool]] | None = None,
                 confirmed: dict[str, list[bool]] | None = None) -> dict[str, Any]:
     """What one table of runs × metrics shows, before any widget is made: the frame, the column
@@ -144,15 +136,18 @@ def table_parts(shown: pd.DataFrame, units: dict[str, str], within: dict[str, li
     (metric -> runs whose bootstrap interval excludes zero, :data:`evaluation.bootstrap.BEST_RULE`),
     a metric it names marks only those runs."""
     metrics = list(units)
-    # the text column is shown only in a table where some run ties (a column of dashes says
-    # nothing); it is there, hidden and empty, in the others, so that every region's table has
-    # the same columns and a change of region changes the values of the table on the page
-    ties = within is not None and any(any(within.get(m, [])) for m in metrics)
+    marked = [m for m in metrics if m in METRICS and METRICS[m].best is not None]
+    if not marked:
+        within = None  # no metric of this table has a best value that a run could tie with
+    # the text column is in every table of a comparison with several references, "–" for a run
+    # that ties in none of its metrics: every region's table has the same columns shown, and a
+    # change of region changes only the values of the tables on the page (showing or hiding a
+    # column made Tabulator redraw the whole table in the browser, 60-200 ms a table)
     if within is not None:
         shown = shown.copy()
         shown[WITHIN_COLUMN] = [
             ", ".join(METRICS[m].label if m in METRICS else m for m in metrics if within.get(m, [False] * len(shown))[i]) or "–"
-            if ties else "" for i in range(len(shown))
+            for i in range(len(shown))
         ]
     titles = {"Run": "Run"}
     formats: dict[str, str | None] = {}
@@ -170,13 +165,24 @@ def table_parts(shown: pd.DataFrame, units: dict[str, str], within: dict[str, li
         if m in marks:
             marks[m] = [b and a for b, a in zip(marks[m], allowed, strict=True)]
     tied = {m: (within or {}).get(m, [False] * len(shown)) for m in metrics}
+    # The marks travel with the values, one hidden text column per metric that has a best value,
+    # read by the column's number format as the cells' font style (and by TABLE_CSS): a change of
+    # region sends the new columns only.  Marked through the table's cell styles, every change
+    # of them made Tabulator redraw each whole table in the browser, a third of the change.
+    if marked:
+        shown = shown.copy() if within is None else shown
+        for m in marked:
+            shown[MARK.format(m)] = ["bold" if b else "italic" if t else "normal" for b, t in zip(marks[m], tied[m], strict=True)]
+    hidden = [MARK.format(m) for m in marked]
     return {"frame": shown, "metrics": metrics, "titles": titles, "formats": formats, "tooltips": tooltips,
-            "within": within is not None, "hidden": [] if ties or within is None else [WITHIN_COLUMN], "best": marks, "tied": tied}
+            "within": within is not None, "hidden": hidden, "marked": marked, "best": marks, "tied": tied}
 
 
 def _formatters(parts: dict[str, Any]) -> dict[str, Any]:
+    marked = set(parts.get("marked", ()))
     formatters: dict[str, Any] = {
-        m: P_VALUE_FORMAT if fmt is None else NumberFormatter(format=fmt, nan_format="–", text_align="right")
+        m: P_VALUE_FORMAT if fmt is None else NumberFormatter(format=fmt, nan_format="–", text_align="right",
+                                                              **({"font_style": MARK.format(m)} if m in marked else {}))
         for m, fmt in parts["formats"].items()
     }
     if parts["within"]:
@@ -184,7 +190,7 @@ def _formatters(parts: dict[str, Any]) -> dict[str, Any]:
     return formatters
 
 
-def _widget(parts: dict[str, Any]) -> tuple[pn.widgets.Tabulator, _Marks]:
+def _widget(parts: dict[str, Any]) -> pn.widgets.Tabulator:
     widget = pn.widgets.Tabulator(
         parts["frame"],
         show_index=False,
@@ -201,15 +207,13 @@ def _widget(parts: dict[str, Any]) -> tuple[pn.widgets.Tabulator, _Marks]:
         hidden_columns=parts["hidden"],
         stylesheets=[TABLE_CSS],
     )
-    marks = _Marks(parts["best"], parts["tied"])
-    widget.style.apply(marks, axis=0, subset=parts["metrics"])
-    return widget, marks
+    return widget
 
 
 class _Drawn:
     """The score tables on the page and what the next drawing of the same shape changes in place."""
 
-    def __init__(self, shape: tuple, column: pn.Column, tables: list[tuple[pn.widgets.Tabulator, _Marks, dict[str, str | None]]],
+    def __init__(self, shape: tuple, column: pn.Column, tables: list[tuple[pn.widgets.Tabulator, dict[str, str | None]]],
                  hints: dict[str, pn.pane.HTML], buttons: list[pn.widgets.FileDownload]) -> None:
         self.shape, self.column, self.tables, self.hints, self.buttons = shape, column, tables, hints, buttons
 
@@ -217,17 +221,16 @@ class _Drawn:
         """Whether these tables are what the view shows, each with a model in the session's document
         (a model left out of the document would take new values that never reach the page)."""
         return (doc is not None and body.objects == [self.column]
-                and all(any(m.document is doc for m, _ in widget._models.values()) for widget, _, _ in self.tables))
+                and all(any(m.document is doc for m, _ in widget._models.values()) for widget, _ in self.tables))
 
     def refill(self, specs: list[dict[str, Any]]) -> None:
         """Every table showing the values of ``specs`` (same columns, titles and order rule): Panel
-        sends the new values and cell styles of the table models already on the page, and a
-        column's number format only where it changed."""
-        for i, ((widget, marks, formats), parts) in enumerate(zip(self.tables, specs, strict=True)):
-            marks.best, marks.tied = parts["best"], parts["tied"]
+        sends the new values (their marks in hidden columns) of the table models already on the page,
+        and a column's number format only where it changed."""
+        for i, ((widget, formats), parts) in enumerate(zip(self.tables, specs, strict=True)):
             if parts["formats"] != formats:
                 _reformat(widget, parts)
-                self.tables[i] = (widget, marks, dict(parts["formats"]))
+                self.tables[i] = (widget, dict(parts["formats"]))
             if parts["hidden"] != widget.hidden_columns:
                 widget.hidden_columns = parts["hidden"]
             widget.value = parts["frame"]
@@ -296,12 +299,19 @@ class ScoresView(ResultView):
         return (request.variable, request.level, request.reference, request.models, request.region, request.season, request.period,
                 request.target_grid, request.sort)
 
+    @staticmethod
+    def _view_key(request: Request) -> tuple:
+        """Where the whole of what is drawn is kept with the products (of this generation of the
+        files): a selection shown before is drawn again without computing."""
+        return ("scores_view", request.reference, request.variable, request.period, request.region, request.season,
+                request.level, request.target_grid, request.models)
+
+    def ready(self, request: Request) -> dict[str, Any] | None:
+        return self.results.products.get(self._view_key(request), None)
+
     async def load(self, request: Request) -> dict[str, Any]:
         results = self.results
-        # the whole of what is drawn, kept with the products (of this generation of the files):
-        # a selection shown before is drawn again without computing
-        view_key = ("scores_view", request.reference, request.variable, request.period, request.region, request.season,
-                    request.level, request.target_grid, request.models)
+        view_key = self._view_key(request)
         products = results.products
         kept = products.get(view_key, None)
         if kept is not None:
@@ -340,11 +350,11 @@ class ScoresView(ResultView):
         units = tidy.drop_duplicates("metric").set_index("metric")["units"].to_dict()
         return shown, {m: str(units.get(m, "")) for m in metrics}
 
-    def draw(self, data: dict[str, Any], request: Request) -> pn.viewable.Viewable:
+    def _tables(self, data: dict[str, Any], request: Request) -> tuple[list[tuple[str | None, dict[str, Any]]], dict[str, str] | None,
+                                                                     dict[str, str], tuple]:
+        """What :meth:`draw` shows of ``data`` in the order of ``request.sort``: each table's parts
+        (:func:`table_parts`) under its heading, the sorter, the hints and the shape of the whole."""
         tidy: pd.DataFrame = data["tidy"]
-        if tidy.empty:
-            self._kept = None
-            return pn.pane.HTML('<div class="gs-empty">No scores for this selection.</div>')
         shown, units = data["table"] if "table" in data else self.table(tidy)
         shown, sorter = sorted_runs(shown, request.sort)
         # "best" only where the bootstrap interval against the best other run excludes zero
@@ -375,6 +385,19 @@ class ScoresView(ResultView):
         }
         shape = (tuple((heading, tuple(parts["frame"].columns), tuple(parts["titles"].values())) for heading, parts in specs),
                  None if sorter is None else tuple(sorted(sorter.items())), tuple(k for k, v in hints.items() if v))
+        return specs, sorter, hints, shape
+
+    def draw(self, data: dict[str, Any], request: Request) -> pn.viewable.Viewable:
+        tidy: pd.DataFrame = data["tidy"]
+        if tidy.empty:
+            self._kept = None
+            return pn.pane.HTML('<div class="gs-empty">No scores for this selection.</div>')
+        # the tables' frames, formats and marks, made once per shown selection and order of runs and
+        # kept with its numbers: a change back to a region seen before does no pandas work
+        drawn = data.setdefault("drawn", {})
+        if request.sort not in drawn:
+            drawn[request.sort] = self._tables(data, request)
+        specs, sorter, hints, shape = drawn[request.sort]
         kept = self._kept
         if kept is not None and kept.shape == shape and kept.on_page(self._body, self._doc):
             # the same tables with other values (another region, say): changed in place, so that the
@@ -391,9 +414,9 @@ class ScoresView(ResultView):
         for heading, spec in specs:
             if heading is not None:
                 parts.append(pn.pane.HTML(f'<div class="gs-section-title">{text_html(heading)}</div>', margin=(6, 10, 2, 10)))
-            widget, marks = _widget(spec)
+            widget = _widget(spec)
             parts.append(self._sortable(widget, sorter))
-            tables.append((widget, marks, dict(spec["formats"])))
+            tables.append((widget, dict(spec["formats"])))
         buttons = self._download_buttons()
         self._point_downloads(buttons, data, request)
         note = pn.pane.HTML('<span class="gs-hint">Download the table:</span>', margin=(12, 4, 0, 10))
