@@ -37,20 +37,25 @@ import argparse
 import json
 import shutil
 import statistics
-import sys
 import tempfile
 import time
 from collections import defaultdict
 from pathlib import Path
 
-from sessions import CHROMIUM_ARGS, MAPS_DRAWN_JS, SAMPLE, Server, _browsers_cpu, _runs_shown, _uptime
+from sessions import (
+    ALL_SCRIPTS,
+    CHROMIUM_ARGS,
+    MAPS_DRAWN_JS,
+    SAMPLE,
+    SERVE,
+    Server,
+    _browsers_cpu,
+    _runs_shown,
+    _uptime,
+)
 
 HERE = Path(__file__).resolve().parent
 ROOT = HERE.parent
-#: Starts ``gridscore serve`` with the page's script selection switched off (``--compare``).
-ALL_SCRIPTS = (sys.executable, "-c", "import sys, app.server as s; s.serve_needed_scripts = lambda: None; "
-               "from app.cli import main; sys.exit(main(sys.argv[1:]))")
-NEEDED_SCRIPTS = (sys.executable, "-m", "app.cli")
 METRICS = ("first_maps_s", "browser_cpu_s", "task_s", "script_s", "style_s", "layout_s")
 SCRIPTS_JS = """() => performance.getEntriesByType("resource")
   .filter(e => e.initiatorType === "script" || e.name.split("?")[0].endsWith(".js"))
@@ -156,7 +161,7 @@ def main() -> None:
     with tempfile.TemporaryDirectory(prefix="gridscore-page-") as tmp, sync_playwright() as playwright:
         scratch = Path(tmp)
         browser = playwright.chromium.launch(executable_path=chromium, args=CHROMIUM_ARGS)
-        servers = {k: Server(SAMPLE, scratch, start=ALL_SCRIPTS if k == "all" else NEEDED_SCRIPTS) for k in kinds}
+        servers = {k: Server(SAMPLE, scratch, start=ALL_SCRIPTS if k == "all" else SERVE) for k in kinds}
         try:
             for server in servers.values():  # the first page computes the maps: not measured
                 _visit(browser, server.url, runs)

@@ -37,7 +37,8 @@ with the other pages); benchmarks/page_cost.py measures what one page costs the 
 cold and returning.
 
 Run: ``python benchmarks/sessions.py`` (``--sessions 1 5 10 20``; ``--profile FILE``
-samples the server with py-spy under the largest N).  The table is printed and written into
+samples the server with py-spy under the largest N; ``--compare-scripts`` runs each round
+twice, first with a server that hands every page all of Panel's scripts, and prints both).  The table is printed and written into
 ``benchmarks/results.md`` between the ``sessions`` markers.
 """
 
@@ -70,6 +71,11 @@ CHROMIUM_ARGS = ["--headless", "--no-sandbox", "--disable-gpu", "--disable-backg
 #: The target of issue 11: median time to first maps with 10 sessions at most 3x one session's.
 TARGET_RATIO = 3.0
 TIMEOUT_S = 600.0
+#: The command before ``serve``: gridscore as installed, and (``--compare-scripts``) the same
+#: with its choice of the page's scripts switched off in that process (every script Panel lists).
+SERVE = (sys.executable, "-m", "app.cli")
+ALL_SCRIPTS = (sys.executable, "-c", "import sys, app.server as s; s.serve_needed_scripts = lambda: None; "
+               "from app.cli import main; sys.exit(main(sys.argv[1:]))")
 #: The season picked while the page loads.
 SEASON, SEASON_LABEL = "JJA", "Jun–Aug (JJA)"
 
@@ -97,6 +103,7 @@ class Round:
     load: str = ""
     server_cpu: float = 0.0  # CPU seconds the server used in the round (all threads)
     browser_cpu: float = 0.0  # CPU seconds the browser processes used in the round
+    all_scripts: bool = False  # the server handed every page all of Panel's scripts (--compare-scripts)
 
     def times(self) -> list[float]:
         return [o.first_maps for o in self.outcomes if o.first_maps == o.first_maps]
@@ -112,7 +119,7 @@ class Server:
 
     ``start`` is the command before ``serve`` (benchmarks/page_cost.py starts a variant)."""
 
-    def __init__(self, manifest: Path, scratch: Path, start: Sequence[str] = (sys.executable, "-m", "app.cli")) -> None:
+    def __init__(self, manifest: Path, scratch: Path, start: Sequence[str] = SERVE) -> None:
         self.port = free_port()
         cache = scratch / f"cache-{self.port}"
         env = {**os.environ, "GRIDSCORE_CACHE": str(cache)}
@@ -220,6 +227,9 @@ async def _session(browser, url: str, runs: int, start: asyncio.Event) -> Outcom
     try:
         page = await context.new_page()
         _time_document(page, outcome)
+        console: list[str] = []  # the page's errors, shown with a problem
+        page.on("console", lambda m: console.append(m.text[:200]) if m.type == "error" else None)
+        page.on("pageerror", lambda e: console.append(f"page error: {str(e)[:200]}"))
         cdp = await context.new_cdp_session(page)
         await cdp.send("Performance.enable")
         await start.wait()
@@ -250,16 +260,19 @@ async def _session(browser, url: str, runs: int, start: asyncio.Event) -> Outcom
             pass
         outcome.input_kept = "field=model_mean" in page.url and f"season={SEASON}" in page.url and outcome.redrawn == outcome.redrawn
         if not outcome.input_kept:
-            outcome.error = f"input lost: url {page.url}"
+            outcome.error = f"input lost: url {page.url}" + ("" if outcome.redrawn == outcome.redrawn else " (no maps of the field)")
     except Exception as error:  # counted and shown, not fatal for the round
         outcome.error = f"{type(error).__name__}: {str(error)[:160]}"
     finally:
+        if outcome.error and console:
+            outcome.error += f"; console: {console[:3]}"
         await context.close()
     return outcome
 
 
-async def _round(browser, manifest: Path, scratch: Path, n: int, runs: int, profile: Path | None) -> Round:
-    server = Server(manifest, scratch)
+async def _round(browser, manifest: Path, scratch: Path, n: int, runs: int, profile: Path | None,
+                 start: Sequence[str] = SERVE) -> Round:
+    server = Server(manifest, scratch, start)
     result = Round(sessions=n)
     spy = None
     try:
@@ -396,11 +409,13 @@ async def main_async(args: argparse.Namespace) -> list[Round]:
             browser = await playwright.chromium.launch(executable_path=chromium, args=CHROMIUM_ARGS)
             for n in args.sessions:
                 profile = Path(args.profile).resolve() if args.profile and n == max(args.sessions) else None
-                r = await _round(browser, manifest, scratch, n, runs, profile)
-                errors = [o.error for o in r.outcomes if o.error]
-                print(f"{n} sessions: first maps {sorted(round(t, 1) for t in r.times())}, peak RSS {r.peak_rss_mb:.0f} MB, "
-                      f"load {r.load}" + (f"; problems: {errors[:3]}" if errors else ""), flush=True)
-                rounds.append(r)
+                for start in ([ALL_SCRIPTS, SERVE] if args.compare_scripts else [SERVE]):
+                    r = await _round(browser, manifest, scratch, n, runs, profile, start)
+                    r.all_scripts = start is ALL_SCRIPTS
+                    errors = [o.error for o in r.outcomes if o.error]
+                    print(f"{n} sessions{' (every script)' if r.all_scripts else ''}: first maps {sorted(round(t, 1) for t in r.times())}, "
+                          f"peak RSS {r.peak_rss_mb:.0f} MB, load {r.load}" + (f"; problems: {errors[:3]}" if errors else ""), flush=True)
+                    rounds.append(r)
                 if logs is not None:
                     logs.mkdir(parents=True, exist_ok=True)
                     for log in scratch.glob("server-*.log"):
@@ -410,18 +425,28 @@ async def main_async(args: argparse.Namespace) -> list[Round]:
 
 
 def main() -> None:
+    global TIMEOUT_S
     parser = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
     parser.add_argument("--sessions", type=int, nargs="+", default=[1, 5, 10], metavar="N")
     parser.add_argument("--collection", default=str(SAMPLE), help="manifest to serve (default: the bundled sample)")
     parser.add_argument("--profile", metavar="FILE", help="sample the server with py-spy under the largest N (collapsed stacks)")
     parser.add_argument("--logs", metavar="DIR", help="keep the servers' logs in DIR")
     parser.add_argument("--no-record", action="store_true", help="print only; leave benchmarks/results.md as it is")
+    parser.add_argument("--compare-scripts", action="store_true",
+                        help="before each round, the same round with a server that hands every page all of Panel's scripts "
+                             "(printed only)")
+    parser.add_argument("--timeout", type=float, default=TIMEOUT_S, help=f"seconds a page may take to its maps (default {TIMEOUT_S:.0f})")
     args = parser.parse_args()
+    TIMEOUT_S = args.timeout
     machine = _machine()
     rounds = asyncio.run(main_async(args))
-    text = _table(rounds, machine)
+    if args.compare_scripts:
+        print("Every script Panel lists (gridscore's choice of scripts off):\n")
+        print(_table([r for r in rounds if r.all_scripts], machine))
+        print("As served:\n")
+    text = _table([r for r in rounds if not r.all_scripts], machine)
     print(text)
-    if not args.no_record:
+    if not args.no_record and not args.compare_scripts:
         _record(text)
 
 
