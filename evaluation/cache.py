@@ -200,6 +200,11 @@ class Cache:
         for future in waiting:
             future.exception()  # waits; a failed write only costs speed (as in _store)
 
+    def wait(self, key: str) -> None:
+        """Wait until the array entry ``key`` given to :meth:`put_later` is written (or its
+        writing failed); at once when it is not waiting to be written."""
+        self._wait_for(self._name(key, _SUFFIX))
+
     def _wait_for(self, name: str) -> None:
         with _PENDING_LOCK:
             future = _PENDING.get(self.path / name)

@@ -16,6 +16,7 @@ Data stay lazy (dask) throughout.
 
 from __future__ import annotations
 
+import functools
 import inspect
 import os
 import re
@@ -373,11 +374,13 @@ def open_source(
     try:
         with _OPEN_LOCK:
             parts = []
+            opened: list[xr.Dataset] = []  # as opened: closing them closes every file of the source
             if timed:
                 if len(timed) == 1:
-                    parts.append(timecoding.decode(xr.open_dataset(timed[0], chunks=chunks, **raw), file=timed[0]))
+                    opened.append(xr.open_dataset(timed[0], chunks=chunks, **raw))
+                    parts.append(timecoding.decode(opened[-1], file=timed[0]))
                 else:
-                    parts.append(
+                    opened.append(
                         xr.open_mfdataset(
                             timed,
                             **raw,
@@ -391,8 +394,10 @@ def open_source(
                             parallel=False,
                         )
                     )
+                    parts.append(opened[-1])
             for p in untimed:
                 part = xr.open_dataset(p, chunks=None if plain else {}, **raw)
+                opened.append(part)
                 if _fixed_fields_only(p):
                     # a land fraction stamped with one time step (as regional models write it):
                     # a fixed field, whatever its stamp, beside the source's own time axis
@@ -410,7 +415,20 @@ def open_source(
     # the valid range is applied to each step as read, before sub-monthly steps become monthly
     # means (a month with a value out of range is then missing, as with any missing step) and
     # while a packed variable still has its scale_factor/add_offset
-    return timecoding.canonical(_with_valid_ranges(out))
+    result = timecoding.canonical(_with_valid_ranges(out))
+    # close() closes the source's files, as of any dataset xarray opened (the normalising steps
+    # leave it without); the values still in the files are read again through a new opening
+    result.set_close(functools.partial(_close_all, opened))
+    return result
+
+
+def _close_all(opened: list[xr.Dataset]) -> None:
+    """Close the files of the datasets :func:`open_source` opened for one source: their
+    handles and the netCDF library's chunk caches (up to 64 MB a file, kept while it is
+    open).  xarray opens a closed file again when its values are read later."""
+    with _OPEN_LOCK:
+        for ds in opened:
+            ds.close()
 
 
 def _fixed_fields_only(path: str) -> bool:

@@ -36,6 +36,7 @@ from .regions import parse_region, region_weights
 from .request import Source, scores_key
 from .timeaxis import (
     MONTH_NAMES,
+    SEASONS,
     Period,
     climatology,
     complete_years,
@@ -64,9 +65,19 @@ def preferred_units(standard_name: str | None, stored: str) -> str:
     return _PREFERRED_UNITS.get(standard_name or "", stored)
 
 
-#: The most bytes of yearly means :meth:`Comparison.scores` holds for all seasons at once;
-#: beyond it, one season at a time (the others wait in the cache).
-HOLD_LIMIT_BYTES = 512 * 2**20
+#: The most bytes of yearly means :meth:`Comparison.scores` holds in memory: the first seasons
+#: asked for, as many as fit, are held from the read until scored; the others wait in the
+#: cache (written in the background while the next source is read) and are read back one
+#: season at a time.  A century of 1-degree months and 6 sources: 3 of 5 seasons held,
+#: 0.9 GB; peak memory of the command about 1.5 GB (benchmarks/run.py --only memory).
+HOLD_LIMIT_BYTES = 1 << 30
+
+#: Bytes of stored values a source's monthly data are read in at a time (whole years) when
+#: its yearly season means are made from a file read without dask: the monthly values are
+#: never in memory whole.  Measured on the 1-degree century (6 files of 311 MB of float32):
+#: 5.4-5.6 s in blocks of 5-10 years against 11-15 s read whole, most of the difference the
+#: system time of first touching a few hundred MB of new memory on this virtual machine.
+BLOCK_BYTES = 24 * 2**20
 
 
 @dataclass
@@ -167,6 +178,7 @@ class Comparison:
         self._land_file: list[str] = []  # the primary reference's land-fraction file(s), read lazily
         self._land_read = False
         self._grids: dict[str, xr.Dataset] = {}
+        self._close_files: dict[str, object] = {}  # per source, what closes its files (io.open_source)
         self._cache = default_cache() if cache is True else (cache or None)
 
         # the level asked for (``850hPa``); ``self.level`` is its canonical text ("850 hPa")
@@ -229,6 +241,7 @@ class Comparison:
         inputs = {stored: wanted for wanted, stored in src.names_in_files(self.variable).items() if wanted != self.variable}
         # a source that fits in memory is opened without dask and read whole when first reduced
         ds = io.open_source(src.paths, variables=[stored_as, *inputs], source=src.name, without_dask=True)
+        self._close_files[src.name] = ds.close
         self._grids[src.name] = grid_of(ds)
         ds = ds.rename({k: v for k, v in inputs.items() if k in ds.data_vars and v not in ds.data_vars})  # derived inputs
         da = io.get_variable(ds, stored_as, source=src.name)
@@ -409,13 +422,15 @@ class Comparison:
             raise InputError(f"'{name}' is not part of this comparison", remedy=f"use one of {', '.join(self._sources)}")
         return self._prepared[name]
 
-    def prepare(self, seasons: Iterable[str], *, cycle: bool = False, keep: bool = True) -> None:
-        """Reduce every source for the given seasons in one dask pass.
+    def prepare(self, seasons: Iterable[str], *, cycle: bool = False, keep: bool | Iterable[str] = True) -> None:
+        """Reduce every source for the given seasons in one pass over its data.
 
         Already reduced seasons are not recomputed; the results stay in memory, or with
-        ``keep=False`` (and a cache) in the cache only, read back when a season is asked for.
+        ``keep=False`` (and a cache) in the cache only, read back when a season is asked
+        for; ``keep`` may also name the seasons held in memory (the others in the cache only).
         """
         seasons = [parse_season(s) for s in seasons]
+        held = set(seasons) if keep is True else set() if keep is False else {parse_season(s) for s in keep}
         with self._lock:
             todo: list[tuple[str, str]] = []
             done: list[tuple[str, str, xr.DataArray]] = []
@@ -443,22 +458,33 @@ class Comparison:
             # data -- loaded whole and reduced with numpy when it fits in memory, else one
             # dask pass with only this source's chunks in flight, so that memory stays
             # bounded by chunk size however many sources there are.
+            spilled: list[str] = []  # cache keys of the previous source's means not held
             for source in dict.fromkeys(t[0] for t in todo):
                 batch = [t for t in todo if t[0] == source]
-                monthly = self._monthly_in_memory(source, cycle=any(s == "_cycle" for _, s in batch))
-                computed = [monthly_climatology(monthly, self.period) if s == "_cycle" else season_means(monthly, s, self.period) for _, s in batch]
-                if monthly.chunks is not None:  # too large for memory: one dask pass over the chunks
-                    import dask
+                if not any(s == "_cycle" for _, s in batch) and self._reads_in_blocks(source):
+                    computed = self._season_means_in_blocks(source, [s for _, s in batch])
+                    # read through: its files' chunk caches go (64 MB a file); opened again if read again
+                    self._close_files[source]()  # type: ignore[operator]
+                else:
+                    monthly = self._monthly_in_memory(source, cycle=any(s == "_cycle" for _, s in batch))
+                    computed = [monthly_climatology(monthly, self.period) if s == "_cycle" else season_means(monthly, s, self.period) for _, s in batch]
+                    if monthly.chunks is not None:  # too large for memory: one dask pass over the chunks
+                        import dask
 
-                    computed = dask.compute(*computed)
-                del monthly
+                        computed = dask.compute(*computed)
+                    del monthly
+                # what is not held waits for its writer (scipy's, on the cache's thread) before
+                # the next source's means are made: at most two sources' worth in flight
+                for key in spilled:
+                    self._cache.wait(key)  # type: ignore[union-attr]
+                spilled = []
                 for (name, s), value in zip(batch, computed, strict=True):
                     if self._cache is not None:
-                        if keep:  # held in memory anyway: written while the scoring goes on
-                            self._cache.put_later(self._cache_key(name, s), value)
-                        else:  # in the cache only: written now, so that memory stays bounded
-                            self._cache.put(self._cache_key(name, s), value)
-                        if not keep and s != "_cycle" and value.sizes.get("year", 0):
+                        # written while the next source is read and the scoring goes on
+                        key = self._cache_key(name, s)
+                        self._cache.put_later(key, value)
+                        if s not in held and s != "_cycle" and value.sizes.get("year", 0):
+                            spilled.append(key)
                             continue  # in the cache only (an entry that could not be written is recomputed)
                     done.append((name, s, value))
                 del computed
@@ -481,17 +507,66 @@ class Comparison:
 
             fill_means(self, seasons, cycle)
 
-    def _lean(self, seasons: list[str]) -> bool:
-        """Whether :meth:`scores` holds one season at a time (the others in the cache): when the
-        yearly means of every source and season would take more than :data:`HOLD_LIMIT_BYTES`.
+    def _held(self, seasons: list[str]) -> list[str]:
+        """The seasons whose yearly means :meth:`scores` holds in memory from the read until
+        scored: the first ones, as many as :data:`HOLD_LIMIT_BYTES` holds (every season
+        without a cache); the others wait in the cache.
 
-        A century of 1-degree months, 6 sources and 5 seasons hold 1.6 GB of yearly means;
-        one season at a time, 0.3 GB.
+        A century of 1-degree months, 6 sources and 5 seasons make 1.5 GB of yearly means;
+        3 seasons are held (0.9 GB), the other 2 read back from the cache one at a time.
         """
         if self._cache is None or self.ensembles:
-            return False
+            return list(seasons)
         cells = int(np.prod([self._target_grid.sizes[d] for d in ("lat", "lon")]))
-        return len(self._prepared) * len(seasons) * self.period.length * cells * 8 > HOLD_LIMIT_BYTES
+        per_season = len(self._prepared) * self.period.length * cells * 8
+        return list(seasons[:int(HOLD_LIMIT_BYTES // max(per_season, 1))])
+
+    def _reads_in_blocks(self, name: str) -> bool:
+        """Whether a source's season means are made from its monthly values read a few years
+        at a time (:meth:`_season_means_in_blocks`): monthly steps still in one file (opened
+        without dask), not made from sub-monthly steps (those are read a few months at a
+        time already)."""
+        prep = self._prepared[name]
+        da = prep.monthly
+        return (prep.kind == "monthly" and da.chunks is None and not da.variable._in_memory and da.sizes["time"] > 0
+                and da["time"].attrs.get("gridscore_from") != "sub-monthly")
+
+    def _season_means_in_blocks(self, name: str, seasons: list[str]) -> list[xr.DataArray]:
+        """:func:`~evaluation.timeaxis.season_means` of a source over the period for each of
+        ``seasons``, reading its monthly values a few whole years at a time
+        (:data:`BLOCK_BYTES`).
+
+        Each block holds every month of its label years (and the months before its first
+        year that a season across the new year, DJF, takes), so each year's mean is made
+        from the same values, in the same order, as from the whole series: the same
+        numbers.  The monthly values are never in memory whole.
+        """
+        da = self._prepared[name].monthly
+        stored = self._prepared[name].stored_units
+        time = da["time"].values
+        years = np.fromiter((t.year for t in time), dtype=int, count=time.size)
+        months = np.fromiter((t.month for t in time), dtype=int, count=time.size)
+        # the first month of the year before a block that a season across the new year takes
+        earliest = min((SEASONS[s][0] for s in seasons if SEASONS[s][0] > SEASONS[s][-1]), default=13)
+        cells = int(np.prod([n for d, n in da.sizes.items() if d != "time"]))
+        per_block = max(1, int(BLOCK_BYTES // max(12 * cells * da.dtype.itemsize, 1)))
+        start, end = max(self.period.start, int(years.min())), min(self.period.end, int(years.max()))  # label years with data
+        joined = {s: _YearlyMeans(end - start + 1) for s in seasons}
+        for first in range(start, end + 1, per_block):
+            last = min(first + per_block - 1, end)
+            steps = np.flatnonzero(((years == first - 1) & (months >= earliest)) | ((years >= first) & (years <= last)))
+            if steps.size == 0:
+                continue
+            # a contiguous range of steps: the time axis is increasing (io.normalise checks it)
+            block = da.isel(time=slice(int(steps[0]), int(steps[-1]) + 1)).compute()
+            if stored is not None:  # the unit conversion put off by _prepare_source
+                block = convert(block.assign_attrs(units=stored), self.units, source=name)
+            for s in seasons:
+                joined[s].add(season_means(block, s, Period(first, last)))
+            del block
+        if not any(j.template is not None for j in joined.values()):  # no month in the period: the empty means of the whole series
+            return [season_means(da.isel(time=slice(0, 0)), s, self.period) for s in seasons]
+        return [joined[s].result() for s in seasons]
 
     def _monthly_in_memory(self, name: str, *, cycle: bool) -> xr.DataArray:
         """A source's monthly data for the period, read into memory when they fit
@@ -1072,9 +1147,10 @@ class Comparison:
 
         seasons = [parse_season(s) for s in seasons]
         regions = [parse_region(r).id for r in regions]
-        lean = self._lean(seasons)
+        held = self._held(seasons)
+        lean = len(held) < len(seasons)
         _import_while_reading()
-        self.prepare(seasons, keep=not lean)
+        self.prepare(seasons, keep=held)
         grid = self._target_grid
         area = grid["cell_area"].values.ravel()
         land = self._reference_land() if any(parse_region(r).surface for r in regions) else None
@@ -1208,6 +1284,45 @@ class _Expanded:
     name: str
     role: str
     paths: tuple[str, ...]
+
+
+class _YearlyMeans:
+    """Yearly means made block by block (:meth:`Comparison._season_means_in_blocks`) joined
+    along ``year`` as :func:`~evaluation.timeaxis.season_means` of the whole series gives
+    them, in one array of at most ``years`` years made at the first block: each block's
+    small array goes as soon as it is copied in (no list of blocks, then a second copy of
+    the whole when joined)."""
+
+    def __init__(self, years: int) -> None:
+        self.capacity = years
+        self.template: xr.DataArray | None = None  # the first block with years (its coordinates, attributes)
+        self.values: np.ndarray | None = None  # years first
+        self.years: list[np.ndarray] = []
+        self.count = 0
+
+    def add(self, part: xr.DataArray) -> None:
+        if self.template is None:
+            self.template = part  # also a block without a complete season: the empty result
+        n = part.sizes["year"]
+        if n == 0:
+            return
+        if self.values is None:
+            self.template = part
+            self.values = np.empty((self.capacity, *(size for d, size in part.sizes.items() if d != "year")), dtype=part.dtype)
+        self.values[self.count:self.count + n] = np.moveaxis(part.values, part.get_axis_num("year"), 0)
+        self.years.append(part["year"].values)
+        self.count += n
+
+    def result(self) -> xr.DataArray:
+        first = self.template
+        assert first is not None
+        if self.values is None:
+            return first
+        values = self.values if self.count == self.capacity else self.values[:self.count].copy()
+        values = np.moveaxis(values, 0, first.get_axis_num("year"))
+        coords = {k: c for k, c in first.coords.items() if "year" not in c.dims}
+        return xr.DataArray(values, dims=first.dims, coords={**coords, "year": np.concatenate(self.years)},
+                            name=first.name, attrs=dict(first.attrs))
 
 
 def _land_from(ds: xr.Dataset) -> xr.DataArray:
