@@ -265,15 +265,32 @@ class TaylorView(ResultView):
         return (request.variable, request.level, request.reference, request.models, request.region, request.season, request.period,
                 request.target_grid, request.taylor)
 
+    @staticmethod
+    def _keys(request: Request) -> tuple[tuple, tuple]:
+        """The arguments of the scores, and of the comparison's units and other references
+        (:meth:`ResultView.alternatives`)."""
+        args = (request.reference, request.variable, request.period, request.region, request.season, request.level, request.target_grid)
+        return args, (*args[:3], request.level, request.target_grid)  # the same comparison as the scores
+
     async def load(self, request: Request) -> dict[str, Any]:
         results = self.results
-        args = (request.reference, request.variable, request.period, request.region, request.season, request.level, request.target_grid)
+        args, unit_args = self._keys(request)
         tidy = await results.fetch(("scores",) + args, results.scores, *args)
-        unit_args = (*args[:3], request.level, request.target_grid)  # the same comparison as the scores
         units = await results.fetch(("units",) + unit_args, results.units, *unit_args)
         alternatives = await self.alternatives(request)
+        return self._data(request, tidy, units, alternatives)
+
+    def ready(self, request: Request) -> dict[str, Any] | None:
+        """The diagram's numbers when the scores, units and other references are already computed
+        (a change back to a region seen before is drawn without the round trip of :meth:`load`)."""
+        products = self.results.products
+        args, unit_args = self._keys(request)
+        found = [products.get(key, None) for key in (("scores",) + args, ("units",) + unit_args, ("alternatives",) + unit_args)]
+        return None if any(f is None for f in found) else self._data(request, *found)
+
+    def _data(self, request: Request, tidy: Any, units: str, alternatives: list[str]) -> dict[str, Any]:
         # members of a ticked ensemble (app.views.series.ensemble_members): drawn as its cloud
-        members = [m for m in ensemble_members(results, request) if m not in request.models]
+        members = [m for m in ensemble_members(self.results, request) if m not in request.models]
         # the runs and the alternative references, all scored against the selected reference
         mine = tidy[(tidy["reference"] == request.reference) & tidy["model"].isin([*request.models, *alternatives, *members])]
         return {"tidy": mine, "units": units, "alternatives": alternatives, "members": members}
