@@ -296,6 +296,9 @@ def _cmd_serve(args) -> int:
 
     # the collection opens (and, without a cluster, its first numbers are made) while Panel loads
     opened = None if args.scheduler else open_collection(args.path)
+    # with the server, the page's modules (every view): the first page imported them while
+    # its document was built, after the server listened
+    import app.dashboard  # noqa: F401
     from app.server import serve
 
     serve(
