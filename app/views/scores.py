@@ -14,7 +14,6 @@ from typing import Any
 import numpy as np
 import pandas as pd
 import panel as pn
-import param
 from bokeh.models.widgets.tables import HTMLTemplateFormatter, NumberFormatter
 
 from evaluation.bootstrap import BEST_RULE, GUARDED_BEST
@@ -242,15 +241,18 @@ def _reformat(widget: pn.widgets.Tabulator, parts: dict[str, Any]) -> None:
     Panel answers new ``formatters`` with new column models, and Tabulator in the browser then
     builds its columns anew (a third of a region change); its cells read their formatter's
     format whenever they are drawn, so the format of the column models already on the page is
-    changed instead, before the new values arrive.  The widget keeps the same formatters for
-    any model it makes later (without rebuilding the columns of the current one)."""
+    changed instead, before the new values arrive.  The widget's own formatters (which Panel
+    copies into any model it makes later) take the new format too, in place: making new ones
+    was a tenth of the server's share of a change of region."""
     for model, _ in widget._models.values():  # Panel's models of this widget, one per page showing it
         for column in model.columns:
             fmt = parts["formats"].get(column.field)
             if fmt is not None and isinstance(column.formatter, NumberFormatter) and column.formatter.format != fmt:
                 column.formatter.format = fmt
-    with param.parameterized.discard_events(widget):
-        widget.formatters = _formatters(parts)
+    for field, fmt in parts["formats"].items():
+        own = widget.formatters.get(field)
+        if fmt is not None and isinstance(own, NumberFormatter) and own.format != fmt:
+            own.format = fmt
 
 
 def sorted_runs(shown: pd.DataFrame, sort: str) -> tuple[pd.DataFrame, dict[str, str] | None]:
@@ -470,18 +472,22 @@ class ScoresView(ResultView):
     def _point_downloads(self, buttons: list[pn.widgets.FileDownload], data: dict[str, Any], request: Request) -> None:
         """The download buttons made for ``data`` (their callbacks and file names)."""
         tidy = data.get("every", data["tidy"])
-        # the files of the sources in the downloaded table only (the comparison holds every run of the variable)
-        record = provenance_for(data["provenance"], {request.reference, *tidy["model"], *tidy["reference"]})
+
+        def record() -> dict:
+            """The provenance of the files of the sources in the downloaded table only (the comparison
+            holds every run of the variable); made when a download asks, not at each drawing."""
+            return provenance_for(data["provenance"], {request.reference, *tidy["model"], *tidy["reference"]})
+
         base = safe_filename("scores", request.variable, request.reference, request.region, request.season, request.period)
         results = self.results
         for fmt, button in zip(DOWNLOADS, buttons, strict=False):
 
             async def make(fmt: str = fmt) -> io.BytesIO:
-                payload = await results.run(lambda: table_bytes(tidy, fmt, provenance=record))
+                payload = await results.run(lambda: table_bytes(tidy, fmt, provenance=record()))
                 return io.BytesIO(payload)
 
             button.param.update(callback=make, filename=f"{base}.{fmt}")
-        buttons[-1].param.update(callback=lambda: io.BytesIO(provenance_bytes(record)),
+        buttons[-1].param.update(callback=lambda: io.BytesIO(provenance_bytes(record())),
                                  filename=sidecar_path(f"{base}.csv").name)
 
 
