@@ -687,7 +687,12 @@ class Comparison:
             ref_series = ref_series.isel(year=0, drop=True).expand_dims(year=run_series["year"].values).transpose(*run_series.dims)
             return run_series, ref_series
         years = np.intersect1d(run_series["year"].values, ref_series["year"].values)
-        return run_series.sel(year=years), ref_series.sel(year=years)
+
+        def on_years(series: xr.DataArray) -> xr.DataArray:
+            # the same years already (the usual case): the series itself, not a copy of it
+            return series if np.array_equal(series["year"].values, years) else series.sel(year=years)
+
+        return on_years(run_series), on_years(ref_series)
 
     def _weights(self, region: str, mask: xr.DataArray) -> xr.DataArray:
         grid = self._target_grid
