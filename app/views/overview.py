@@ -455,8 +455,8 @@ def bokeh_overview(table: pd.DataFrame, by: str) -> Any:
     def panel(title: str, width: int, x_range: tuple[float, float], *, x_axis: bool = True) -> Any:
         # no y axis, no grid lines, no tools: no models for them
         fig = bokeh_figure(frame_width=width, frame_height=height, x_range=Range1d(*x_range), y_range=y_range, tools=[],
-                           toolbar_location=None, title=canvas_text(title), y_axis_location=None,
-                           x_axis_location="below" if x_axis else None)
+                           toolbar_location=None, y_axis_location=None, x_axis_location="below" if x_axis else None)
+        fig.title.text = canvas_text(title)  # a name from a file: drawn as written
         fig.title.text_font_size = "10pt"
         fig.center = [r for r in fig.center if not isinstance(r, Grid)]
         return fig
