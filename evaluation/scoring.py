@@ -1323,7 +1323,7 @@ class _YearlyMeans:
         assert first is not None
         if self.values is None:
             return first
-        values = self.values if self.count == self.capacity else self.values[:self.count].copy()
+        values = self.values[:self.count]  # fewer years than room (a season incomplete): a view, not a copy
         values = np.moveaxis(values, 0, first.get_axis_num("year"))
         coords = {k: c for k, c in first.coords.items() if "year" not in c.dims}
         return xr.DataArray(values, dims=first.dims, coords={**coords, "year": np.concatenate(self.years)},
