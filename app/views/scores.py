@@ -14,6 +14,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 import panel as pn
+import param
 from bokeh.models.widgets.tables import HTMLTemplateFormatter, NumberFormatter
 
 from evaluation.bootstrap import BEST_RULE, GUARDED_BEST
@@ -241,18 +242,16 @@ def _reformat(widget: pn.widgets.Tabulator, parts: dict[str, Any]) -> None:
     Panel answers new ``formatters`` with new column models, and Tabulator in the browser then
     builds its columns anew (a third of a region change); its cells read their formatter's
     format whenever they are drawn, so the format of the column models already on the page is
-    changed instead, before the new values arrive.  The widget's own formatters (which Panel
-    copies into any model it makes later) take the new format too, in place: making new ones
-    was a tenth of the server's share of a change of region."""
+    changed instead, before the new values arrive.  The widget keeps the same formatters for
+    any model it makes later (without rebuilding the columns of the current one; changed in
+    place instead, Panel sent one table's columns anew)."""
     for model, _ in widget._models.values():  # Panel's models of this widget, one per page showing it
         for column in model.columns:
             fmt = parts["formats"].get(column.field)
             if fmt is not None and isinstance(column.formatter, NumberFormatter) and column.formatter.format != fmt:
                 column.formatter.format = fmt
-    for field, fmt in parts["formats"].items():
-        own = widget.formatters.get(field)
-        if fmt is not None and isinstance(own, NumberFormatter) and own.format != fmt:
-            own.format = fmt
+    with param.parameterized.discard_events(widget):
+        widget.formatters = _formatters(parts)
 
 
 def sorted_runs(shown: pd.DataFrame, sort: str) -> tuple[pd.DataFrame, dict[str, str] | None]:
