@@ -118,10 +118,12 @@ def _land_at_centres(grid: xr.Dataset | xr.DataArray) -> xr.DataArray:
 @lru_cache(maxsize=1)
 def bundled_land_fraction() -> xr.Dataset:
     """The 1° land fraction that ships with the package (see scripts/make_land_fraction.py)."""
-    from .io import normalise
+    from .io import _OPEN_LOCK, normalise
 
     ref = resources.files("evaluation") / "data" / "land_fraction_1deg.nc"
-    with resources.as_file(ref) as path:
+    # under the core's open lock: netCDF-C is not thread-safe, and a server reads this file
+    # while other files are being opened on another thread
+    with resources.as_file(ref) as path, _OPEN_LOCK:
         with xr.open_dataset(path) as ds:
             loaded = ds.load()
     return normalise(loaded, source=str(path))

@@ -159,7 +159,7 @@ def test_a_large_file_rewritten_at_equal_size_and_old_time_changes_its_sample(tm
     a touch that keeps the bytes does not (common practice: an identity of the content)."""
     from evaluation import request
 
-    big = {"dlat": 2.0, "years": 2, "start_year": 2001}
+    big = {"dlat": 2.0, "years": 10, "start_year": 2001}
     target = write_cf(tmp_path / "big.nc", offset=0.0, **big)
     st = target.stat()
     assert st.st_size > request._SAMPLE_WHOLE  # the sampled path, not the whole-file hash
@@ -172,3 +172,24 @@ def test_a_large_file_rewritten_at_equal_size_and_old_time_changes_its_sample(tm
     shutil.copyfile(tmp_path / "new.nc", tmp_path / "same.nc")
     os.utime(tmp_path / "same.nc", ns=(1, 1))
     assert request._content_sample(str(tmp_path / "same.nc"), st.st_size) == request._content_sample(str(new), st.st_size)
+
+
+def test_a_file_up_to_4_mib_with_one_byte_changed_changes_its_sample(tmp_path: Path) -> None:
+    """A file of up to 4 MiB is hashed whole: one byte changed anywhere, at equal size and
+    the old modification time, changes its sample (common practice: an identity of the
+    content; a sampled hash would miss a byte between its blocks)."""
+    from evaluation import request
+
+    path = tmp_path / "small.bin"
+    size = request._SAMPLE_WHOLE
+    data = bytearray(os.urandom(size))
+    path.write_bytes(bytes(data))
+    st = path.stat()
+    before = request._content_sample(str(path), size)
+    for where in (size // 2 + 12_345, size - 70_000, 1_000_001):
+        data[where] ^= 0xFF
+        path.write_bytes(bytes(data))
+        os.utime(path, ns=(st.st_atime_ns, st.st_mtime_ns))
+        after = request._content_sample(str(path), size)
+        assert after != before, where
+        before = after
