@@ -179,6 +179,10 @@ class Comparison:
         self._land_read = False
         self._grids: dict[str, xr.Dataset] = {}
         self._close_files: dict[str, object] = {}  # per source, what closes its files (io.open_source)
+        #: per source, its files' identities when first opened: a source whose files were closed
+        #: is read again through a new opening by path, checked against these first
+        self._opened_as: dict[str, list] = {}
+        self._closed: set[str] = set()
         self._cache = default_cache() if cache is True else (cache or None)
 
         # the level asked for (``850hPa``); ``self.level`` is its canonical text ("850 hPa")
@@ -242,6 +246,7 @@ class Comparison:
         # a source that fits in memory is opened without dask and read whole when first reduced
         ds = io.open_source(src.paths, variables=[stored_as, *inputs], source=src.name, without_dask=True)
         self._close_files[src.name] = ds.close
+        self._opened_as[src.name] = io.file_identity([f for f in str(ds.attrs.get("gridscore_files", "")).split("\n") if f])
         self._grids[src.name] = grid_of(ds)
         ds = ds.rename({k: v for k, v in inputs.items() if k in ds.data_vars and v not in ds.data_vars})  # derived inputs
         da = io.get_variable(ds, stored_as, source=src.name)
@@ -461,10 +466,13 @@ class Comparison:
             spilled: list[str] = []  # cache keys of the previous source's means not held
             for source in dict.fromkeys(t[0] for t in todo):
                 batch = [t for t in todo if t[0] == source]
+                if source in self._closed:
+                    self._require_unchanged(source)
                 if not any(s == "_cycle" for _, s in batch) and self._reads_in_blocks(source):
                     computed = self._season_means_in_blocks(source, [s for _, s in batch])
                     # read through: its files' chunk caches go (64 MB a file); opened again if read again
                     self._close_files[source]()  # type: ignore[operator]
+                    self._closed.add(source)
                 else:
                     monthly = self._monthly_in_memory(source, cycle=any(s == "_cycle" for _, s in batch))
                     computed = [monthly_climatology(monthly, self.period) if s == "_cycle" else season_means(monthly, s, self.period) for _, s in batch]
@@ -507,6 +515,28 @@ class Comparison:
 
             fill_means(self, seasons, cycle)
 
+    def _require_unchanged(self, name: str) -> None:
+        """Refuse to read a source again whose files changed since it was opened.
+
+        Its files were closed after a read (:meth:`scores`); reading them again opens them
+        by path, while the time axis, packing and valid ranges decoded at the first opening
+        are kept: a file replaced meanwhile would be read with the old file's metadata, and
+        one comparison would mix two versions of it.  The remedy is a new comparison (the
+        server starts one when its look at the files sees the change).
+        """
+        then = self._opened_as.get(name, [])
+        try:
+            now = io.file_identity([f.path for f in then])
+        except OSError as exc:
+            raise InputError("the file went away while gridscore was scoring it", file=getattr(exc, "filename", None) or name,
+                             remedy="score again once the file is back") from None
+        for old, new in zip(then, now, strict=True):
+            if old != new:
+                raise InputError(
+                    "the file changed while gridscore was scoring it (its other seasons were read from the file as it was)",
+                    file=old.path, remedy="score again: the new file is read from its start",
+                )
+
     def _held(self, seasons: list[str]) -> list[str]:
         """The seasons whose yearly means :meth:`scores` holds in memory from the read until
         scored: the first ones, as many as :data:`HOLD_LIMIT_BYTES` holds (every season
@@ -517,8 +547,11 @@ class Comparison:
         """
         if self._cache is None or self.ensembles:
             return list(seasons)
-        cells = int(np.prod([self._target_grid.sizes[d] for d in ("lat", "lon")]))
-        per_season = len(self._prepared) * self.period.length * cells * 8
+        # a source's yearly means stay on its own grid until every source is read, then go on
+        # the target grid: the larger of the two sums bounds what a season holds
+        target = int(np.prod([self._target_grid.sizes[d] for d in ("lat", "lon")]))
+        own = sum(int(np.prod([n for d, n in p.monthly.sizes.items() if d != "time"])) for p in self._prepared.values())
+        per_season = max(own, len(self._prepared) * target) * self.period.length * 8
         return list(seasons[:int(HOLD_LIMIT_BYTES // max(per_season, 1))])
 
     def _reads_in_blocks(self, name: str) -> bool:

@@ -84,3 +84,36 @@ def test_seasons_partly_held_partly_read_back_give_the_hand_bias(tmp_path, monke
         bias = np.sum(area * (clim_m - clim_r)) / np.sum(area)
         got = table[(table["season"] == season) & (table["metric"] == "bias")]["value"].item()
         assert got == pytest.approx(bias, rel=1e-12, abs=1e-12)
+
+
+def test_a_file_replaced_between_two_reads_of_one_comparison_is_refused_not_mixed(tmp_path):
+    """A source's files are closed after a read and opened again by path for another season;
+    a file replaced in between (an atomic save) would be read with the first file's decoded
+    time axis and packing.  The comparison refuses to read it (one line naming the file) instead
+    of mixing two versions; a new comparison reads the new file whole, 5 K warmer than the
+    reference everywhere (the offset written, common practice: a uniform shift moves every
+    mean by itself)."""
+    import os
+
+    from evaluation.errors import InputError
+
+    ref = write_cf(tmp_path / "ref.nc", dlat=15.0, start_year=1990, years=8)
+    run = write_cf(tmp_path / "run.nc", dlat=15.0, start_year=1990, years=8)
+    new = write_cf(tmp_path / "new.nc", dlat=15.0, start_year=1990, years=8, offset=5.0)
+
+    def comparison():
+        return Comparison(reference=Source("o", "reference", (str(ref),)), models=[Source("r", "model", (str(run),))],
+                          variable="tas", period="1991-1997", cache=False)
+
+    first = comparison()
+    assert first._reads_in_blocks("r")
+    first.prepare(["ANN"])
+    os.replace(new, run)
+    with pytest.raises(InputError) as err:
+        first.prepare(["JJA"])
+    assert str(run) in str(err.value) and "changed" in str(err.value)
+    again = comparison()
+    again.prepare(["ANN", "JJA"])
+    for season in ("ANN", "JJA"):
+        diff = again.season_series("r", season) - again.season_series("o", season)
+        np.testing.assert_allclose(diff.values, 5.0, rtol=0, atol=1e-4)  # float32 values in the file
