@@ -198,3 +198,47 @@ def test_field_values_are_the_physical_function(tmp_path):
     lat, lon = np.meshgrid(ds["lat"].values, ds["lon"].values, indexing="ij")
     expected = default_field(lat, lon, np.array(1990.0), np.array(1.0))
     np.testing.assert_allclose(ds["tas"].isel(time=0).values, expected, rtol=1e-6)
+
+
+@pytest.mark.parametrize(("dims", "dtype"), [(("year", "lat", "lon"), np.float64), (("time", "lat", "lon"), np.float32),
+                                             (("lat", "lon"), np.float64), (("lat", "lon", "year"), np.float64)])
+@pytest.mark.parametrize("mask", ["fixed", "varying"])
+@pytest.mark.filterwarnings("ignore:invalid value encountered in divide:RuntimeWarning")  # the library's 0/0 where no valid cell
+def test_conservative_in_memory_equals_xarray_regrid_apply_weights(dims, dtype, mask):
+    """Values in memory take a numpy/scipy.sparse path; values in dask take xarray-regrid's own
+    ``apply_weights`` (the library, the outside reference here): the same numbers to rounding,
+    the same missing cells, dims, coordinates, name and attributes, with missing cells fixed in
+    every step (a land mask) or changing from step to step."""
+    from evaluation.grids.remap_regular import conservative
+
+    def grid(step: float, shift: float) -> xr.Dataset:
+        lat = np.arange(-90 + step / 2, 90, step)
+        lon = np.arange(-180 + step / 2 + shift, 180 + shift, step)
+        ds = xr.Dataset(coords={"lat": lat, "lon": lon})
+        ds["lat_bnds"] = (("lat", "bnds"), np.stack([lat - step / 2, lat + step / 2], 1))
+        ds["lon_bnds"] = (("lon", "bnds"), np.stack([lon - step / 2, lon + step / 2], 1))
+        return ds
+
+    src, tgt = grid(3.75, 0.0), grid(2.5, 0.5)
+    sizes = {"year": 6, "time": 4, "lat": src.sizes["lat"], "lon": src.sizes["lon"]}
+    rng = np.random.default_rng(7)
+    values = rng.normal(size=[sizes[d] for d in dims]).astype(dtype)
+    if mask == "fixed":
+        values[..., :5, :] = np.nan if dims[-1] == "lon" else values[..., :5, :]
+        if dims[-1] != "lon":
+            values[:5] = np.nan
+    else:
+        values[values > 1.2] = np.nan
+    coords = {"lat": src["lat"].values, "lon": src["lon"].values}
+    if "year" in dims:
+        coords["year"] = np.arange(sizes["year"])
+    da = xr.DataArray(values, dims=dims, coords=coords, name="tas", attrs={"units": "K"})
+    fast = conservative(da, src, tgt)
+    library = conservative(da.chunk(), src, tgt).compute()
+    assert fast.dims == library.dims and fast.dtype == library.dtype and fast.name == library.name
+    assert fast.attrs == library.attrs and set(fast.coords) == set(library.coords)
+    np.testing.assert_array_equal(np.isnan(fast.values), np.isnan(library.values))
+    tolerance = 1e-6 if dtype == np.float32 else 1e-14
+    np.testing.assert_allclose(fast.values, library.values, rtol=tolerance, atol=tolerance, equal_nan=True)
+    for name in fast.coords:
+        np.testing.assert_array_equal(fast[name].values, library[name].values)
