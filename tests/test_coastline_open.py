@@ -9,10 +9,12 @@ import numpy as np
 
 from app.views import coastlines
 from evaluation.io import _OPEN_LOCK
+from evaluation.regions import bundled_land_fraction
 
 
 def test_the_coastline_file_is_opened_only_while_no_other_open_holds_the_lock() -> None:
     coastlines.coastline_segments.cache_clear()
+    bundled_land_fraction.cache_clear()  # the file the coastlines are drawn from, read again
     done = threading.Event()
     found: list = []
 

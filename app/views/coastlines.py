@@ -12,12 +12,10 @@ add nothing visible, while their points travel to the browser with every map (th
 from __future__ import annotations
 
 import functools
-from importlib import resources
 
 import contourpy
 import holoviews as hv
 import numpy as np
-import xarray as xr
 
 __all__ = ["coastline_lines", "coastline_path", "coastline_segments"]
 
@@ -40,17 +38,14 @@ def coastline_segments() -> tuple[np.ndarray, ...]:
     Read once per process (the result is cached).  Cells whose land fraction is NaN
     would open gaps in the contour; the bundled file has none.
     """
-    from evaluation.io import _OPEN_LOCK
+    from evaluation.regions import bundled_land_fraction
 
-    path = resources.files("evaluation") / "data" / "land_fraction_1deg.nc"
-    with resources.as_file(path) as local:
-        # netCDF-C is not thread-safe (pydata/xarray#4100): this runs at server start-up while
-        # the collection's files are being opened on another thread, so it takes the lock
-        # every open of the core takes.
-        with _OPEN_LOCK, xr.open_dataset(local) as ds:
-            lon = ds["lon"].values
-            lat = ds["lat"].values
-            frac = ds["sftlf"].values
+    # the core's copy of the bundled 1° land fraction: read once per process, under the lock
+    # every open of the core takes (netCDF-C is not thread-safe, pydata/xarray#4100)
+    ds = bundled_land_fraction()
+    lon = ds["lon"].values
+    lat = ds["lat"].values
+    frac = ds["sftlf"].values
     lines = contourpy.contour_generator(lon, lat, frac, line_type=contourpy.LineType.Separate).lines(0.5)
     return tuple(np.asarray(line) for line in lines if len(line) >= _MIN_POINTS)
 
