@@ -98,68 +98,63 @@ def conservative(da: xr.DataArray, source_grid: xr.Dataset | None, target: xr.Da
     w_lat, w_lon = _overlaps(src_lat_b.tobytes(), src_lon_b.tobytes(), tgt_lat_b.tobytes(), tgt_lon_b.tobytes())
     covered_lat = w_lat.sum(axis=0) > 0
     covered_lon = w_lon.sum(axis=0) > 0
+    dtype = np.result_type(np.float32, da.dtype)
+    n_lat, n_lon = utils.normalize_overlap(w_lat).astype(dtype), utils.normalize_overlap(w_lon).astype(dtype)
     if da.chunks is None and da.dtype.kind == "f":
-        dtype = np.result_type(np.float32, da.dtype)
-        mean = _apply_in_memory(da, utils.normalize_overlap(w_lat).astype(dtype), utils.normalize_overlap(w_lon).astype(dtype))
-        mean[..., ~(covered_lat[:, None] & covered_lon[None, :])] = np.nan
         others = [d for d in da.dims if d not in ("lat", "lon")]
+        mean = _apply_in_memory(da.transpose(*others, "lat", "lon").values, n_lat, n_lon)
+        mean[..., ~(covered_lat[:, None] & covered_lon[None, :])] = np.nan
         coords = {k: v for k, v in da.coords.items() if "lat" not in v.dims and "lon" not in v.dims}
         out = xr.DataArray(mean, dims=(*others, "lat", "lon"), coords={**coords, "lat": tgt_lat, "lon": tgt_lon}, name=da.name, attrs=da.attrs)
         return out.transpose(*da.dims)
     weights: dict[Hashable, xr.DataArray] = {
-        "lat": utils.create_dot_dataarray(utils.normalize_overlap(w_lat), "lat", tgt_lat, da["lat"].values),
-        "lon": utils.create_dot_dataarray(utils.normalize_overlap(w_lon), "lon", tgt_lon, da["lon"].values),
+        "lat": utils.create_dot_dataarray(n_lat, "lat", tgt_lat, da["lat"].values),
+        "lon": utils.create_dot_dataarray(n_lon, "lon", tgt_lon, da["lon"].values),
     }
-    dtype = np.result_type(np.float32, da.dtype)
-    weights = {k: v.astype(dtype) for k, v in weights.items()}
     out = apply_weights(da, weights, skipna=True, nan_threshold=1.0)
     covered = xr.DataArray(covered_lat[:, None] & covered_lon[None, :], dims=("lat", "lon"), coords={"lat": tgt_lat, "lon": tgt_lon})
     return out.assign_coords(lat=tgt_lat, lon=tgt_lon).where(covered)
 
 
-def _apply_in_memory(da: xr.DataArray, w_lat: np.ndarray, w_lon: np.ndarray) -> np.ndarray:
+def _apply_in_memory(values: np.ndarray, w_lat: np.ndarray, w_lon: np.ndarray) -> np.ndarray:
     """xarray-regrid's ``apply_weights(da, weights, skipna=True, nan_threshold=1.0)`` for values
-    in memory, with numpy and scipy.sparse: the values (..., lat, lon) of ``da`` with lat and
-    lon last, mapped to (..., target lat, target lon).
+    in memory, with numpy and scipy.sparse: ``values`` (..., lat, lon) mapped to (..., target
+    lat, target lon) by the (source, target) weights ``w_lat``/``w_lon``.
 
     Written by hand because of its cost, not its arithmetic: the same sums (the values with NaN
     as 0, and the valid fractions), the same division and threshold, without ``xr.dot``'s
     alignment, its ``einsum`` set-up and the weights' DataArrays on every call (a few decades
     of yearly means on a 2-4 degree grid: 17 ms a call before; the overview's five seasons of
-    every variable make hundreds of calls).  Agrees with the library to rounding
-    (tests/test_grid.py compares both).  ``w_lat``/``w_lon``: (source, target) weights.
+    every variable make hundreds of calls).  The weights are interval overlaps: a target cell
+    meets a few source cells of each axis, so they are applied as sparse matrices (CSR times
+    dense), a few multiply-adds a value instead of one per source cell of the axis.  Agrees
+    with the library to rounding (tests/test_grid.py compares both).
     """
+    from scipy import sparse
     from xarray_regrid.methods.conservative import get_valid_threshold
 
-    others = [d for d in da.dims if d not in ("lat", "lon")]
-    values = da.transpose(*others, "lat", "lon").values.astype(w_lat.dtype, copy=False)
+    lat_t, lon_t = sparse.csr_array(w_lat.T), sparse.csr_array(w_lon.T)  # (target, source)
+    values = values.astype(w_lat.dtype, copy=False)
     valid = ~np.isnan(values)
-    total = _through(np.where(valid, values, 0), w_lat, w_lon)
+    total = _through(np.where(valid, values, 0), lat_t, lon_t)
     if values.ndim > 2 and (same := valid.reshape(-1, *valid.shape[-2:])).all(axis=0).sum() == same.any(axis=0).sum():
         # the same cells missing in every step (a land or sea mask): one map of valid fractions
-        fraction = _through(valid[(0,) * (values.ndim - 2)].astype(w_lat.dtype), w_lat, w_lon)
+        fraction = _through(valid[(0,) * (values.ndim - 2)].astype(w_lat.dtype), lat_t, lon_t)
     else:
-        fraction = _through(valid.astype(w_lat.dtype), w_lat, w_lon)
+        fraction = _through(valid.astype(w_lat.dtype), lat_t, lon_t)
     with np.errstate(invalid="ignore", divide="ignore"):
         return np.where(fraction >= get_valid_threshold(1.0), total / fraction, np.nan)
 
 
-def _through(values: np.ndarray, w_lat: np.ndarray, w_lon: np.ndarray) -> np.ndarray:
-    """``values`` (..., lat, lon) through the (source, target) weights: (..., target lat, target lon).
-
-    The weights are interval overlaps: a target cell meets a few source cells of each axis, so
-    they are applied as sparse matrices (scipy.sparse, CSR times dense), a few multiply-adds a
-    value instead of a dense product's one per source cell of the axis."""
-    from scipy import sparse
-
+def _through(values: np.ndarray, lat_t, lon_t) -> np.ndarray:
+    """``values`` (..., lat, lon) through the sparse (target, source) weights of each axis:
+    (..., target lat, target lon), as two sparse-times-dense products."""
     *lead, n_lat, n_lon = values.shape
     rows = int(np.prod(lead, dtype=int))
-    lon_t = sparse.csr_array(w_lon.T)  # (target lon, lon)
-    lat_t = sparse.csr_array(w_lat.T)  # (target lat, lat)
     by_lon = (lon_t @ values.reshape(rows * n_lat, n_lon).T).T  # (rows * lat, target lon)
     by_lon = by_lon.reshape(rows, n_lat, -1).transpose(1, 0, 2).reshape(n_lat, -1)  # (lat, rows * target lon)
     by_lat = lat_t @ by_lon  # (target lat, rows * target lon)
-    return np.ascontiguousarray(by_lat.reshape(w_lat.shape[1], rows, -1).transpose(1, 0, 2)).reshape(*lead, w_lat.shape[1], w_lon.shape[1])
+    return np.ascontiguousarray(by_lat.reshape(lat_t.shape[0], rows, -1).transpose(1, 0, 2)).reshape(*lead, lat_t.shape[0], lon_t.shape[0])
 
 
 def bilinear(da: xr.DataArray, source_grid: xr.Dataset | None, target: xr.Dataset) -> xr.DataArray:
